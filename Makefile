@@ -1,0 +1,34 @@
+# Two commands on a fresh machine: `make demo` and `make test`. Both create .venv/ if it
+# is missing and install the package with its test extras first.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.wirestate-installed
+
+.PHONY: demo test lint format bench bench-compare regress regress-update clean
+
+$(STAMP): pyproject.toml
+	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[test]'
+	@touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/wirestate inspect models/drive_bus_filter.toml
+
+lint: $(STAMP)
+	$(BIN)/ruff check src tests benchmarks
+	$(BIN)/ruff format --check src tests benchmarks
+
+format: $(STAMP)
+	$(BIN)/ruff format src tests benchmarks
+	$(BIN)/ruff check --fix src tests benchmarks
+
+test: $(STAMP) lint
+	$(BIN)/python -m pytest
+
+bench: $(STAMP)
+	$(BIN)/python benchmarks/run_all.py --out benchmarks/results/latest.json
+
+clean:
+	rm -rf $(VENV) build src/*.egg-info .pytest_cache

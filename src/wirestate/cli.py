@@ -1,0 +1,79 @@
+"""Command line: parses arguments, calls the library, prints, sets the exit code.
+
+Each sub-command lives in a module that provides ``configure(parser)`` and
+``run(args) -> int``; this file only lists them. A user's mistake (any
+:class:`~wirestate.errors.WirestateError`) prints one line ``error: <where>: <what>`` on
+stderr and exits with status 2, never a traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+from wirestate import __version__
+from wirestate.errors import WirestateError
+
+#: sub-command -> (module providing configure/run, one-line help)
+COMMANDS: dict[str, tuple[str, str]] = {
+    "inspect": ("wirestate.commands.inspect", "states, poles, modes and DC gains"),
+    "schema": ("wirestate.commands.schema", "print the JSON Schema of a file format"),
+    "simulate": ("wirestate.commands.simulate", "simulate a circuit or system file"),
+    "tune": ("wirestate.commands.tune", "size damping parts in closed loop"),
+    "regress": ("wirestate.commands.regress", "compare responses with golden files"),
+    "bench-compare": ("wirestate.commands.bench_compare", "compare benchmark results"),
+}
+
+EXIT_USER_ERROR = 2
+
+
+def build_parser(available: dict[str, object]) -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="wirestate",
+        description="Circuit model files as named state-space blocks: inspect, simulate, "
+        "tune damping parts, keep responses under regression.",
+    )
+    parser.add_argument("--version", action="version", version=f"wirestate {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, module in available.items():
+        _, help_text = COMMANDS[name]
+        command_parser = sub.add_parser(name, help=help_text, description=help_text)
+        module.configure(command_parser)  # type: ignore[attr-defined]
+    return parser
+
+
+def _available_commands() -> dict[str, object]:
+    available = {}
+    for name, (module_name, _) in COMMANDS.items():
+        try:
+            available[name] = importlib.import_module(module_name)
+        except ModuleNotFoundError as exc:
+            # a command whose module is not part of this build is simply not offered
+            if exc.name != module_name:
+                raise
+    return available
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    available = _available_commands()
+    parser = build_parser(available)
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return EXIT_USER_ERROR
+    try:
+        return int(available[args.command].run(args) or 0)  # type: ignore[attr-defined]
+    except WirestateError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return EXIT_USER_ERROR
+    except KeyboardInterrupt:
+        print("error: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,1 @@
+"""Sub-command modules: each has configure(parser) and run(args) -> int."""

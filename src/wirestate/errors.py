@@ -1,0 +1,154 @@
+"""Errors as data: every user-facing failure has a stable code, a location and a message.
+
+One base class, :class:`WirestateError`, carries
+
+* ``code`` - a stable snake_case identifier from :data:`ERROR_CODES` (tests assert on it),
+* ``file`` - the model, system or tuning file involved, if any,
+* ``location`` - a path inside that file, e.g. ``("parts", "Lf", "value")``,
+* ``message`` - one readable sentence naming what was expected and what was given.
+
+``str(error)`` renders as ``file: parts.Lf.value: message`` so the command line can print
+``error: <where>: <what>`` in one line. Subclasses only group the codes by pipeline stage.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+#: The catalogue of error codes. A test checks that every code raised anywhere in the
+#: package is listed here, and that every listed code is raised by at least one test.
+ERROR_CODES: dict[str, str] = {
+    # reading files
+    "file_not_found": "the named file does not exist or cannot be read",
+    "malformed_toml": "the file is not valid TOML",
+    "invalid_field": "a field has the wrong type or shape",
+    "missing_field": "a required field is absent",
+    "unknown_field": "a field the format does not define",
+    "unknown_kind": "a part or block kind the format does not define",
+    "invalid_name": "a circuit, part, node, block or signal name that is not an identifier",
+    # quantities
+    "invalid_quantity": "a value that is not a number with an optional SI prefix and unit",
+    "wrong_unit": "a value whose unit does not fit the field",
+    "out_of_range": "a value outside its physical range (for example a negative resistance)",
+    # topology
+    "no_ground": "the ground node is not used by any part",
+    "floating_node": "a node or sub-network has no path to ground",
+    "voltage_source_loop": "voltage sources (or voltage-type parts) form a loop",
+    "current_source_cutset": "current sources (or current-type parts) form a cutset",
+    "shorted_part": "both terminals of a part are on the same node",
+    "unknown_node": "a node named in an output or control that no part uses",
+    "unknown_part": "a part named in an output, control or coupling that does not exist",
+    "unsupported_topology": "a loop or cutset through a controlled source that needs a derivative",
+    "output_needs_derivative": "an output that would need the derivative of an input",
+    "singular_equations": "the circuit equations have no unique solution at the given values",
+    # composition and simulation
+    "unknown_signal": "a signal named in wiring or inputs that no block provides",
+    "unconnected_input": "a block input that nothing drives",
+    "duplicate_signal": "two blocks drive the same signal",
+    "algebraic_loop": "a loop of direct feedthrough with no state to break it",
+    "invalid_input_signal": "an input waveform description that cannot be parsed",
+    "invalid_step": "a step size or horizon that is not a positive time",
+    "state_size_mismatch": "a state vector of the wrong length",
+    # tuning
+    "unknown_variable": "a design variable that names no part value",
+    "invalid_limit": "a limit that names an unknown output or has inconsistent bounds",
+    "infeasible_limits": "the optimiser found no point inside every limit",
+    "solver_failed": "the optimiser stopped without converging",
+    # regression and benchmarks
+    "golden_missing": "no golden file for a model",
+    "invalid_golden": "a golden file that cannot be read",
+    "invalid_benchmark_file": "a benchmark result file that cannot be read",
+}
+
+
+class WirestateError(Exception):
+    """Base class of every error wirestate raises for a user's mistake.
+
+    Parameters
+    ----------
+    code
+        A key of :data:`ERROR_CODES`.
+    message
+        One sentence: what was expected, what was given.
+    file
+        The file involved, if any.
+    location
+        Path inside the file or model, e.g. ``("parts", "Lf", "value")``.
+    """
+
+    def __init__(
+        self,
+        code: str,
+        message: str,
+        *,
+        file: str | None = None,
+        location: Sequence[str | int] = (),
+    ) -> None:
+        if code not in ERROR_CODES:
+            raise ValueError(f"internal: error code {code!r} is not in the catalogue")
+        self.code = code
+        self.message = message
+        self.file = None if file is None else str(file)
+        self.location = tuple(location)
+        super().__init__(str(self))
+
+    @property
+    def where(self) -> str:
+        """``file: a.b.c`` (either part may be absent)."""
+        parts = []
+        if self.file:
+            parts.append(self.file)
+        if self.location:
+            parts.append(".".join(str(p) for p in self.location))
+        return ": ".join(parts)
+
+    def with_file(self, file: str) -> WirestateError:
+        """Return the same error with ``file`` filled in (if it was not already)."""
+        if self.file is None:
+            self.file = str(file)
+            self.args = (str(self),)
+        return self
+
+    def __str__(self) -> str:
+        where = self.where
+        return f"{where}: {self.message}" if where else self.message
+
+    def as_dict(self) -> dict[str, object]:
+        return {
+            "code": self.code,
+            "file": self.file,
+            "location": list(self.location),
+            "message": self.message,
+        }
+
+
+class ModelFileError(WirestateError):
+    """Reading or validating a model, system or tuning file."""
+
+
+class QuantityError(WirestateError, ValueError):
+    """A value with a unit that cannot be read."""
+
+
+class TopologyError(WirestateError):
+    """The circuit graph violates a rule (ground, loops, cutsets, names)."""
+
+
+class CompileError(WirestateError):
+    """The equations cannot be reduced to an explicit state-space."""
+
+
+class CompositionError(WirestateError):
+    """Blocks cannot be wired together as asked."""
+
+
+class SimulationError(WirestateError):
+    """A simulation or stepping request that cannot be carried out."""
+
+
+class TuningError(WirestateError):
+    """A tuning specification or solve that failed."""
+
+
+class RegressionError(WirestateError):
+    """Golden files and benchmark results."""

@@ -1,0 +1,1 @@
+"""wirestate.report"""

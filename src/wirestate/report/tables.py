@@ -1,0 +1,138 @@
+"""Plain-text tables and JSON for compiled blocks."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+
+from wirestate.lti import CircuitBlock, modes
+
+
+def table(headers: Sequence[str], rows: Sequence[Sequence[Any]], *, indent: str = "  ") -> str:
+    """A left/right aligned text table (numbers right-aligned)."""
+    cells = [[str(h) for h in headers]] + [[_cell(v) for v in row] for row in rows]
+    widths = [max(len(r[i]) for r in cells) for i in range(len(headers))]
+    numeric = [
+        all(_is_number(row[i]) for row in rows) if rows else False for i in range(len(headers))
+    ]
+    lines = []
+    for k, row in enumerate(cells):
+        parts = [
+            c.rjust(w) if numeric[i] and k > 0 else c.ljust(w)
+            for i, (c, w) in enumerate(zip(row, widths, strict=True))
+        ]
+        lines.append(indent + "  ".join(parts).rstrip())
+        if k == 0:
+            lines.append(indent + "  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+def _is_number(value: Any) -> bool:
+    return isinstance(value, int | float | np.floating | np.integer) and not isinstance(value, bool)
+
+
+def _cell(value: Any) -> str:
+    if isinstance(value, float | np.floating):
+        if math.isnan(value):
+            return "-"
+        return f"{value:.6g}"
+    return str(value)
+
+
+def block_summary(block: CircuitBlock) -> str:
+    """The text ``wirestate inspect`` prints."""
+    out = [f"block {block.name}: {block.n_states} states, {len(block.inputs)} inputs, "]
+    out[0] += f"{len(block.outputs)} outputs"
+    out.append("")
+    out.append("signals")
+    rows = [("state", name, block.units.get(name, "")) for name in block.states]
+    rows += [
+        (
+            "input",
+            name,
+            block.units.get(name, ""),
+        )
+        for name in block.inputs
+    ]
+    rows += [("output", name, block.units.get(name, "")) for name in block.outputs]
+    out.append(table(("role", "name", "unit"), rows))
+    out.append("")
+    out.append("modes (poles of A)")
+    mode_rows = []
+    for m in modes(block.poles()):
+        if m["imag"] < 0:
+            continue  # one line per conjugate pair
+        mode_rows.append(
+            (
+                m["real"],
+                abs(m["imag"]),
+                m["wn"],
+                m["wn"] / (2 * math.pi),
+                m["zeta"],
+                "pair" if m["imag"] > 0 else "real",
+            )
+        )
+    if mode_rows:
+        out.append(
+            table(
+                ("real [1/s]", "imag [rad/s]", "wn [rad/s]", "fn [Hz]", "damping ratio", "type"),
+                mode_rows,
+            )
+        )
+    else:
+        out.append("  (no states)")
+    out.append("")
+    out.append("DC gain (output per input, SI units)")
+    gain = block.dc_gain()
+    if block.inputs and block.outputs:
+        rows = [[name, *gain[i]] for i, name in enumerate(block.outputs)]
+        out.append(table(("output \\ input", *block.inputs), rows))
+    else:
+        out.append("  (no inputs or no outputs)")
+    if block.notes:
+        out.append("")
+        out.append("notes")
+        out.extend(f"  {note}" for note in block.notes)
+    return "\n".join(out)
+
+
+def block_json(block: CircuitBlock) -> dict[str, Any]:
+    """JSON-ready description: names, matrices (SI), poles, modes, DC gain."""
+    poles = block.poles()
+    gain = block.dc_gain()
+    return {
+        "name": block.name,
+        "states": list(block.states),
+        "inputs": list(block.inputs),
+        "outputs": list(block.outputs),
+        "units": dict(block.units),
+        "A": _rows(block.A),
+        "B": _rows(block.B),
+        "C": _rows(block.C),
+        "D": _rows(block.D),
+        "x0": [float(v) for v in block.x0],
+        "state_offset": _rows(block.state_offset),
+        "poles": [[float(p.real), float(p.imag)] for p in poles],
+        "modes": [
+            {"wn": m["wn"], "zeta": None if math.isnan(m["zeta"]) else m["zeta"]}
+            for m in modes(poles)
+        ],
+        "dc_gain": [[_json_float(v) for v in row] for row in gain],
+        "notes": list(block.notes),
+    }
+
+
+def _rows(matrix: np.ndarray) -> list[list[float]]:
+    return [[float(v) for v in row] for row in np.asarray(matrix)]
+
+
+def _json_float(value: float) -> float | str | None:
+    value = float(value)
+    if math.isnan(value):
+        return None
+    if math.isinf(value):
+        return "inf" if value > 0 else "-inf"
+    return value

@@ -1,0 +1,293 @@
+"""Pydantic models of a circuit model file.
+
+The file has three tables: ``[circuit]`` (name, ground), ``[parts.NAME]`` (one table per
+part, tagged by ``kind``) and ``[outputs.NAME]`` (named voltages and currents). Every value
+that carries a unit is read by :func:`wirestate.units.parse_quantity` into SI base units;
+the validated model holds floats only.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import Annotated, Any, Literal
+
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    field_validator,
+    model_validator,
+)
+
+from wirestate.units import parse_quantity, parse_tolerance
+
+NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+
+
+def _quantity(unit: str):
+    def read(value: Any) -> Any:
+        if value is None:
+            return None
+        return parse_quantity(value, unit, field="")
+
+    return BeforeValidator(read)
+
+
+def _check_name(value: str, what: str) -> str:
+    if not isinstance(value, str) or not NAME_PATTERN.match(value):
+        raise ValueError(
+            f"{what} {value!r} must start with a letter or '_' and hold only letters, "
+            "digits and '_'"
+        )
+    return value
+
+
+Ohms = Annotated[float, _quantity("ohm")]
+Henries = Annotated[float, _quantity("H")]
+Farads = Annotated[float, _quantity("F")]
+Volts = Annotated[float, _quantity("V")]
+Amperes = Annotated[float, _quantity("A")]
+Watts = Annotated[float, _quantity("W")]
+Siemens = Annotated[float, _quantity("S")]
+Dimensionless = Annotated[float, _quantity("1")]
+TransOhms = Annotated[float, _quantity("ohm_gain")]
+Tolerance = Annotated[float, BeforeValidator(lambda v: parse_tolerance(v, field=""))]
+NodeName = Annotated[str, BeforeValidator(lambda v: _check_name(v, "node name"))]
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class Ratings(_Strict):
+    """Ratings shared by every two-terminal part (all optional, SI units)."""
+
+    rated_voltage: Volts | None = None
+    rated_current: Amperes | None = None
+    rated_power: Watts | None = None
+
+
+class _TwoTerminal(Ratings):
+    nodes: tuple[NodeName, NodeName] = Field(
+        description="[positive, negative]; current flows nodes[0] -> nodes[1] through the part"
+    )
+    description: str | None = None
+
+
+class _Passive(_TwoTerminal):
+    tolerance: Tolerance | None = Field(default=None, description="relative, e.g. '5%'")
+
+
+class Resistor(_Passive):
+    kind: Literal["resistor"]
+    value: Ohms = Field(gt=0, description="resistance, e.g. '4.7k' or '10 ohm'")
+
+
+class Inductor(_Passive):
+    kind: Literal["inductor"]
+    value: Henries = Field(gt=0, description="inductance, e.g. '100uH'")
+    initial: Amperes | None = Field(default=None, description="initial current")
+
+
+class Capacitor(_Passive):
+    kind: Literal["capacitor"]
+    value: Farads = Field(gt=0, description="capacitance, e.g. '470uF'")
+    initial: Volts | None = Field(default=None, description="initial voltage")
+
+
+class VoltageSource(_TwoTerminal):
+    kind: Literal["voltage_source"]
+    value: Volts | None = Field(default=None, description="default drive when a command runs")
+
+
+class CurrentSource(_TwoTerminal):
+    kind: Literal["current_source"]
+    value: Amperes | None = Field(default=None, description="default drive when a command runs")
+
+
+ControlNodes = tuple[NodeName, NodeName]
+
+
+def _control_nodes(value: Any) -> Any:
+    if isinstance(value, str):
+        return (value, None)
+    return value
+
+
+class _VoltageControlled(_TwoTerminal):
+    control: Annotated[tuple[NodeName, NodeName | None], BeforeValidator(_control_nodes)] = Field(
+        description="[node_plus, node_minus] or a single node (measured to ground)"
+    )
+
+
+class _CurrentControlled(_TwoTerminal):
+    control: str = Field(description="name of the part whose current controls this source")
+
+
+class VCVS(_VoltageControlled):
+    kind: Literal["vcvs"]
+    gain: Dimensionless
+
+
+class VCCS(_VoltageControlled):
+    kind: Literal["vccs"]
+    gain: Siemens
+
+
+class CCVS(_CurrentControlled):
+    kind: Literal["ccvs"]
+    gain: TransOhms
+
+
+class CCCS(_CurrentControlled):
+    kind: Literal["cccs"]
+    gain: Dimensionless
+
+
+class Coupling(_Strict):
+    """Mutual inductance M = k * sqrt(L1 * L2) between two inductors."""
+
+    kind: Literal["coupling"]
+    inductors: tuple[str, str]
+    coefficient: Dimensionless = Field(gt=0, lt=1)
+    description: str | None = None
+
+
+class Electromechanical(_TwoTerminal):
+    """A branch coupled to motion: back-EMF ``e = k * speed``, ``torque = k * i``.
+
+    The speed is an input of the block (named ``speed_input``, default the part name); the
+    torque (rotary) or force (linear) is an output (``torque_output``, default
+    ``torque_<part>`` or ``force_<part>``). Passive sign convention: with current into
+    ``nodes[0]`` the part absorbs electrical power ``e * i`` and delivers ``torque * speed``.
+    """
+
+    kind: Literal["electromechanical"]
+    motion: Literal["rotary", "linear"] = "rotary"
+    constant: float = Field(gt=0, description="k in V*s/rad (= N*m/A) or V*s/m (= N/A)")
+    speed_input: str | None = None
+    torque_output: str | None = None
+
+    @model_validator(mode="before")
+    @classmethod
+    def _read_constant(cls, data: Any) -> Any:
+        if isinstance(data, dict) and "constant" in data:
+            unit = "V*s/m" if data.get("motion") == "linear" else "V*s/rad"
+            data = dict(data)
+            data["constant"] = parse_quantity(data["constant"], unit, field="")
+        return data
+
+
+Part = Annotated[
+    Resistor
+    | Inductor
+    | Capacitor
+    | VoltageSource
+    | CurrentSource
+    | VCVS
+    | VCCS
+    | CCVS
+    | CCCS
+    | Coupling
+    | Electromechanical,
+    Field(discriminator="kind"),
+]
+
+PART_KINDS: tuple[str, ...] = (
+    "resistor",
+    "inductor",
+    "capacitor",
+    "voltage_source",
+    "current_source",
+    "vcvs",
+    "vccs",
+    "ccvs",
+    "cccs",
+    "coupling",
+    "electromechanical",
+)
+
+
+def _voltage_output(value: Any) -> Any:
+    if isinstance(value, str):
+        return (value, None)
+    return value
+
+
+class Output(_Strict):
+    """A named output: a voltage between two nodes, or the current through a part."""
+
+    voltage: (
+        Annotated[tuple[NodeName, NodeName | None], BeforeValidator(_voltage_output)] | None
+    ) = Field(default=None, description="[node_plus, node_minus] or a node (to ground)")
+    current: str | None = Field(default=None, description="part name, nodes[0] -> nodes[1]")
+    unit: str | None = None
+    description: str | None = None
+
+    @model_validator(mode="after")
+    def _exactly_one(self) -> Output:
+        if (self.voltage is None) == (self.current is None):
+            raise ValueError("an output takes exactly one of 'voltage' or 'current'")
+        return self
+
+
+class CircuitHeader(_Strict):
+    name: str
+    ground: NodeName = "gnd"
+    description: str | None = None
+
+    @field_validator("name")
+    @classmethod
+    def _name(cls, value: str) -> str:
+        return _check_name(value, "circuit name")
+
+
+class CircuitSpec(_Strict):
+    """A validated circuit model: every value in SI base units."""
+
+    circuit: CircuitHeader
+    parts: dict[str, Part]
+    outputs: dict[str, Output] = Field(default_factory=dict)
+
+    @field_validator("parts")
+    @classmethod
+    def _part_names(cls, parts: dict[str, Any]) -> dict[str, Any]:
+        if not parts:
+            raise ValueError("a circuit needs at least one part")
+        for name in parts:
+            _check_name(name, "part name")
+        return parts
+
+    @field_validator("outputs")
+    @classmethod
+    def _output_names(cls, outputs: dict[str, Any]) -> dict[str, Any]:
+        for name in outputs:
+            _check_name(name, "output name")
+        return outputs
+
+    @property
+    def name(self) -> str:
+        return self.circuit.name
+
+    @property
+    def ground(self) -> str:
+        return self.circuit.ground
+
+    def with_values(self, values: dict[str, float]) -> CircuitSpec:
+        """A copy with some part values replaced (SI base units), validated again."""
+        data = self.model_dump(mode="python")
+        for part, value in values.items():
+            if part not in data["parts"]:
+                from wirestate.errors import ModelFileError
+
+                raise ModelFileError(
+                    "unknown_part",
+                    f"no part named {part!r} (parts: {', '.join(sorted(data['parts']))})",
+                    location=("parts", part),
+                )
+            field = "coefficient" if data["parts"][part]["kind"] == "coupling" else "value"
+            field = "gain" if "gain" in data["parts"][part] else field
+            field = "constant" if "constant" in data["parts"][part] else field
+            data["parts"][part][field] = float(value)
+        return CircuitSpec.model_validate(data)

@@ -1,0 +1,104 @@
+"""Reading TOML files and turning pydantic validation errors into wirestate errors."""
+
+from __future__ import annotations
+
+import json
+import tomllib
+from pathlib import Path
+from typing import Any, TypeVar
+
+from pydantic import BaseModel, ValidationError
+
+from wirestate.errors import ModelFileError, WirestateError
+
+Model = TypeVar("Model", bound=BaseModel)
+
+_CODES = {
+    "missing": "missing_field",
+    "extra_forbidden": "unknown_field",
+    "union_tag_invalid": "unknown_kind",
+    "union_tag_not_found": "missing_field",
+    "greater_than": "out_of_range",
+    "greater_than_equal": "out_of_range",
+    "less_than": "out_of_range",
+    "less_than_equal": "out_of_range",
+    "literal_error": "invalid_field",
+}
+
+
+def read_toml(path: str | Path) -> dict[str, Any]:
+    """Read a TOML file; ``file_not_found`` / ``malformed_toml`` on failure."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ModelFileError("file_not_found", "no such file", file=str(path)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ModelFileError("file_not_found", f"cannot read: {exc}", file=str(path)) from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ModelFileError("malformed_toml", f"not valid TOML: {exc}", file=str(path)) from None
+
+
+def validate(model: type[Model], data: Any, *, file: str | None = None) -> Model:
+    """Validate ``data`` against ``model``; the first problem becomes a :class:`WirestateError`."""
+    try:
+        return model.model_validate(data)
+    except ValidationError as exc:
+        raise error_from_validation(exc, file=file) from None
+
+
+def error_from_validation(exc: ValidationError, *, file: str | None = None) -> WirestateError:
+    """Convert the first entry of a pydantic ``ValidationError`` to a wirestate error."""
+    details = exc.errors(include_url=False)
+    first = _most_specific(details)
+    location = tuple(_clean_location(first["loc"]))
+    original = (first.get("ctx") or {}).get("error")
+    if isinstance(original, WirestateError):
+        return type(original)(original.code, original.message, file=file, location=location)
+    code = _CODES.get(first["type"], "invalid_field")
+    message = first["msg"]
+    if first["type"] == "value_error":
+        message = message.removeprefix("Value error, ")
+        if "must start with a letter" in message:
+            code = "invalid_name"
+    elif first["type"] == "union_tag_invalid":
+        ctx = first.get("ctx", {})
+        message = f"unknown kind {ctx.get('tag')!r}; expected one of {ctx.get('expected_tags', '')}"
+    elif first["type"] == "union_tag_not_found":
+        message = "missing field 'kind'"
+        location = location + ("kind",)
+    elif first["type"] == "missing":
+        message = f"missing required field {location[-1]!r}" if location else "missing field"
+    elif first["type"] == "extra_forbidden":
+        message = f"unknown field {location[-1]!r}" if location else "unknown field"
+    return ModelFileError(code, message, file=file, location=location)
+
+
+def _most_specific(details: list[dict[str, Any]]) -> dict[str, Any]:
+    # a failed tagged union reports once per member; the deepest location is the useful one
+    return max(details, key=lambda d: len(d["loc"]))
+
+
+def _clean_location(loc: tuple[Any, ...]) -> list[str | int]:
+    # pydantic inserts the union tag (e.g. "resistor") after the part name; drop it
+    cleaned: list[str | int] = []
+    for index, item in enumerate(loc):
+        if index == 2 and loc[0] == "parts" and isinstance(item, str) and _is_tag(item):
+            continue
+        if isinstance(item, str) and item.startswith("function-"):
+            continue
+        cleaned.append(item)
+    return cleaned
+
+
+def _is_tag(item: str) -> bool:
+    from wirestate.spec.circuit import PART_KINDS
+
+    return item in PART_KINDS
+
+
+def json_schema(model: type[BaseModel]) -> str:
+    """The JSON Schema of a file format, pretty-printed."""
+    return json.dumps(model.model_json_schema(mode="validation"), indent=2, sort_keys=False)

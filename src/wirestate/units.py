@@ -1,0 +1,206 @@
+"""Quantities with SI prefixes and units, read into floats in SI base units.
+
+``"100uH"``, ``"4.7 kΩ"``, ``"2.2nF"``, ``"48V"``, ``"20ms"``, ``"1e-6"`` and plain numbers
+are accepted. The unit, when given, must belong to the field's dimension; a bare number
+(or a number with only a prefix, as in ``"100u"``) is taken in SI base units. Prefixes are
+the SI ones from femto to tera (BIPM, The International System of Units, 9th ed., 2019,
+table 7); ``u``, ``µ`` (micro sign) and ``μ`` (Greek mu) all mean 1e-6.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+
+from wirestate.errors import QuantityError
+
+PREFIXES: dict[str, float] = {
+    "f": 1e-15,
+    "p": 1e-12,
+    "n": 1e-9,
+    "u": 1e-6,
+    "µ": 1e-6,
+    "μ": 1e-6,
+    "m": 1e-3,
+    "": 1.0,
+    "k": 1e3,
+    "M": 1e6,
+    "G": 1e9,
+    "T": 1e12,
+}
+
+#: Accepted spellings per dimension. The key is the canonical unit used in messages.
+UNITS: dict[str, tuple[str, ...]] = {
+    "ohm": ("ohm", "ohms", "Ohm", "Ω", "Ω"),
+    "H": ("H",),
+    "F": ("F",),
+    "V": ("V",),
+    "A": ("A",),
+    "S": ("S", "A/V"),
+    "W": ("W",),
+    "J": ("J",),
+    "s": ("s",),
+    "Hz": ("Hz",),
+    "rad/s": ("rad/s",),
+    "1": (),
+    # electromechanical constants: rotary V*s/rad == N*m/A, linear V*s/m == N/A
+    "V*s/rad": ("V*s/rad", "V·s/rad", "Vs/rad", "N*m/A", "N·m/A", "Nm/A"),
+    "V*s/m": ("V*s/m", "V·s/m", "Vs/m", "N/A"),
+    # mechanical
+    "kg*m^2": ("kg*m^2", "kg·m^2", "kgm^2", "kg*m2", "kg·m²", "kg*m²"),
+    "kg": ("kg",),
+    "N*m*s/rad": ("N*m*s/rad", "N·m·s/rad", "Nms/rad", "N*m*s"),
+    "N*m/rad": ("N*m/rad", "N·m/rad", "Nm/rad"),
+    "N*m": ("N*m", "N·m", "Nm"),
+    "N*s/m": ("N*s/m", "N·s/m", "Ns/m"),
+    "N/m": ("N/m",),
+    "N": ("N",),
+    "V/A": ("V/A",),
+    "ohm_gain": ("ohm", "ohms", "Ohm", "Ω", "Ω", "V/A"),
+}
+
+_NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
+
+
+def parse_quantity(text: str | float | int, unit: str, *, field: str = "value") -> float:
+    """Read a quantity in the dimension ``unit`` and return it in SI base units.
+
+    Parameters
+    ----------
+    text
+        A number, or a string: number, optional SI prefix, optional unit.
+    unit
+        Canonical unit key of :data:`UNITS` (``"1"`` for dimensionless).
+    field
+        Field name used in error messages.
+
+    Returns
+    -------
+    float
+        The value in SI base units.
+
+    Raises
+    ------
+    QuantityError
+        ``invalid_quantity`` when the text is not a number with prefix and unit,
+        ``wrong_unit`` when the unit belongs to another dimension.
+    """
+    if isinstance(text, bool):
+        raise QuantityError("invalid_quantity", f"{_lead(field)}expected a number, got {text!r}")
+    if isinstance(text, int | float):
+        value = float(text)
+        if not math.isfinite(value):
+            raise QuantityError("invalid_quantity", f"{_lead(field)}expected a finite number")
+        return value
+    if not isinstance(text, str):
+        raise QuantityError(
+            "invalid_quantity",
+            f"{_lead(field)}expected a number or a string like '4.7k{_display(unit)}', "
+            f"got {type(text).__name__}",
+        )
+    match = _NUMBER.match(text)
+    if match is None:
+        raise QuantityError(
+            "invalid_quantity",
+            f"{_lead(field)}cannot read {text!r} as a number with an optional SI prefix "
+            f"and unit {_display(unit)}",
+        )
+    number = float(match.group(1))
+    rest = match.group(2).replace(" ", "")
+    scale = _unit_scale(rest, unit)
+    if scale is None:
+        raise QuantityError(
+            "wrong_unit",
+            f"{_lead(field)}{text!r} is not in {_display(unit)} "
+            f"(accepted: {', '.join(_spellings(unit)) or 'a plain number'}, with an SI prefix)",
+        )
+    value = number * scale
+    if not math.isfinite(value):
+        raise QuantityError("invalid_quantity", f"{_lead(field)}{text!r} is not finite")
+    return value
+
+
+def parse_tolerance(text: str | float | int, *, field: str = "tolerance") -> float:
+    """Read a tolerance (``"10%"``, ``"50ppm"`` or a fraction such as ``0.05``).
+
+    Returns the relative tolerance as a fraction in [0, 1).
+    """
+    if isinstance(text, bool):
+        raise QuantityError(
+            "invalid_quantity", f"{_lead(field)}expected a percentage, got {text!r}"
+        )
+    if isinstance(text, int | float):
+        value = float(text)
+    elif isinstance(text, str):
+        s = text.strip().replace(" ", "")
+        try:
+            if s.endswith("%"):
+                value = float(s[:-1]) / 100.0
+            elif s.endswith("ppm"):
+                value = float(s[:-3]) * 1e-6
+            else:
+                value = float(s)
+        except ValueError:
+            raise QuantityError(
+                "invalid_quantity",
+                f"{_lead(field)}cannot read {text!r} as a tolerance such as '5%' or '100ppm'",
+            ) from None
+    else:
+        raise QuantityError("invalid_quantity", f"{_lead(field)}expected a percentage such as '5%'")
+    if not (0.0 <= value < 1.0) or not math.isfinite(value):
+        raise QuantityError(
+            "out_of_range", f"{_lead(field)}a tolerance must lie in [0 %, 100 %), got {text!r}"
+        )
+    return value
+
+
+def format_quantity(value: float, unit: str, digits: int = 4) -> str:
+    """Render ``value`` (SI base units) with an engineering prefix, e.g. ``4.7 kΩ``."""
+    shown = _display(unit)
+    if value == 0 or not math.isfinite(value):
+        return f"{value:g} {shown}".rstrip()
+    exponent = int(math.floor(math.log10(abs(value)) / 3) * 3)
+    exponent = max(-15, min(12, exponent))
+    symbol = {
+        -15: "f",
+        -12: "p",
+        -9: "n",
+        -6: "µ",
+        -3: "m",
+        0: "",
+        3: "k",
+        6: "M",
+        9: "G",
+        12: "T",
+    }[exponent]
+    mantissa = value / 10.0**exponent
+    return f"{mantissa:.{digits}g} {symbol}{shown}".rstrip()
+
+
+def _lead(field: str) -> str:
+    return f"{field}: " if field else ""
+
+
+def _display(unit: str) -> str:
+    return {"ohm": "Ω", "ohm_gain": "Ω", "1": ""}.get(unit, unit)
+
+
+def _spellings(unit: str) -> tuple[str, ...]:
+    if unit not in UNITS:
+        raise ValueError(f"internal: unknown unit key {unit!r}")
+    return UNITS[unit]
+
+
+def _unit_scale(rest: str, unit: str) -> float | None:
+    if rest == "":
+        return 1.0
+    # longest spelling first so that "mH" is milli-henry and "Hz" is not "H" + "z"
+    for spelling in sorted(_spellings(unit), key=len, reverse=True):
+        if rest.endswith(spelling):
+            prefix = rest[: -len(spelling)]
+            if prefix in PREFIXES:
+                return PREFIXES[prefix]
+    if rest in PREFIXES:
+        # prefix only, e.g. "100u" for 100 µF on a capacitor
+        return PREFIXES[rest]
+    return None

@@ -1,0 +1,239 @@
+"""Every user mistake gives one wirestate error with a stable code naming the culprit."""
+
+from __future__ import annotations
+
+import pytest
+
+from tests.conftest import circuit
+from wirestate.errors import ERROR_CODES, WirestateError
+from wirestate.spec import parse_circuit
+
+V = {"kind": "voltage_source", "nodes": ["in", "gnd"]}
+R = {"kind": "resistor", "nodes": ["in", "gnd"], "value": 10}
+
+
+def error_of(parts, outputs=None, **header) -> WirestateError:
+    with pytest.raises(WirestateError) as info:
+        circuit(parts, outputs, **header)
+    return info.value
+
+
+@pytest.mark.parametrize(
+    ("parts", "outputs", "code", "location", "named"),
+    [
+        # no ground
+        (
+            {"R1": {"kind": "resistor", "nodes": ["a", "b"], "value": 1}},
+            {},
+            "no_ground",
+            ("circuit", "ground"),
+            "gnd",
+        ),
+        # a sub-network with no path to ground
+        (
+            {"Vs": V, "R1": R, "R9": {"kind": "resistor", "nodes": ["x", "y"], "value": 1}},
+            {},
+            "floating_node",
+            ("parts", "R9", "nodes"),
+            "x, y",
+        ),
+        # loop of voltage sources
+        (
+            {"Vs": V, "V2": {"kind": "voltage_source", "nodes": ["in", "gnd"]}},
+            {},
+            "voltage_source_loop",
+            ("parts", "V2"),
+            "Vs",
+        ),
+        # cutset of current sources
+        (
+            {
+                "Vs": V,
+                "R1": R,
+                "I1": {"kind": "current_source", "nodes": ["in", "z"]},
+                "I2": {"kind": "current_source", "nodes": ["z", "gnd"]},
+            },
+            {},
+            "current_source_cutset",
+            ("parts", "I1"),
+            "I2",
+        ),
+        # both terminals on one node
+        (
+            {"Vs": V, "R1": {"kind": "resistor", "nodes": ["in", "in"], "value": 1}},
+            {},
+            "shorted_part",
+            ("parts", "R1", "nodes"),
+            "R1",
+        ),
+        # output naming an unknown node
+        (
+            {"Vs": V, "R1": R},
+            {"v": {"voltage": "nowhere"}},
+            "unknown_node",
+            ("outputs", "v", "voltage"),
+            "nowhere",
+        ),
+        # output naming an unknown part
+        (
+            {"Vs": V, "R1": R},
+            {"i": {"current": "R7"}},
+            "unknown_part",
+            ("outputs", "i", "current"),
+            "R7",
+        ),
+        # controlled source naming an unknown node / part
+        (
+            {
+                "Vs": V,
+                "R1": R,
+                "E1": {"kind": "vcvs", "nodes": ["o", "gnd"], "control": ["q", "gnd"], "gain": 2},
+                "R2": {"kind": "resistor", "nodes": ["o", "gnd"], "value": 1},
+            },
+            {},
+            "unknown_node",
+            ("parts", "E1", "control"),
+            "q",
+        ),
+        (
+            {
+                "Vs": V,
+                "R1": R,
+                "F1": {"kind": "cccs", "nodes": ["o", "gnd"], "control": "Rx", "gain": 2},
+                "R2": {"kind": "resistor", "nodes": ["o", "gnd"], "value": 1},
+            },
+            {},
+            "unknown_part",
+            ("parts", "F1", "control"),
+            "Rx",
+        ),
+        # coupling of something that is not an inductor
+        (
+            {
+                "Vs": V,
+                "R1": R,
+                "K1": {"kind": "coupling", "inductors": ["R1", "Vs"], "coefficient": 0.5},
+            },
+            {},
+            "unknown_part",
+            ("parts", "K1", "inductors"),
+            "R1",
+        ),
+        # capacitor current across a voltage source needs dVs/dt
+        (
+            {"Vs": V, "C1": {"kind": "capacitor", "nodes": ["in", "gnd"], "value": "1u"}},
+            {"i_C1": {"current": "C1"}},
+            "output_needs_derivative",
+            ("outputs", "i_C1"),
+            "Vs",
+        ),
+        # capacitor loop through a controlled voltage source
+        (
+            {
+                "Vs": V,
+                "R1": R,
+                "E1": {"kind": "vcvs", "nodes": ["o", "gnd"], "control": ["in", "gnd"], "gain": 2},
+                "C1": {"kind": "capacitor", "nodes": ["o", "gnd"], "value": "1u"},
+            },
+            {},
+            "unsupported_topology",
+            ("parts", "C1"),
+            "E1",
+        ),
+    ],
+)
+def test_topology_errors_name_the_part(parts, outputs, code, location, named):
+    error = error_of(parts, outputs)
+    assert error.code == code
+    assert error.location == location
+    assert named in error.message
+
+
+@pytest.mark.parametrize(
+    ("part", "code", "location", "text"),
+    [
+        (
+            {"kind": "inductor", "nodes": ["in", "gnd"], "value": "100uF"},
+            "wrong_unit",
+            ("parts", "X", "value"),
+            "H",
+        ),
+        (
+            {"kind": "resistor", "nodes": ["in", "gnd"], "value": "ten ohm"},
+            "invalid_quantity",
+            ("parts", "X", "value"),
+            "ten ohm",
+        ),
+        (
+            {"kind": "resistor", "nodes": ["in", "gnd"], "value": "-3"},
+            "out_of_range",
+            ("parts", "X", "value"),
+            "greater than 0",
+        ),
+        (
+            {"kind": "transistor", "nodes": ["in", "gnd"]},
+            "unknown_kind",
+            ("parts", "X"),
+            "transistor",
+        ),
+        ({"nodes": ["in", "gnd"], "value": 1}, "missing_field", ("parts", "X", "kind"), "kind"),
+        (
+            {"kind": "resistor", "nodes": ["in", "gnd"]},
+            "missing_field",
+            ("parts", "X", "value"),
+            "value",
+        ),
+        (
+            {"kind": "resistor", "nodes": ["in", "gnd"], "value": 1, "colour": "red"},
+            "unknown_field",
+            ("parts", "X", "colour"),
+            "colour",
+        ),
+        (
+            {"kind": "resistor", "nodes": ["in", "gnd"], "value": 1, "tolerance": "150%"},
+            "out_of_range",
+            ("parts", "X", "tolerance"),
+            "100 %",
+        ),
+        (
+            {"kind": "resistor", "nodes": ["in", "g-nd"], "value": 1},
+            "invalid_name",
+            ("parts", "X", "nodes", 1),
+            "g-nd",
+        ),
+        (
+            {"kind": "coupling", "inductors": ["a", "b"], "coefficient": 1.5},
+            "out_of_range",
+            ("parts", "X", "coefficient"),
+            "less than 1",
+        ),
+    ],
+)
+def test_field_errors_name_the_field(part, code, location, text):
+    with pytest.raises(WirestateError) as info:
+        parse_circuit({"circuit": {"name": "c"}, "parts": {"Vs": V, "X": part}}, file="m.toml")
+    error = info.value
+    assert (error.code, error.location) == (code, location)
+    assert text in error.message
+    assert str(error).startswith("m.toml: parts.X")
+
+
+def test_singular_equations_are_reported():
+    # an ideal amplifier of gain 1 driving its own control node: v_o = 1 * v_o has no
+    # unique solution
+    error = error_of(
+        {
+            "Vs": V,
+            "R1": R,
+            "E1": {"kind": "vcvs", "nodes": ["o", "gnd"], "control": ["o", "gnd"], "gain": 1},
+            "R2": {"kind": "resistor", "nodes": ["o", "gnd"], "value": 1},
+        }
+    )
+    assert error.code == "singular_equations"
+
+
+def test_every_code_is_documented_and_unknown_codes_are_refused():
+    for code, text in ERROR_CODES.items():
+        assert code == code.lower() and " " not in code and text
+    with pytest.raises(ValueError):
+        WirestateError("no_such_code", "x")
