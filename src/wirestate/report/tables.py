@@ -86,7 +86,7 @@ def block_summary(block: CircuitBlock) -> str:
         out.append("  (no states)")
     out.append("")
     out.append("DC gain (output per input, SI units)")
-    gain = block.dc_gain()
+    gain = _clean(block.dc_gain())
     if block.inputs and block.outputs:
         rows = [[name, *gain[i]] for i, name in enumerate(block.outputs)]
         out.append(table(("output \\ input", *block.inputs), rows))
@@ -123,6 +123,15 @@ def block_json(block: CircuitBlock) -> dict[str, Any]:
         "dc_gain": [[_json_float(v) for v in row] for row in gain],
         "notes": list(block.notes),
     }
+
+
+def _clean(matrix: np.ndarray) -> np.ndarray:
+    """For display: entries below 1e-12 of the largest finite entry are round-off."""
+    out = np.array(matrix, dtype=float)
+    finite = np.isfinite(out)
+    scale = np.abs(out[finite]).max(initial=0.0)
+    out[finite & (np.abs(out) < 1e-12 * scale)] = 0.0
+    return out
 
 
 def _rows(matrix: np.ndarray) -> list[list[float]]:
