@@ -1,0 +1,274 @@
+"""Simulation speed against references measured in the same run.
+
+* ``stepper_step``: ``Stepper.step`` per call against a bare ``x = Ad @ x + Bd @ u`` numpy
+  loop on the same block (the bundled bus filter); target ratio <= 1.2.
+* ``batch_lti``: ``simulate_linear`` (first-order hold) against ``control.forced_response``
+  (which also uses a first-order hold) on the bus filter driven by a sine, both checked
+  against scipy's DOP853 at rtol 1e-12; target ratio <= 0.1 (>= 10x faster) with errors
+  within 1 % of each other.
+* ``nonlinear_loop``: a continuous speed loop (tachometer filter + DC motor + PI with
+  output limits and back-calculation) run by wirestate's CasADi/CVODES engine against
+  ``control.input_output_response``; both checked against scipy's DOP853 at rtol 1e-10,
+  the reference solver's tolerance picked as the loosest that reaches wirestate's error;
+  target ratio <= 0.05 (>= 20x faster).
+
+``ratio`` is ``median_s / reference_median_s`` (lower is better). Run as
+``python benchmarks/bench_simulate.py`` to print JSON.
+"""
+
+from __future__ import annotations
+
+import json
+import statistics
+import sys
+import time
+from pathlib import Path
+
+import control
+import numpy as np
+from scipy.integrate import solve_ivp
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _median_time(fn, repeats: int) -> float:
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return statistics.median(times)
+
+
+def _bus_filter():
+    from wirestate.reduce import load_block
+
+    return load_block(ROOT / "models" / "drive_bus_filter.toml")
+
+
+def bench_stepper(calls: int = 20_000, repeats: int = 9) -> dict:
+    from wirestate.simulate import Stepper, zoh
+
+    block = _bus_filter()
+    dt = 1e-6
+    Ad, Bd = zoh(block.A, block.B, dt)
+    u = np.array([48.0, 2.0])
+    stepper = Stepper(block, dt)
+
+    def bare():
+        x = np.zeros(block.n_states)
+        for _ in range(calls):
+            x = Ad @ x + Bd @ u
+
+    def ours():
+        step = stepper.step
+        for _ in range(calls):
+            step(u)
+
+    ours_t, bare_t = [], []
+    for _ in range(repeats):  # interleaved so load changes hit both alike
+        ours_t.append(_median_time(ours, 1))
+        bare_t.append(_median_time(bare, 1))
+    median, reference = statistics.median(ours_t), statistics.median(bare_t)
+    ratio = median / reference
+    return {
+        "name": "stepper_step",
+        "median_s": median / calls,
+        "reference_median_s": reference / calls,
+        "ratio": ratio,
+        "target": 1.2,
+        "meets_target": ratio <= 1.2,
+        "higher_is_better": False,
+        "details": {
+            "block": block.name,
+            "states": block.n_states,
+            "calls": calls,
+            "note": "per call; the stepper also returns the outputs y = C x + D u",
+        },
+    }
+
+
+def bench_batch(steps: int = 100_000, repeats: int = 5) -> dict:
+    from wirestate.simulate import simulate_linear
+    from wirestate.simulate.inputs import Sine
+
+    block = _bus_filter()
+    dt = 1e-6
+    until = steps * dt
+    wave = Sine(5.0, 3e3, offset=48.0)
+    sys = block.state_space()
+    t = np.arange(steps + 1) * dt
+    U = np.vstack([wave.values(t), np.zeros_like(t)])
+
+    def ours():
+        return simulate_linear(block, until, dt, {"Vbat": wave, "Iinv": 0.0}, hold="foh")
+
+    def reference():
+        return control.forced_response(sys, t, U)
+
+    mine = ours()
+    theirs = reference()
+    A, B = block.A, block.B
+    exact = solve_ivp(
+        lambda tt, x: A @ x + B[:, 0] * wave.values(np.array(tt)),
+        (0, until), np.zeros(block.n_states), t_eval=t, method="DOP853",
+        rtol=1e-12, atol=1e-12, max_step=2e-5,
+    )  # fmt: skip
+    Y_exact = block.C @ exact.y + block.D @ U
+    scale = np.max(np.abs(Y_exact))
+    err_ours = float(np.max(np.abs(mine.outputs - Y_exact)) / scale)
+    err_ref = float(np.max(np.abs(np.asarray(theirs.outputs) - Y_exact)) / scale)
+    median = _median_time(ours, repeats)
+    ref = _median_time(reference, max(2, repeats // 2))
+    ratio = median / ref
+    equal = err_ours <= 1.01 * err_ref + 1e-12
+    return {
+        "name": "batch_lti",
+        "median_s": median,
+        "reference_median_s": ref,
+        "ratio": ratio,
+        "target": 0.1,
+        "meets_target": ratio <= 0.1 and equal,
+        "higher_is_better": False,
+        "details": {
+            "steps": steps,
+            "speedup": 1 / ratio,
+            "max_rel_error_wirestate": err_ours,
+            "max_rel_error_forced_response": err_ref,
+            "reference_solution": "scipy DOP853 rtol 1e-12",
+        },
+    }
+
+
+# continuous speed loop: CTMS DC motor (J=0.01, b=0.1, K=0.01, R=1, L=0.5, from memory),
+# tachometer filter 20 ms, PI kp=60 ki=150 limited to +-8 V with back-calculation Tt = kp/ki
+J, b, K, R, L = 0.01, 0.1, 0.01, 1.0, 0.5
+TAU, KP, KI, LIM = 0.02, 60.0, 150.0, 8.0
+
+
+def _loop_system():
+    from wirestate.blocks import PIDController, rotary_inertia, sensor_filter
+    from wirestate.compose import compose
+    from wirestate.lti import CircuitBlock
+
+    armature = CircuitBlock(
+        "armature", [[-R / L]], [[1 / L, -K / L]], [[K]], [[0.0, 0.0]],
+        ["i_La"], ["Va", "M1"], ["torque_M1"],
+    )  # fmt: skip
+    return compose(
+        [armature, rotary_inertia("rotor", J, b), sensor_filter("tacho", TAU),
+         PIDController("pi", kp=KP, ki=KI, output_limits=(-LIM, LIM))],
+        {"rotor.torque": "armature.torque_M1", "armature.M1": "rotor.speed",
+         "tacho.signal": "rotor.speed", "pi.measurement": "tacho.measured",
+         "armature.Va": "pi.command"},
+        {"ref": "pi.reference", "TL": "rotor.load_torque"},
+        {"speed": "rotor.speed"},
+        name="speed_loop",
+    )  # fmt: skip
+
+
+def _loop_rhs(t, z):
+    i, w, _angle, f, integral = z
+    e = 1.0 - f
+    v = KP * e + integral
+    u = min(max(v, -LIM), LIM)
+    return [(u - R * i - K * w) / L, (K * i - b * w) / J, w, (w - f) / TAU,
+            KI * e + (u - v) / (KP / KI)]  # fmt: skip
+
+
+def _python_control_loop():
+    motor = control.ss(
+        [[-R / L, -K / L], [K / J, -b / J]], [[1 / L], [0]], [[0, 1]], [[0]],
+        name="motor", inputs=["Va"], outputs=["w"], states=["i", "w"],
+    )  # fmt: skip
+    tacho = control.ss([[-1 / TAU]], [[1 / TAU]], [[1]], [[0]], name="tacho",
+                       inputs=["w"], outputs=["f"])  # fmt: skip
+
+    def update(t, x, u, params):
+        e = u[0] - u[1]
+        v = KP * e + x[0]
+        sat = min(max(v, -LIM), LIM)
+        return [KI * e + (sat - v) / (KP / KI)]
+
+    def output(t, x, u, params):
+        v = KP * (u[0] - u[1]) + x[0]
+        return [min(max(v, -LIM), LIM)]
+
+    pi = control.nlsys(update, output, name="pi", inputs=["r", "f"], outputs=["Va"],
+                       states=["I"])  # fmt: skip
+    return control.interconnect(
+        [motor, tacho, pi],
+        connections=[["motor.Va", "pi.Va"], ["tacho.w", "motor.w"], ["pi.f", "tacho.f"]],
+        inplist=["pi.r"], outlist=["motor.w"], inputs=["r"], outputs=["w"],
+    )  # fmt: skip
+
+
+def bench_nonlinear(repeats: int = 5) -> dict:
+    from wirestate.simulate import simulate
+
+    until, dt = 2.0, 1e-3
+    t = np.arange(round(until / dt) + 1) * dt
+    exact = solve_ivp(_loop_rhs, (0, until), np.zeros(5), t_eval=t, method="DOP853",
+                      rtol=1e-10, atol=1e-12)  # fmt: skip
+    w_exact = exact.y[1]
+    scale = np.max(np.abs(w_exact))
+    system = _loop_system()
+    rtol = 1e-8
+
+    def ours():
+        return simulate(system, until, dt, {"ref": 1.0}, rtol=rtol, atol=1e-10)
+
+    t0 = time.perf_counter()
+    first = ours()  # includes building the CasADi right-hand side and integrator
+    first_run = time.perf_counter() - t0
+    err_ours = float(np.max(np.abs(first.output("speed") - w_exact)) / scale)
+    loop = _python_control_loop()
+    chosen, err_ref = None, None
+    for ref_rtol in (1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10):
+        resp = control.input_output_response(
+            loop, t, np.ones_like(t),
+            solve_ivp_kwargs={"rtol": ref_rtol, "atol": ref_rtol * 1e-2},
+        )  # fmt: skip
+        err = float(np.max(np.abs(np.asarray(resp.outputs).ravel() - w_exact)) / scale)
+        chosen, err_ref = ref_rtol, err
+        if err <= err_ours:
+            break
+
+    def reference():
+        control.input_output_response(
+            loop, t, np.ones_like(t), solve_ivp_kwargs={"rtol": chosen, "atol": chosen * 1e-2}
+        )
+
+    median = _median_time(ours, repeats)
+    ref = _median_time(reference, 3)
+    ratio = median / ref
+    return {
+        "name": "nonlinear_loop",
+        "median_s": median,
+        "reference_median_s": ref,
+        "ratio": ratio,
+        "target": 0.05,
+        "meets_target": ratio <= 0.05 and err_ref <= max(err_ours, 1e-12) * 1.5 + 1e-9,
+        "higher_is_better": False,
+        "details": {
+            "speedup": 1 / ratio,
+            "first_run_s": first_run,
+            "first_run_speedup": ref / first_run,
+            "note": "median_s: repeated runs reuse the compiled right-hand side",
+            "wirestate": f"CasADi CVODES rtol {rtol:g}",
+            "reference": f"input_output_response RK45 rtol {chosen:g}",
+            "max_rel_error_wirestate": err_ours,
+            "max_rel_error_reference": err_ref,
+            "reference_solution": "scipy DOP853 rtol 1e-10",
+        },
+    }
+
+
+def run() -> list[dict]:
+    """All simulation benchmarks (about half a minute)."""
+    return [bench_stepper(), bench_batch(), bench_nonlinear()]
+
+
+if __name__ == "__main__":
+    sys.path.insert(0, str(ROOT / "src"))
+    print(json.dumps(run(), indent=2))

@@ -1,0 +1,67 @@
+"""Time-response figure of a simulation: one panel per unit, shared time axis."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+from typing import Any
+
+from wirestate.errors import SimulationError
+
+#: our own palette: slate, amber, teal, brick, olive, plum
+PALETTE = ("#3b4a5a", "#d08c20", "#1f8a84", "#a8432f", "#6f7d2b", "#7a4a7f")
+
+_TIME_SCALES = ((1e-6, "µs"), (1e-3, "ms"), (1.0, "s"))
+
+
+def plot_simulation(result: Any, path: str | Path, *, title: str | None = None) -> Path:
+    """Draw the outputs of a :class:`~wirestate.simulate.SimulationResult` to a PNG file.
+
+    Outputs that share a unit share a panel; the time axis is scaled to µs, ms or s. The
+    file is written atomically (temporary file in the same directory, then ``os.replace``).
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    path = Path(path)
+    directory = path.parent if str(path.parent) else Path(".")
+    if not directory.is_dir():
+        raise SimulationError(
+            "file_not_found", "the directory for the plot does not exist", file=str(path)
+        )
+    groups: dict[str, list[int]] = {}
+    for i, name in enumerate(result.output_names):
+        groups.setdefault(result.units.get(name, "") or "-", []).append(i)
+    if not groups:
+        groups["-"] = []
+    span = float(result.time[-1]) if len(result.time) else 1.0
+    scale, label = next(((s, u) for s, u in _TIME_SCALES if span < 1000 * s), (1.0, "s"))
+    fig, axes = plt.subplots(
+        len(groups), 1, sharex=True, figsize=(8.0, 1.2 + 2.2 * len(groups)), squeeze=False
+    )
+    t = result.time / scale
+    for ax, (unit, rows) in zip(axes[:, 0], groups.items(), strict=True):
+        for n, i in enumerate(rows):
+            ax.plot(t, result.outputs[i], color=PALETTE[n % len(PALETTE)], linewidth=1.3,
+                    label=result.output_names[i])  # fmt: skip
+        ax.set_ylabel(f"[{unit}]" if unit != "-" else "value")
+        ax.grid(True, color="#d9d9d9", linewidth=0.6)
+        ax.spines[["top", "right"]].set_visible(False)
+        if rows:
+            ax.legend(loc="best", fontsize=8, frameon=False)
+    axes[-1, 0].set_xlabel(f"time [{label}]")
+    fig.suptitle(title or result.name, x=0.02, ha="left", fontsize=11)
+    fig.tight_layout()
+    fd, temp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".png", dir=directory)
+    os.close(fd)
+    try:
+        fig.savefig(temp, dpi=110, format="png")
+        os.replace(temp, path)
+    finally:
+        plt.close(fig)
+        if os.path.exists(temp):
+            os.unlink(temp)
+    return path

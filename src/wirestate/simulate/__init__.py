@@ -1,0 +1,64 @@
+"""Exact stepping and simulation: ZOH / FOH discretisation, batch runs, hybrid systems,
+the co-simulation :class:`Stepper`, input waveforms and results."""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping
+from pathlib import Path
+from typing import Any
+
+from wirestate.compose import ComposedSystem
+from wirestate.simulate.discretize import Discretization, foh, zoh
+from wirestate.simulate.hybrid import simulate_system
+from wirestate.simulate.inputs import InputSet, Waveform, build_inputs, parse_waveform
+from wirestate.simulate.linear import LinearModel, as_linear_model, propagate, simulate_linear
+from wirestate.simulate.results import SimulationResult
+from wirestate.simulate.stepper import Stepper
+
+__all__ = [
+    "Discretization",
+    "InputSet",
+    "LinearModel",
+    "SimulationResult",
+    "Stepper",
+    "Waveform",
+    "as_linear_model",
+    "build_inputs",
+    "foh",
+    "parse_waveform",
+    "propagate",
+    "simulate",
+    "simulate_linear",
+    "simulate_system",
+    "zoh",
+]
+
+
+def simulate(
+    model: Any,
+    until: float,
+    step: float,
+    inputs: Mapping[str, str | float | Waveform] | None = None,
+    *,
+    hold: str = "zoh",
+    use_defaults: bool = True,
+    base: Path | None = None,
+    progress: Callable[[float], None] | None = None,
+    **options: Any,
+) -> SimulationResult:
+    """Simulate a circuit block, a ``control.StateSpace`` or a composed system.
+
+    LTI models run by exact ZOH (or FOH with ``hold="foh"``), see
+    :func:`~wirestate.simulate.linear.simulate_linear`; systems with sampled or nonlinear
+    blocks by :func:`~wirestate.simulate.hybrid.simulate_system` (``options``: ``rtol``,
+    ``atol``).
+    """
+    if isinstance(model, ComposedSystem) and not model.is_linear:
+        return simulate_system(
+            model, until, step, inputs, use_defaults=use_defaults, base=base,
+            progress=progress, **options,
+        )  # fmt: skip
+    return simulate_linear(
+        model, until, step, inputs, hold=hold, use_defaults=use_defaults, base=base,
+        progress=progress, **options,
+    )  # fmt: skip

@@ -1,0 +1,107 @@
+"""Simulation results with signal names and units; CSV output and python-control form."""
+
+from __future__ import annotations
+
+import csv
+import os
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import control
+import numpy as np
+
+from wirestate.errors import SimulationError
+
+
+@dataclass
+class SimulationResult:
+    """Time series of one run, every value in SI base units.
+
+    Attributes
+    ----------
+    name
+        System or block name.
+    time
+        ``(N,)`` sample times in s, starting at ``t = 0``.
+    output_names, outputs
+        Output names and the ``(n_outputs, N)`` array of their values.
+    state_names, states
+        State names and the ``(n_states, N)`` array.
+    input_names, inputs
+        Input names and the ``(n_inputs, N)`` array of the input samples used.
+    units
+        Unit of every output, state and input name (``""`` when unknown).
+    method
+        One line naming how the run was computed (hold, integrator, tolerances).
+    """
+
+    name: str
+    time: np.ndarray
+    output_names: list[str]
+    outputs: np.ndarray
+    state_names: list[str]
+    states: np.ndarray
+    input_names: list[str] = field(default_factory=list)
+    inputs: np.ndarray | None = None
+    units: dict[str, str] = field(default_factory=dict)
+    method: str = ""
+
+    def output(self, name: str) -> np.ndarray:
+        """The samples of one output, by name."""
+        return self._row(name, self.output_names, self.outputs, "output")
+
+    def state(self, name: str) -> np.ndarray:
+        """The samples of one state, by name."""
+        return self._row(name, self.state_names, self.states, "state")
+
+    def _row(self, name: str, names: list[str], data: np.ndarray, what: str) -> np.ndarray:
+        if name not in names:
+            raise SimulationError(
+                "unknown_signal",
+                f"no {what} named {name!r} ({what}s: {', '.join(names) or 'none'})",
+                location=(what + "s", name),
+            )
+        return data[names.index(name)]
+
+    def to_response_data(self) -> control.TimeResponseData:
+        """The run as python-control's ``TimeResponseData`` (labels kept)."""
+        inputs = self.inputs if self.inputs is not None and len(self.input_names) else None
+        return control.TimeResponseData(
+            self.time,
+            self.outputs,
+            states=self.states if len(self.state_names) else None,
+            inputs=inputs,
+            output_labels=list(self.output_names),
+            state_labels=list(self.state_names) or None,
+            input_labels=list(self.input_names) if inputs is not None else None,
+            sysname=self.name,
+            issiso=False,
+        )
+
+    def write_csv(self, path: str | Path) -> Path:
+        """Write columns ``time`` then every output (SI units), one row per sample.
+
+        The file is written to a temporary file in the same directory and moved into place
+        (``os.replace``), so a reader never sees half a file.
+        """
+        path = Path(path)
+        directory = path.parent if str(path.parent) else Path(".")
+        if not directory.is_dir():
+            raise SimulationError(
+                "file_not_found", "the directory for the CSV file does not exist", file=str(path)
+            )
+        data = np.vstack([self.time[np.newaxis, :], self.outputs]).T
+        fd, temp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=directory)
+        try:
+            with os.fdopen(fd, "w", newline="", encoding="utf-8") as handle:
+                writer = csv.writer(handle)
+                writer.writerow(["time", *self.output_names])
+                for row in data:
+                    writer.writerow([repr(float(v)) for v in row])
+            os.replace(temp, path)
+        except BaseException:
+            if os.path.exists(temp):
+                os.unlink(temp)
+            raise
+        return path

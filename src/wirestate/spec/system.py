@@ -1,0 +1,276 @@
+"""Pydantic model of a system file: blocks, the wiring between them, external signals.
+
+A system file is TOML with these tables::
+
+    [system]
+    name = "bench_drive"              # system name
+    description = "..."               # optional
+
+    [blocks.armature]                 # one table per block, tagged by kind
+    kind = "circuit"                  # a circuit model file, path relative to this file
+    file = "armature.toml"
+    values = { Ra = "1.2ohm" }        # optional part value replacements
+
+    [blocks.rotor]
+    kind = "rotary_inertia"           # rotary_inertia | gear | torsional_shaft |
+    inertia = "2.5e-3 kg*m^2"         #   mass_spring_damper | pi | pid | state_feedback |
+    friction = "1e-4 N*m*s/rad"       #   sensor_filter | gain | circuit
+
+    [blocks.speed_loop]
+    kind = "pi"
+    kp = 0.08
+    ki = 4.0
+    sample_time = "100us"             # leave out for a continuous controller
+    output_limits = ["-48V", "48V"]   # in the unit given by `unit`
+    unit = "V"
+    anti_windup = "back_calculation"  # | "conditional" | "none"
+    delay = true                      # one-sample computation delay
+
+    [wiring]                          # "block.input" = "block.output"
+    "rotor.torque" = "armature.torque_M1"
+    "armature.M1" = "rotor.speed"
+
+    [inputs]                          # external input = the block input(s) it drives
+    Vbat = "armature.Vs"
+    speed_ref = ["speed_loop.reference"]
+
+    [outputs]                         # external output = a block output
+    speed = "rotor.speed"
+
+Every block input must be driven by the wiring or an external input. Without an
+``[outputs]`` table every block output is an output, named ``block.signal``.
+"""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator
+
+from wirestate.errors import WirestateError
+from wirestate.spec.load import read_toml, validate
+from wirestate.units import UNITS, parse_quantity
+
+_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+_SIGNAL = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*\.[A-Za-z_][A-Za-z0-9_]*$")
+
+
+def _q(unit: str):
+    return BeforeValidator(lambda v: None if v is None else parse_quantity(v, unit, field=""))
+
+
+def _name(value: str, what: str) -> str:
+    if not isinstance(value, str) or not _NAME.match(value):
+        raise ValueError(
+            f"{what} {value!r} must start with a letter or '_' and hold only letters, "
+            "digits and '_'"
+        )
+    return value
+
+
+def _signal(value: Any) -> str:
+    if not isinstance(value, str) or not _SIGNAL.match(value):
+        raise ValueError(f"expected a signal written 'block.signal', got {value!r}")
+    return value
+
+
+Signal = Annotated[str, BeforeValidator(_signal)]
+Seconds = Annotated[float, _q("s")]
+Gain = Annotated[float, _q("1")]
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class _Block(_Strict):
+    description: str | None = None
+
+
+class CircuitBlockSpec(_Block):
+    kind: Literal["circuit"]
+    file: str = Field(description="circuit model file, relative to the system file")
+    values: dict[str, str | float] = Field(
+        default_factory=dict, description="part value replacements, e.g. { Rd = '2.2ohm' }"
+    )
+
+
+class RotaryInertiaSpec(_Block):
+    kind: Literal["rotary_inertia"]
+    inertia: Annotated[float, _q("kg*m^2")] = Field(gt=0)
+    friction: Annotated[float, _q("N*m*s/rad")] = Field(default=0.0, ge=0)
+
+
+class GearSpec(_Block):
+    kind: Literal["gear"]
+    ratio: Gain = Field(gt=0, description="motor speed / load speed")
+
+
+class TorsionalShaftSpec(_Block):
+    kind: Literal["torsional_shaft"]
+    inertia_drive: Annotated[float, _q("kg*m^2")] = Field(gt=0)
+    inertia_load: Annotated[float, _q("kg*m^2")] = Field(gt=0)
+    stiffness: Annotated[float, _q("N*m/rad")] = Field(gt=0)
+    damping: Annotated[float, _q("N*m*s/rad")] = Field(default=0.0, ge=0)
+    friction_drive: Annotated[float, _q("N*m*s/rad")] = Field(default=0.0, ge=0)
+    friction_load: Annotated[float, _q("N*m*s/rad")] = Field(default=0.0, ge=0)
+
+
+class MassSpringDamperSpec(_Block):
+    kind: Literal["mass_spring_damper"]
+    mass: Annotated[float, _q("kg")] = Field(gt=0)
+    stiffness: Annotated[float, _q("N/m")] = Field(default=0.0, ge=0)
+    damping: Annotated[float, _q("N*s/m")] = Field(default=0.0, ge=0)
+
+
+class _ControllerSpec(_Block):
+    kp: Gain
+    sample_time: Seconds | None = Field(default=None, gt=0)
+    output_limits: tuple[str | float | None, str | float | None] | None = Field(
+        default=None, description="[low, high] in `unit`"
+    )
+    unit: str = Field(default="", description="unit of the command, e.g. 'V'")
+    anti_windup: Literal["back_calculation", "conditional", "none"] = "back_calculation"
+    tracking_time: Seconds | None = Field(default=None, gt=0)
+    delay: bool = False
+
+    def limits_si(self) -> tuple[float | None, float | None] | None:
+        """``output_limits`` read in the command unit (SI)."""
+        if self.output_limits is None:
+            return None
+        key = self.unit if self.unit in UNITS else "1"
+        return tuple(  # type: ignore[return-value]
+            None if v is None else parse_quantity(v, key, field="output_limits")
+            for v in self.output_limits
+        )
+
+
+class PISpec(_ControllerSpec):
+    kind: Literal["pi"]
+    ki: Gain
+
+
+class PIDSpec(_ControllerSpec):
+    kind: Literal["pid"]
+    ki: Gain = 0.0
+    kd: Gain
+    derivative_filter: Seconds = Field(gt=0)
+
+
+class StateFeedbackSpec(_Block):
+    kind: Literal["state_feedback"]
+    measured: list[str] = Field(min_length=1, description="input names of the measured states")
+    gain: list[float] = Field(min_length=1, description="K, one entry per measured state")
+    reference_gain: float | None = None
+
+
+class SensorFilterSpec(_Block):
+    kind: Literal["sensor_filter"]
+    time_constant: Seconds = Field(gt=0)
+    gain: Gain = 1.0
+    unit: str = ""
+
+
+class GainSpec(_Block):
+    kind: Literal["gain"]
+    gain: Gain
+    unit: str = ""
+
+
+BlockSpec = Annotated[
+    CircuitBlockSpec
+    | RotaryInertiaSpec
+    | GearSpec
+    | TorsionalShaftSpec
+    | MassSpringDamperSpec
+    | PISpec
+    | PIDSpec
+    | StateFeedbackSpec
+    | SensorFilterSpec
+    | GainSpec,
+    Field(discriminator="kind"),
+]
+
+BLOCK_KINDS: tuple[str, ...] = (
+    "circuit",
+    "rotary_inertia",
+    "gear",
+    "torsional_shaft",
+    "mass_spring_damper",
+    "pi",
+    "pid",
+    "state_feedback",
+    "sensor_filter",
+    "gain",
+)
+
+
+class SystemHeader(_Strict):
+    name: str
+    description: str | None = None
+
+    @field_validator("name")
+    @classmethod
+    def _check(cls, value: str) -> str:
+        return _name(value, "system name")
+
+
+class SystemSpec(_Strict):
+    """A validated system file (values in SI units)."""
+
+    system: SystemHeader
+    blocks: dict[str, BlockSpec]
+    wiring: dict[Signal, Signal] = Field(default_factory=dict)
+    inputs: dict[str, Signal | list[Signal]] = Field(default_factory=dict)
+    outputs: dict[str, Signal] = Field(default_factory=dict)
+
+    @field_validator("blocks")
+    @classmethod
+    def _blocks(cls, blocks: dict[str, Any]) -> dict[str, Any]:
+        if not blocks:
+            raise ValueError("a system needs at least one block")
+        for name in blocks:
+            _name(name, "block name")
+        return blocks
+
+    @field_validator("wiring")
+    @classmethod
+    def _wiring(cls, wiring: dict[str, str]) -> dict[str, str]:
+        for key in wiring:
+            _signal(key)
+        return wiring
+
+    @field_validator("inputs", "outputs")
+    @classmethod
+    def _names(cls, table: dict[str, Any]) -> dict[str, Any]:
+        for name in table:
+            _name(name, "signal name")
+        return table
+
+    @property
+    def name(self) -> str:
+        return self.system.name
+
+    def input_targets(self) -> dict[str, list[str]]:
+        """External input name -> the block inputs it drives."""
+        return {k: [v] if isinstance(v, str) else list(v) for k, v in self.inputs.items()}
+
+
+def parse_system(data: dict[str, Any], *, file: str | None = None) -> SystemSpec:
+    """Validate a system given as a mapping (the parsed TOML)."""
+    try:
+        return validate(SystemSpec, data, file=file)
+    except WirestateError as exc:
+        # pydantic puts the union tag after the block name; the user never wrote it
+        loc = exc.location
+        if len(loc) > 2 and loc[0] == "blocks" and loc[2] in BLOCK_KINDS:
+            exc.location = loc[:2] + loc[3:]
+            exc.args = (str(exc),)
+        raise
+
+
+def load_system_spec(path: str | Path) -> SystemSpec:
+    """Read and validate a system file (TOML)."""
+    return parse_system(read_toml(path), file=str(path))

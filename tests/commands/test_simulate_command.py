@@ -1,0 +1,58 @@
+"""`wirestate simulate` on circuit and system files: CSV, plot, progress, errors."""
+
+from __future__ import annotations
+
+import csv
+
+import numpy as np
+import pytest
+
+from tests.conftest import MODELS
+from wirestate.cli import main
+
+
+def test_circuit_file_to_csv_and_plot(tmp_path, capsys):
+    out = tmp_path / "bus.csv"
+    png = tmp_path / "bus.png"
+    code = main(["simulate", str(MODELS / "drive_bus_filter.toml"), "--until", "2ms",
+                 "--step", "1us", "--input", "Vbat=step:48V", "--csv", str(out),
+                 "--plot", str(png)])  # fmt: skip
+    assert code == 0
+    text = capsys.readouterr().out
+    assert "v_bus" in text and "caution" in text
+    rows = list(csv.reader(out.open()))
+    assert rows[0] == ["time", "v_bus", "i_choke", "i_damp"]
+    assert len(rows) == 1 + 2001
+    assert float(rows[1][0]) == 0.0 and float(rows[-1][0]) == pytest.approx(2e-3, rel=1e-12)
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_system_file_with_defaults_and_progress(tmp_path, capsys):
+    out = tmp_path / "drive.csv"
+    code = main(["simulate", str(MODELS / "systems" / "battery_drive.toml"), "--until",
+                 "0.3s", "--step", "2us", "--input", "speed_ref=step:100", "--csv",
+                 str(out)])  # fmt: skip
+    assert code == 0
+    captured = capsys.readouterr()
+    assert "progress" in captured.err  # 150 000 steps: long run
+    data = np.loadtxt(out, delimiter=",", skiprows=1)
+    header = out.read_text().splitlines()[0].split(",")
+    assert header == ["time", "speed", "motor_speed", "v_bus", "i_arm", "command"]
+    # Vbat is driven by its source default (48 V): the bus charges
+    assert data[-1, header.index("v_bus")] == pytest.approx(48.0, rel=1e-2)
+
+
+@pytest.mark.parametrize(
+    ("args", "fragment"),
+    [
+        (["--until", "1ms", "--step", "3us"], "whole number"),
+        (["--until", "1ms", "--step", "1us", "--input", "Vx=1V"], "Vx"),
+        (["--until", "1ms", "--step", "1us", "--input", "Vbat=square:1V"], "square"),
+        (["--until=-1ms", "--step", "1us"], "until"),
+    ],
+)
+def test_user_mistakes_exit_2_with_one_line(args, fragment, capsys):
+    code = main(["simulate", str(MODELS / "drive_bus_filter.toml"), *args])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: ") and fragment in err and "Traceback" not in err
