@@ -5,7 +5,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.wirestate-installed
 
-.PHONY: demo test lint format bench bench-compare regress regress-update clean
+.PHONY: demo test lint format bench bench-compare bench-baseline regress regress-update clean
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -26,9 +26,22 @@ format: $(STAMP)
 
 test: $(STAMP) lint
 	$(BIN)/python -m pytest
+	$(BIN)/wirestate regress
+
+regress: $(STAMP)
+	$(BIN)/wirestate regress --junit build/regress-junit.xml
+
+regress-update: $(STAMP)
+	$(BIN)/wirestate regress --update
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/run_all.py --out benchmarks/results/latest.json
+
+bench-compare: bench
+	$(BIN)/wirestate bench-compare benchmarks/baseline.json benchmarks/results/latest.json
+
+bench-baseline: $(STAMP)
+	$(BIN)/python benchmarks/run_all.py --out benchmarks/baseline.json
 
 clean:
 	rm -rf $(VENV) build src/*.egg-info .pytest_cache
