@@ -1,0 +1,193 @@
+"""Benchmark: CasADi/IPOPT (exact derivatives, multiple shooting) against SciPy SLSQP with
+finite differences on the same simulation (single shooting through the numeric engine).
+
+Problem: the bundled battery-fed drive (models/tuning/drive_bus.toml) with its motor current
+loop closed; four design variables (Rd, Cd, Cf, Lf), a torque step, and path constraints at
+every sample (bus deviation, bus minimum, settling band, damping-resistor current): several
+thousand in all. Objective: total capacitance Cd + Cf.
+
+Both solvers start from the same point, see the same limits and the same discretisation
+(exact zero-order hold on the same 10 us grid); the reference's objective and constraints
+are the numeric engine's (scipy matrix exponential), its gradients forward differences.
+Times are medians of repeated runs in this process. As in the other benchmarks here,
+``ratio = median_s / reference_median_s`` (lower is better); the target 0.1 means "CasADi at
+least 10x faster"; ``details.speedup`` is the inverse. Both optima must agree within 1 %.
+
+Run: ``python benchmarks/bench_tune.py`` (prints JSON).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import statistics
+import time
+from pathlib import Path
+
+import numpy as np
+from scipy.optimize import minimize
+
+from wirestate.spec.tuning import parse_tuning
+from wirestate.tune import limits as limit_measures
+from wirestate.tune.model import TuningModel
+from wirestate.tune.nlp import objective_terms, solve_nlp, start_values
+
+ROOT = Path(__file__).resolve().parents[1]
+TARGET = 0.1
+REPEATS = 3
+
+SPEC = {
+    "tuning": {"name": "bench_drive_bus", "circuit": "drive_bus.toml"},
+    "variables": {
+        "Rd": {"min": "50mohm", "max": "5ohm", "start": "0.5ohm"},
+        "Cd": {"min": "47uF", "max": "4.7mF", "start": "1mF"},
+        "Cf": {"min": "47uF", "max": "470uF", "start": "100uF"},
+        "Lf": {"min": "10uH", "max": "47uH", "start": "22uH"},
+    },
+    "controller": {"measure": "i_motor", "drive": "Vm", "proportional": 0.63, "integral": 157.0},
+    "scenario": {
+        "horizon": "8ms",
+        "step": "10us",
+        "steps": [{"input": "reference", "at": "1ms", "to": "40A"}],
+    },
+    "limits": [
+        {
+            "name": "bus_deviation",
+            "kind": "overshoot",
+            "output": "v_bus",
+            "after": "1ms",
+            "relative_to": "final",
+            "max": "3%",
+        },
+        {"name": "bus_minimum", "kind": "minimum", "output": "v_bus", "min": "45.5V"},
+        {
+            "name": "bus_settling",
+            "kind": "settling",
+            "output": "v_bus",
+            "band": "0.5%",
+            "by": "5ms",
+            "relative_to": "final",
+        },
+        {"name": "damping_current", "kind": "peak_current", "part": "Rd", "max": "4A"},
+    ],
+    "objective": {"capacitance": 1.0, "parts": ["Cd", "Cf"], "ise": 0.3, "output": "v_bus"},
+}
+
+
+def _model() -> TuningModel:
+    spec = parse_tuning(SPEC, base_dir=str(ROOT / "models" / "tuning"))
+    return TuningModel(spec)
+
+
+def _casadi(model: TuningModel) -> tuple[dict[str, float], dict]:
+    solution = solve_nlp(model)
+    return solution.values, {
+        "status": solution.status,
+        "iterations": solution.iterations,
+        **solution.stats,
+    }
+
+
+def _slsqp(model: TuningModel) -> tuple[dict[str, float], dict]:
+    names = model.variables
+    bounds = {
+        n: (float(model.spec.variables[n].min), float(model.spec.variables[n].max)) for n in names
+    }
+    start = start_values(model)
+    start_ev = model.numeric(start)
+    start_terms = [abs(float(v)) or 1.0 for _, v in objective_terms(model, start_ev)]
+    cache: dict[tuple, object] = {}
+
+    def values_of(q):
+        return {
+            n: bounds[n][0] * (bounds[n][1] / bounds[n][0]) ** float(np.clip(q[i], 0, 1))
+            for i, n in enumerate(names)
+        }
+
+    def evaluate(q):
+        key = tuple(np.round(q, 15))
+        if key not in cache:
+            cache[key] = model.numeric(values_of(q))
+        return cache[key]
+
+    def objective(q):
+        ev = evaluate(q)
+        return sum(
+            w * float(v) / r
+            for (w, v), r in zip(objective_terms(model, ev), start_terms, strict=True)
+        )
+
+    def constraints(q):
+        ev = evaluate(q)
+        rows = []
+        for lim in model.spec.limits:
+            size = abs(float(lim.max if lim.max is not None else (lim.min or lim.band)))
+            for vec in limit_measures.excess(lim, model, ev, start_ev):
+                rows.append(-np.atleast_1d(vec) / size)  # SLSQP wants g(q) >= 0
+        return np.concatenate(rows)
+
+    q0 = np.array(
+        [math.log(start[n] / bounds[n][0]) / math.log(bounds[n][1] / bounds[n][0]) for n in names]
+    )
+    result = minimize(
+        objective,
+        q0,
+        method="SLSQP",
+        bounds=[(0.0, 1.0)] * len(names),
+        constraints=[{"type": "ineq", "fun": constraints}],
+        options={"ftol": 1e-10, "maxiter": 300},
+    )
+    n_constraints = constraints(result.x).size
+    return values_of(result.x), {
+        "status": result.message,
+        "iterations": int(result.nit),
+        "simulations": len(cache),
+        "constraints": int(n_constraints),
+    }
+
+
+def _median_time(fn, model) -> tuple[float, dict, dict]:
+    times, out, info = [], None, None
+    for _ in range(REPEATS):
+        t0 = time.perf_counter()
+        out, info = fn(model)
+        times.append(time.perf_counter() - t0)
+    return statistics.median(times), out, info
+
+
+def run() -> list[dict]:
+    """Run the benchmark; one record per problem (see the module docstring)."""
+    model = _model()
+    casadi_s, casadi_x, casadi_info = _median_time(_casadi, model)
+    ref_s, ref_x, ref_info = _median_time(_slsqp, model)
+    worst = max(abs(casadi_x[n] / ref_x[n] - 1.0) for n in casadi_x)
+    ratio = casadi_s / ref_s
+    return [
+        {
+            "name": "tune_drive_bus_4vars",
+            "median_s": casadi_s,
+            "reference_median_s": ref_s,
+            "ratio": ratio,
+            "target": TARGET,
+            "meets_target": bool(ratio <= TARGET and worst <= 0.01),
+            "details": {
+                "design_variables": len(model.variables),
+                "samples": model.n_steps + 1,
+                "path_constraints": ref_info["constraints"],
+                "casadi": {"optimum": casadi_x, **casadi_info},
+                "reference": {
+                    "method": "scipy SLSQP, forward differences, single shooting",
+                    "optimum": ref_x,
+                    **ref_info,
+                },
+                "largest_relative_difference_of_optimum": worst,
+                "same_optimum_within_1_percent": bool(worst <= 0.01),
+                "repeats": REPEATS,
+                "speedup": 1.0 / ratio,
+            },
+        }
+    ]
+
+
+if __name__ == "__main__":
+    print(json.dumps(run(), indent=2, default=str))

@@ -1,0 +1,513 @@
+"""One tuning case: circuit + optional PI loop + scenario, evaluated numerically or symbolically.
+
+:class:`TuningModel` reads the circuit named by a tuning file, adds the outputs the limits
+and the stress report need (currents through parts, voltages across capacitors), checks
+every name, and builds the input schedule of the scenario. :meth:`TuningModel.numeric`
+returns an :class:`Evaluation` at given part values through the numeric compile
+(:func:`wirestate.reduce.compile_circuit`) and the numeric zero-order hold
+(:func:`wirestate.simulate.discretize.zoh`, scipy's Pade scaling and squaring);
+:meth:`TuningModel.symbolic` returns the same quantities as CasADi expressions through
+:func:`wirestate.reduce.symbolic_state_space` and the CasADi exponential of
+:mod:`wirestate.tune.expm`. The limit measures in :mod:`wirestate.tune.limits` run
+unchanged on both.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from wirestate.errors import TuningError, WirestateError
+from wirestate.reduce import compile_circuit, symbolic_state_space
+from wirestate.simulate.discretize import zoh as numeric_zoh
+from wirestate.spec import CircuitSpec, load_circuit
+from wirestate.spec.tuning import TuningSpec
+from wirestate.tune import expm as cexpm
+from wirestate.tune.loop import REFERENCE, Loop, close_pi, open_loop
+
+CURRENT_PREFIX = "i__"
+VOLTAGE_PREFIX = "v__"
+
+
+@dataclass
+class Evaluation:
+    """Matrices and trajectory of one tuning case at one point (numpy or CasADi).
+
+    ``Phi, Gamma`` step the (closed-loop) state over one sample, ``C, D`` give the outputs;
+    ``A, B`` are the continuous-time closed loop (a sampled PI is replaced by its continuous
+    counterpart there, for poles and impedances); ``X`` is states x samples, ``Y`` outputs x
+    samples; ``values`` the part values (floats or CasADi expressions).
+    """
+
+    Phi: Any
+    Gamma: Any
+    C: Any
+    D: Any
+    A: Any
+    B: Any
+    X: Any
+    Y: Any
+    values: dict[str, Any]
+    symbolic: bool
+    extra: dict[str, Any] = field(default_factory=dict)
+
+
+class TuningModel:
+    """A tuning file resolved against its circuit; see the module docstring."""
+
+    def __init__(self, spec: TuningSpec, *, file: str | None = None) -> None:
+        self.spec = spec
+        self.file = file
+        try:
+            circuit = load_circuit(spec.circuit_path)
+        except WirestateError as exc:
+            raise exc.with_file(str(spec.circuit_path)) from None
+        self.base_circuit = circuit
+        self.variables = list(spec.variables)
+        for name in self.variables:
+            part = circuit.parts.get(name)
+            if (
+                part is None
+                or not hasattr(part, "value")
+                or part.kind
+                not in (
+                    "resistor",
+                    "capacitor",
+                    "inductor",
+                )
+            ):
+                raise TuningError(
+                    "unknown_variable",
+                    f"design variable {name!r} names no resistor, capacitor or inductor of "
+                    f"circuit {circuit.name!r}",
+                    file=file,
+                    location=("variables", name),
+                )
+            expected = {"resistor": "ohm", "capacitor": "F", "inductor": "H"}[part.kind]
+            for field_name, unit in spec.variables[name].written_units.items():
+                if unit not in (expected, "1"):
+                    raise TuningError(
+                        "wrong_unit",
+                        f"{name} is a {part.kind}; its {field_name} must be in {expected}, "
+                        f"got a value in {unit}",
+                        file=file,
+                        location=("variables", name, field_name),
+                    )
+        self.watched = self._watched_parts(circuit)
+        self.circuit = self._with_watch_outputs(circuit)
+        self.nominal = {n: float(p.value) for n, p in circuit.parts.items() if _has_value(p)}
+        self.block = self._compile(self.nominal)
+        ctrl = spec.controller
+        self.sampled = ctrl is not None and ctrl.sample_time is not None
+        self.step = float(ctrl.sample_time) if self.sampled else float(spec.scenario.step)
+        self.n_steps = max(1, int(round(spec.scenario.horizon / self.step)))
+        self.times = np.arange(self.n_steps + 1) * self.step
+        loop = self._loop_numeric(self.block)
+        self.states = loop.states
+        self.inputs = loop.inputs
+        self.outputs = loop.outputs
+        self._check_names()
+        self.schedule = self._schedule()
+        self.reference = None
+
+    # -- set-up ---------------------------------------------------------------------------
+
+    def _watched_parts(self, circuit: CircuitSpec) -> list[str]:
+        names: list[str] = []
+        for limit in self.spec.limits:
+            if limit.part is not None:
+                if limit.part not in circuit.parts:
+                    raise TuningError(
+                        "unknown_part",
+                        f"limit {limit.label!r} names part {limit.part!r}, which circuit "
+                        f"{circuit.name!r} does not have",
+                        file=self.file,
+                        location=("limits", limit.label, "part"),
+                    )
+                if limit.kind == "energy" and circuit.parts[limit.part].kind != "resistor":
+                    raise TuningError(
+                        "invalid_limit",
+                        f"an energy limit needs a resistor; {limit.part!r} is a "
+                        f"{circuit.parts[limit.part].kind}",
+                        file=self.file,
+                        location=("limits", limit.label, "part"),
+                    )
+                names.append(limit.part)
+        for name in self.spec.objective.parts:
+            if name not in circuit.parts:
+                raise TuningError(
+                    "unknown_part",
+                    f"the objective names part {name!r}, which the circuit does not have",
+                    file=self.file,
+                    location=("objective", "parts"),
+                )
+            names.append(name)
+        names += self.variables
+        for name, part in circuit.parts.items():
+            if part.kind in ("resistor", "capacitor", "inductor") and any(
+                getattr(part, r, None) is not None
+                for r in ("rated_voltage", "rated_current", "rated_power")
+            ):
+                names.append(name)
+        return list(dict.fromkeys(names))
+
+    def _with_watch_outputs(self, circuit: CircuitSpec) -> CircuitSpec:
+        data = circuit.model_dump(mode="python")
+        for name in self.watched:
+            part = circuit.parts[name]
+            data["outputs"][CURRENT_PREFIX + name] = {"current": name, "unit": "A"}
+            if hasattr(part, "nodes"):
+                data["outputs"][VOLTAGE_PREFIX + name] = {"voltage": list(part.nodes), "unit": "V"}
+        try:
+            return CircuitSpec.model_validate(data)
+        except Exception as exc:  # the circuit validated before; this is an internal error
+            raise RuntimeError(f"internal: cannot add watch outputs: {exc}") from exc
+
+    def _compile(self, values: dict[str, float]):
+        try:
+            return compile_circuit(self.circuit.with_values(values))
+        except WirestateError as exc:
+            raise exc.with_file(str(self.spec.circuit_path)) from None
+
+    def _loop_numeric(self, block) -> Loop:
+        ctrl = self.spec.controller
+        if ctrl is None:
+            return open_loop(
+                block.A, block.B, block.C, block.D, block.states, block.inputs, block.outputs
+            )
+        try:
+            return close_pi(
+                block.A,
+                block.B,
+                block.C,
+                block.D,
+                states=block.states,
+                inputs=block.inputs,
+                outputs=block.outputs,
+                measure=ctrl.measure,
+                drive=ctrl.drive,
+                kp=ctrl.proportional,
+                ki=ctrl.integral,
+            )
+        except WirestateError as exc:
+            raise exc.with_file(self.file or "") from None
+
+    def _check_names(self) -> None:
+        horizon = self.times[-1]
+        for limit in self.spec.limits:
+            times = {"after": limit.after, "by": limit.by}
+            if limit.window is not None:
+                times["window"] = limit.window[0]
+            for field_name, t in times.items():
+                if t is not None and t > horizon - self.step * 0.5:
+                    raise TuningError(
+                        "invalid_limit",
+                        f"limit {limit.label!r}: {field_name} at {t:g} s leaves no sample "
+                        f"inside the horizon ({horizon:g} s)",
+                        file=self.file,
+                        location=("limits", limit.label, field_name),
+                    )
+            if limit.output is not None and limit.output not in self.outputs:
+                raise TuningError(
+                    "invalid_limit",
+                    f"limit {limit.label!r} names output {limit.output!r}; outputs: "
+                    f"{', '.join(o for o in self.outputs if not o.startswith(('i__', 'v__')))}",
+                    file=self.file,
+                    location=("limits", limit.label, "output"),
+                )
+            if limit.input is not None and limit.input not in self.inputs:
+                raise TuningError(
+                    "invalid_limit",
+                    f"limit {limit.label!r} injects at input {limit.input!r}; inputs: "
+                    f"{', '.join(self.inputs)}",
+                    file=self.file,
+                    location=("limits", limit.label, "input"),
+                )
+        objective = self.spec.objective
+        if objective.output is not None and objective.output not in self.outputs:
+            raise TuningError(
+                "invalid_limit",
+                f"the objective names output {objective.output!r}, which is not an output",
+                file=self.file,
+                location=("objective", "output"),
+            )
+        ripple = self.spec.stress.ripple
+        if ripple is not None and ripple.input not in self.inputs:
+            raise TuningError(
+                "unknown_signal",
+                f"the ripple drives input {ripple.input!r}; inputs: {', '.join(self.inputs)}",
+                file=self.file,
+                location=("stress", "ripple", "input"),
+            )
+
+    def _schedule(self) -> np.ndarray:
+        """Loop inputs x samples: the operating point, then the steps (held, ZOH-exact)."""
+        scenario = self.spec.scenario
+        ctrl = self.spec.controller
+        circuit_inputs = list(self.block.inputs)
+        level = {name: float(self.block.input_defaults.get(name) or 0.0) for name in circuit_inputs}
+        for name, value in scenario.inputs.items():
+            if name not in circuit_inputs or (ctrl is not None and name == ctrl.drive):
+                raise TuningError(
+                    "unknown_signal",
+                    f"scenario input {name!r} is not a free circuit input (inputs: "
+                    f"{', '.join(i for i in self.inputs if i != REFERENCE)})",
+                    file=self.file,
+                    location=("scenario", "inputs", name),
+                )
+            level[name] = float(value)
+        if ctrl is not None:
+            if ctrl.reference is not None:
+                level[REFERENCE] = float(ctrl.reference)
+            else:
+                level[REFERENCE] = self._open_loop_operating_output(level)
+        rows = np.array([[level[name]] * (self.n_steps + 1) for name in self.inputs], dtype=float)
+        for step in sorted(scenario.steps, key=lambda s: s.at):
+            if step.input not in self.inputs or step.input == REFERENCE and ctrl is None:
+                raise TuningError(
+                    "unknown_signal",
+                    f"the step drives {step.input!r}, which is not a free input (inputs: "
+                    f"{', '.join(self.inputs)})",
+                    file=self.file,
+                    location=("scenario", "steps", step.input),
+                )
+            k = int(round(step.at / self.step))
+            rows[self.inputs.index(step.input), k:] = float(step.to)
+        return rows
+
+    def _open_loop_operating_output(self, level: dict[str, float]) -> float:
+        # the reference defaults to the measured output at the circuit's own operating point
+        block = self.block
+        ctrl = self.spec.controller
+        u = np.array([level[name] for name in block.inputs])
+        try:
+            x = np.linalg.solve(block.A, -block.B @ u)
+        except np.linalg.LinAlgError:
+            raise TuningError(
+                "invalid_field",
+                "the circuit has no unique operating point; give controller.reference",
+                file=self.file,
+                location=("controller", "reference"),
+            ) from None
+        y = block.C @ x + block.D @ u
+        return float(y[block.outputs.index(ctrl.measure)])
+
+    # -- evaluations ----------------------------------------------------------------------
+
+    def step_norm(self, values: dict[str, float]) -> float:
+        """``||[[A, B], [0, 0]] h||_1`` of the matrix exponentiated at ``values``."""
+        block = self._compile({**self.nominal, **values})
+        A, B = self._continuous_for_zoh(block)
+        M = np.block([[A, B], [np.zeros((B.shape[1], A.shape[0] + B.shape[1]))]])
+        return float(np.abs(M * self.step).sum(axis=0).max())
+
+    def _continuous_for_zoh(self, block) -> tuple[np.ndarray, np.ndarray]:
+        if self.sampled:
+            return block.A, block.B
+        loop = self._loop_numeric(block)
+        return loop.A, loop.B
+
+    def squarings(self, bounds: dict[str, tuple[float, float]], start: dict[str, float]) -> int:
+        """Squarings that keep the Taylor argument <= 0.5 over the whole variable box.
+
+        ``||[[A, B], [0, 0]] h||_1`` is evaluated at every corner of the box (at most 64,
+        otherwise 64 random points) and at the start; the largest value is doubled to cover
+        points between those evaluated.
+        """
+        names = list(bounds)
+        if len(names) <= 6:
+            points = [
+                dict(zip(names, c, strict=True))
+                for c in itertools.product(*[bounds[n] for n in names])
+            ]
+        else:
+            rng = np.random.default_rng(0)
+            points = [
+                {
+                    n: math.exp(rng.uniform(math.log(lo), math.log(hi)))
+                    for n, (lo, hi) in bounds.items()
+                }
+                for _ in range(64)
+            ]
+        norms = [self.step_norm(start)]
+        for point in points:
+            try:
+                norms.append(self.step_norm(point))
+            except WirestateError:
+                continue
+        return cexpm.squarings_for_norm(2.0 * max(norms))
+
+    def numeric(self, values: dict[str, float], *, initial: np.ndarray | None = None) -> Evaluation:
+        """The case at part values ``values`` (others nominal), simulated numerically."""
+        all_values = {**self.nominal, **{k: float(v) for k, v in values.items()}}
+        block = self._compile(all_values)
+        ctrl = self.spec.controller
+        if self.sampled:
+            Ad, Bd = numeric_zoh(block.A, block.B, self.step)
+            loop_d = close_pi(
+                Ad,
+                Bd,
+                block.C,
+                block.D,
+                states=block.states,
+                inputs=block.inputs,
+                outputs=block.outputs,
+                measure=ctrl.measure,
+                drive=ctrl.drive,
+                kp=ctrl.proportional,
+                ki=ctrl.integral,
+                sample_time=self.step,
+            )
+            loop_c = self._loop_numeric(block)
+            Phi, Gamma, C, D = loop_d.A, loop_d.B, loop_d.C, loop_d.D
+        else:
+            loop_c = self._loop_numeric(block)
+            Phi, Gamma = numeric_zoh(loop_c.A, loop_c.B, self.step)
+            C, D = loop_c.C, loop_c.D
+        V = self.schedule
+        n = Phi.shape[0]
+        X = np.zeros((n, self.n_steps + 1))
+        X[:, 0] = self.initial_state(Phi, Gamma) if initial is None else initial
+        for k in range(self.n_steps):
+            X[:, k + 1] = Phi @ X[:, k] + Gamma @ V[:, k]
+        Y = C @ X + D @ V
+        return Evaluation(
+            Phi,
+            Gamma,
+            C,
+            D,
+            loop_c.A,
+            loop_c.B,
+            X,
+            Y,
+            all_values,
+            False,
+            {"Cc": loop_c.C, "Dc": loop_c.D},
+        )
+
+    def initial_state(self, Phi: Any, Gamma: Any) -> Any:
+        """Steady state of the loop at the first input sample, or zero (scenario.initial)."""
+        n = Phi.shape[0]
+        if self.spec.scenario.initial == "zero":
+            return np.zeros(n)
+        return steady_state(Phi, Gamma, self.schedule[:, 0])
+
+    def symbolic(self, values: dict[str, Any], squarings: int) -> dict[str, Any]:
+        """The loop matrices with part values as CasADi expressions (SX or MX).
+
+        Returns a mapping with ``Phi, Gamma, C, D`` (discrete loop), ``A, B, Cc, Dc``
+        (continuous loop); build an :class:`Evaluation` with :meth:`evaluation`.
+        """
+        try:
+            ss = symbolic_state_space(self.circuit, values)
+        except WirestateError as exc:
+            raise exc.with_file(str(self.spec.circuit_path)) from None
+        ctrl = self.spec.controller
+        names = dict(states=list(ss.states), inputs=list(ss.inputs), outputs=list(ss.outputs))
+        if ctrl is None:
+            loop_c = open_loop(ss.A, ss.B, ss.C, ss.D, **names)
+        else:
+            loop_c = close_pi(
+                ss.A,
+                ss.B,
+                ss.C,
+                ss.D,
+                **names,
+                measure=ctrl.measure,
+                drive=ctrl.drive,
+                kp=ctrl.proportional,
+                ki=ctrl.integral,
+            )
+        if self.sampled:
+            Ad, Bd = cexpm.zoh(ss.A, ss.B, self.step, squarings)
+            loop_d = close_pi(
+                Ad,
+                Bd,
+                ss.C,
+                ss.D,
+                **names,
+                measure=ctrl.measure,
+                drive=ctrl.drive,
+                kp=ctrl.proportional,
+                ki=ctrl.integral,
+                sample_time=self.step,
+            )
+            Phi, Gamma, C, D = loop_d.A, loop_d.B, loop_d.C, loop_d.D
+        else:
+            Phi, Gamma = cexpm.zoh(loop_c.A, loop_c.B, self.step, squarings)
+            C, D = loop_c.C, loop_c.D
+        import casadi
+
+        # steady states at the input columns the limits refer to, and the initial state,
+        # computed here once (a linear solve per column) rather than inside the NLP graph
+        columns = self.steady_columns()
+        n = Phi.shape[0]
+        V = casadi.DM(self.schedule[:, columns])
+        Xss = casadi.solve(casadi.DM.eye(n) - Phi, casadi.mtimes(Gamma, V))
+        Yss = casadi.mtimes(C, Xss) + casadi.mtimes(D, V)
+        x0 = Xss[:, 0] if self.spec.scenario.initial == "steady_state" else casadi.DM.zeros(n, 1)
+        return {
+            "Phi": Phi,
+            "Gamma": Gamma,
+            "C": C,
+            "D": D,
+            "A": loop_c.A,
+            "B": loop_c.B,
+            "Cc": loop_c.C,
+            "Dc": loop_c.D,
+            "steady": Yss,
+            "x0": x0,
+        }
+
+    def steady_columns(self) -> list[int]:
+        """Sample indices whose input values define steady states used by the limits."""
+        columns = {0, self.n_steps}
+        for limit in self.spec.limits:
+            columns.add(max(int(round(limit.after / self.step)) - 1, 0))
+        return sorted(columns)
+
+    def evaluation(self, matrices: dict[str, Any], values: dict[str, Any], X: Any) -> Evaluation:
+        """A symbolic :class:`Evaluation` from :meth:`symbolic` matrices and states ``X``."""
+        import casadi
+
+        m = matrices
+        Y = casadi.mtimes(m["C"], X) + casadi.mtimes(m["D"], casadi.DM(self.schedule))
+        return Evaluation(
+            m["Phi"],
+            m["Gamma"],
+            m["C"],
+            m["D"],
+            m["A"],
+            m["B"],
+            X,
+            Y,
+            {**self.nominal, **values},
+            True,
+            {
+                "Cc": m["Cc"],
+                "Dc": m["Dc"],
+                "steady": {k: m["steady"][:, i] for i, k in enumerate(self.steady_columns())},
+                "x0": m["x0"],
+            },
+        )
+
+
+def _has_value(part: Any) -> bool:
+    return part.kind in ("resistor", "capacitor", "inductor") and getattr(part, "value", None)
+
+
+def steady_state(Phi: Any, Gamma: Any, v: Any) -> Any:
+    """``x = Phi x + Gamma v`` solved for ``x`` (numpy or CasADi)."""
+    import casadi
+
+    n = Phi.shape[0]
+    if isinstance(Phi, casadi.SX | casadi.MX):
+        return casadi.solve(casadi.DM.eye(n) - Phi, casadi.mtimes(Gamma, casadi.DM(v)))
+    try:
+        return np.linalg.solve(np.eye(n) - Phi, Gamma @ np.asarray(v))
+    except np.linalg.LinAlgError:
+        return np.linalg.lstsq(np.eye(n) - Phi, Gamma @ np.asarray(v), rcond=None)[0]

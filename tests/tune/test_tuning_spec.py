@@ -1,0 +1,163 @@
+"""Tuning files: loading, SI conversion, and one clear error per mistake."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from wirestate.errors import ERROR_CODES, WirestateError
+from wirestate.spec.tuning import LIMIT_KINDS
+from wirestate.tune import load_tuning, parse_tuning, solve
+
+MODELS = Path(__file__).resolve().parents[2] / "models" / "tuning"
+
+
+def test_bundled_demo_loads_in_si_units():
+    spec = load_tuning(MODELS / "drive_bus_damping.toml")
+    assert spec.variables["Cd"].min == pytest.approx(47e-6, rel=1e-12)
+    assert spec.scenario.step == pytest.approx(10e-6, rel=1e-12)
+    assert spec.scenario.steps[0].at == pytest.approx(1e-3, rel=1e-12)
+    limits = {limit.label: limit for limit in spec.limits}
+    assert limits["bus_deviation"].max == pytest.approx(0.03, rel=1e-12)
+    assert limits["bus_settling"].band == pytest.approx(0.005, rel=1e-12)
+    assert spec.stress.ripple.frequency == pytest.approx(20e3, rel=1e-12)
+    assert spec.circuit_path.resolve() == (MODELS / "drive_bus.toml").resolve()
+
+
+def test_bundled_circuit_compiles_with_the_expected_states():
+    from wirestate.reduce import load_block
+
+    block = load_block(MODELS / "drive_bus.toml")
+    assert block.states == ["i_Lf", "v_Cf", "v_Cd", "i_La"]
+    assert {"v_bus", "i_motor"} <= set(block.outputs)
+
+
+BASE = """
+[tuning]
+circuit = "rc.toml"
+[variables.C1]
+min = "0.1uF"
+max = "10uF"
+[scenario]
+horizon = "2ms"
+step = "10us"
+[objective]
+capacitance = 1.0
+parts = ["C1"]
+"""
+
+
+@pytest.mark.parametrize(
+    ("change", "code", "where"),
+    [
+        (("[variables.C1]", "[variables.C9]"), "unknown_variable", "variables.C9"),
+        (("[variables.C1]", "[variables.Vs]"), "unknown_variable", "variables.Vs"),
+        (('min = "0.1uF"', 'min = "20uF"'), "invalid_field", "variables.C1"),
+        (('min = "0.1uF"', 'min = "0.1uH"'), "wrong_unit", "variables.C1.min"),
+        (('step = "10us"', 'step = "3ms"'), "invalid_field", "scenario"),
+        (("[objective]", "[objective]\nwrong = 1"), "unknown_field", "objective.wrong"),
+        (('horizon = "2ms"\n', ""), "missing_field", "scenario.horizon"),
+        (('circuit = "rc.toml"', 'circuit = "absent.toml"'), "file_not_found", ""),
+        (
+            (
+                "[objective]",
+                '[[limits]]\nkind = "maximum"\noutput = "v_nowhere"\nmax = 1\n[objective]',
+            ),
+            "invalid_limit",
+            "limits.maximum_v_nowhere.output",
+        ),
+        (
+            ("[objective]", '[[limits]]\nkind = "energy"\npart = "C1"\nmax = "1J"\n[objective]'),
+            "invalid_limit",
+            "limits.energy_C1.part",
+        ),
+        (
+            (
+                "[objective]",
+                '[[limits]]\nkind = "maximum"\noutput = "v_out"\nmax = 1\n'
+                'window = ["5ms", "6ms"]\n[objective]',
+            ),
+            "invalid_limit",
+            "limits.maximum_v_out.window",
+        ),
+        (
+            ("[objective]", '[[limits]]\nkind = "settling"\noutput = "v_out"\n[objective]'),
+            "invalid_field",
+            "limits.0",
+        ),
+    ],
+)
+def test_mistakes_give_one_clear_error(rc_case, change, code, where):
+    path = rc_case()
+    text = BASE.replace(*change)
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(WirestateError) as info:
+        solve(load_tuning(path))
+    error = info.value
+    assert error.code == code, error
+    assert where in error.where
+    assert error.message
+
+
+def test_unknown_series_is_refused_before_any_work(rc_case):
+    with pytest.raises(WirestateError) as info:
+        solve(load_tuning(rc_case()), series="E7")
+    assert info.value.code == "invalid_field"
+
+
+_VALUES = st.one_of(
+    st.none(),
+    st.booleans(),
+    st.integers(-5, 5),
+    st.floats(allow_nan=True, allow_infinity=True),
+    st.sampled_from(["1ms", "10us", "3%", "-2V", "0.5ohm", "4.7uF", "abc", "", "1e-3 s", "2 kHz"]),
+    st.lists(st.sampled_from(["1ms", "2ms", 3, "x"]), max_size=3),
+)
+_LIMIT = st.fixed_dictionaries(
+    {"kind": st.sampled_from([*LIMIT_KINDS, "nonsense"])},
+    optional={k: _VALUES for k in ("output", "max", "min", "band", "by", "window", "after")},
+)
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    variable=st.dictionaries(st.sampled_from(["min", "max", "start", "extra"]), _VALUES),
+    scenario=st.dictionaries(st.sampled_from(["horizon", "step", "initial", "steps"]), _VALUES),
+    limits=st.lists(_LIMIT, max_size=3),
+    objective=st.dictionaries(
+        st.sampled_from(["capacitance", "ise", "output", "parts", "peak_impedance"]), _VALUES
+    ),
+)
+def test_random_tuning_files_validate_or_raise_our_error(variable, scenario, limits, objective):
+    data = {
+        "tuning": {"circuit": "rc.toml"},
+        "variables": {"C1": variable},
+        "scenario": scenario,
+        "limits": limits,
+        "objective": objective,
+    }
+    try:
+        spec = parse_tuning(data)
+    except WirestateError as error:
+        assert error.code in ERROR_CODES
+    else:
+        assert spec.variables["C1"].min < spec.variables["C1"].max
+
+
+def test_the_documented_example_is_a_valid_tuning_file():
+    import tomllib
+
+    import wirestate.spec.tuning as module
+
+    doc = module.__doc__
+    block = doc.split(".. code-block:: toml", 1)[1]
+    text = "\n".join(line[4:] for line in block.splitlines())
+    spec = parse_tuning(tomllib.loads(text))
+    assert [limit.label for limit in spec.limits] == [
+        "bus_deviation",
+        "energy_Rd",
+        "output_impedance_v_bus",
+    ]
