@@ -14,7 +14,10 @@ $(STAMP): pyproject.toml
 	@touch $(STAMP)
 
 demo: $(STAMP)
-	$(BIN)/wirestate inspect models/drive_bus_filter.toml
+	@mkdir -p out
+	$(BIN)/wirestate inspect models/tuning/drive_bus.toml
+	$(BIN)/wirestate tune models/tuning/drive_bus_damping.toml --series E24 \
+	    --json out/tune-report.json --plot out/tune.png
 
 lint: $(STAMP)
 	$(BIN)/ruff check src tests benchmarks

@@ -194,7 +194,9 @@ def main(argv: list[str] | None = None) -> int:
 
     from wirestate.atomic import write_atomic
 
-    write_atomic(args.out, json.dumps(document, indent=1, allow_nan=False) + "\n")
+    write_atomic(
+        args.out, json.dumps(document, indent=1, allow_nan=False) + "\n", make_parents=True
+    )
     print(
         f"wrote {args.out}: {len(document['results'])} result(s), "
         f"{len(document['failures'])} failure(s)"

@@ -16,7 +16,9 @@ from wirestate.report.signature import Drift
 
 def test_write_atomic_replaces_the_file(tmp_path):
     target = tmp_path / "sub" / "a.json"
-    golden.write_atomic(target, "one\n")
+    with pytest.raises(FileNotFoundError):
+        golden.write_atomic(target, "zero\n")  # a missing folder is not created silently
+    golden.write_atomic(target, "one\n", make_parents=True)
     golden.write_atomic(target, "two\n")
     assert target.read_text() == "two\n"
     assert sorted(p.name for p in target.parent.iterdir()) == ["a.json"]

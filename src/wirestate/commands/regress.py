@@ -103,7 +103,7 @@ def run(args: argparse.Namespace) -> int:
         f"drifted, {counts['error']} error(s), {counts['skipped']} skipped"
     )
     if args.junit:
-        write_atomic(args.junit, junit_xml(outcomes))
+        write_atomic(args.junit, junit_xml(outcomes), make_parents=True)
     if counts["error"]:
         return 2
     return 1 if counts["drift"] else 0

@@ -11,12 +11,11 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
 import sys
-import tempfile
 from pathlib import Path
 from typing import Any
 
+from wirestate.atomic import write_atomic
 from wirestate.errors import TuningError, WirestateError
 from wirestate.tune import load_tuning, solve
 from wirestate.tune.preferred import SERIES_NAMES
@@ -179,25 +178,11 @@ def _output_error(path: str | Path, exc: OSError) -> WirestateError:
 
 
 def write_json_atomically(path: str | Path, data: dict[str, Any]) -> None:
-    """Write ``data`` as JSON through a temporary file in the same directory."""
+    """Write ``data`` as JSON atomically (see :func:`wirestate.atomic.write_atomic`)."""
     try:
-        _write_json(Path(path), data)
+        write_atomic(path, json.dumps(data, indent=2) + "\n")
     except OSError as exc:
         raise _output_error(path, exc) from None
-
-
-def _write_json(path: Path, data: dict[str, Any]) -> None:
-    directory = path.parent if str(path.parent) else Path(".")
-    fd, tmp = tempfile.mkstemp(dir=directory, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            json.dump(data, handle, indent=2, sort_keys=False)
-            handle.write("\n")
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
 
 
 def run(args: argparse.Namespace) -> int:

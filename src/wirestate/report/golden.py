@@ -355,7 +355,7 @@ def regress_file(
             if text == existing_text:
                 outcome.action = "unchanged"
             else:
-                write_atomic(target, text)
+                write_atomic(target, text, make_parents=True)
                 outcome.action = "created" if existing_text is None else "updated"
         elif outcome.drifts:
             outcome.status = "drift"

@@ -6,7 +6,6 @@ so nothing else in wirestate pays for it.
 
 from __future__ import annotations
 
-import io
 import math
 from collections.abc import Sequence
 from pathlib import Path
@@ -14,8 +13,8 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.atomic import write_atomic
 from wirestate.errors import ModelFileError, WirestateError
+from wirestate.report.figure import save_figure
 from wirestate.report.signature import as_linear_model, frequency_response, sorted_poles
 
 #: at most this many input->output pairs are drawn when none are chosen
@@ -175,9 +174,7 @@ def plot_inspect(
     else:
         ax_mag.text(0.5, 0.5, "no inputs or outputs", ha="center", transform=ax_mag.transAxes)
 
-    buffer = io.BytesIO()
-    fig.savefig(buffer, format=path.suffix.lower().lstrip("."), dpi=130)
-    write_atomic(path, buffer.getvalue())
+    save_figure(fig, path, dpi=130)
     return path
 
 

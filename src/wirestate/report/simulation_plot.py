@@ -2,12 +2,11 @@
 
 from __future__ import annotations
 
-import os
-import tempfile
 from pathlib import Path
 from typing import Any
 
 from wirestate.errors import SimulationError
+from wirestate.report.figure import save_figure
 
 #: our own palette: slate, amber, teal, brick, olive, plum
 PALETTE = ("#3b4a5a", "#d08c20", "#1f8a84", "#a8432f", "#6f7d2b", "#7a4a7f")
@@ -55,13 +54,5 @@ def plot_simulation(result: Any, path: str | Path, *, title: str | None = None) 
     axes[-1, 0].set_xlabel(f"time [{label}]")
     fig.suptitle(title or result.name, x=0.02, ha="left", fontsize=11)
     fig.tight_layout()
-    fd, temp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".png", dir=directory)
-    os.close(fd)
-    try:
-        fig.savefig(temp, dpi=110, format="png")
-        os.replace(temp, path)
-    finally:
-        plt.close(fig)
-        if os.path.exists(temp):
-            os.unlink(temp)
+    save_figure(fig, path, dpi=110)
     return path

@@ -8,10 +8,10 @@ chosen preferred values thick; each bound is a dashed line, and a band allowed o
 
 from __future__ import annotations
 
-import os
-import tempfile
 from pathlib import Path
 from typing import Any
+
+from wirestate.report.figure import save_figure
 
 _BEFORE = "#8c8c8c"
 _AFTER = "#1b6e8a"
@@ -104,14 +104,5 @@ def plot_tuning(result: Any, path: str | Path) -> Path:
     fig.suptitle(f"{result.name}: {names}", fontsize=10)
     fig.tight_layout()
     path = Path(path)
-    directory = path.parent if str(path.parent) else Path(".")
-    fd, tmp = tempfile.mkstemp(dir=directory, prefix=f".{path.name}.", suffix=".png")
-    os.close(fd)
-    try:
-        fig.savefig(tmp, dpi=110, format="png")
-        os.replace(tmp, path)
-    finally:
-        plt.close(fig)
-        if os.path.exists(tmp):
-            os.unlink(tmp)
+    save_figure(fig, path, dpi=110)
     return path

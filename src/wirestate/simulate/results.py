@@ -3,14 +3,14 @@
 from __future__ import annotations
 
 import csv
-import os
-import tempfile
+import io
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import control
 import numpy as np
 
+from wirestate.atomic import write_atomic
 from wirestate.errors import SimulationError
 
 
@@ -86,22 +86,17 @@ class SimulationResult:
         (``os.replace``), so a reader never sees half a file.
         """
         path = Path(path)
-        directory = path.parent if str(path.parent) else Path(".")
-        if not directory.is_dir():
-            raise SimulationError(
-                "file_not_found", "the directory for the CSV file does not exist", file=str(path)
-            )
         data = np.vstack([self.time[np.newaxis, :], self.outputs]).T
-        fd, temp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=directory)
+        text = io.StringIO(newline="")
+        writer = csv.writer(text, lineterminator="\n")
+        writer.writerow(["time", *self.output_names])
+        writer.writerows([repr(float(v)) for v in row] for row in data)
         try:
-            with os.fdopen(fd, "w", newline="", encoding="utf-8") as handle:
-                writer = csv.writer(handle)
-                writer.writerow(["time", *self.output_names])
-                for row in data:
-                    writer.writerow([repr(float(v)) for v in row])
-            os.replace(temp, path)
-        except BaseException:
-            if os.path.exists(temp):
-                os.unlink(temp)
-            raise
+            write_atomic(path, text.getvalue())
+        except OSError as exc:
+            raise SimulationError(
+                "file_not_found",
+                f"cannot write the CSV file: {exc.strerror or exc}",
+                file=str(path),
+            ) from None
         return path
