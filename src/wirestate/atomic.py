@@ -22,9 +22,13 @@ def write_atomic(path: str | Path, data: str | bytes, *, make_parents: bool = Fa
     mode = "wb" if isinstance(data, bytes) else "w"
     fd, temp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
-        with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8"})) as handle:
+        try:
             # mkstemp makes 0600; give the mode a plain open() would, or keep the old file's
-            os.fchmod(handle.fileno(), _mode_for(path))
+            os.fchmod(fd, _mode_for(path))
+        except BaseException:
+            os.close(fd)
+            raise
+        with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8"})) as handle:
             handle.write(data)
             handle.flush()
             os.fsync(handle.fileno())
