@@ -40,6 +40,8 @@ from typing import Any
 import numpy as np
 from scipy.optimize import linear_sum_assignment
 
+from wirestate.simulate.linear import LinearModel, as_linear_model
+
 #: Default tolerances written into new golden files (users may edit them there).
 #:
 #: Why these values: every quantity is computed in double precision by LAPACK (eigvals,
@@ -94,47 +96,6 @@ DC_ATOL_FRACTION = 1e-9
 POLE_ATOL_FRACTION = 1e-9
 #: phase is not compared where |H| is below this fraction of the trace's peak magnitude
 PHASE_FLOOR = 1e-9
-
-
-@dataclass
-class LinearModel:
-    """The part of a block a signature needs: ``dx/dt = A x + B u``, ``y = C x + D u``."""
-
-    name: str
-    A: np.ndarray
-    B: np.ndarray
-    C: np.ndarray
-    D: np.ndarray
-    states: list[str]
-    inputs: list[str]
-    outputs: list[str]
-
-
-def as_linear_model(block: Any) -> LinearModel:
-    """Accept a :class:`wirestate.lti.CircuitBlock`, a continuous ``control.StateSpace`` or
-    an LTI :class:`wirestate.compose.ComposedSystem` (through its ``state_space()``)."""
-    if not hasattr(block, "A") and callable(getattr(block, "state_space", None)):
-        block = block.state_space()
-    if hasattr(block, "state_labels"):
-        # python-control system: names live in *_labels
-        states = list(block.state_labels)
-        inputs = list(block.input_labels)
-        outputs = list(block.output_labels)
-        name = str(getattr(block, "name", "system"))
-    else:
-        states, inputs, outputs = list(block.states), list(block.inputs), list(block.outputs)
-        name = str(block.name)
-    n, m, p = len(states), len(inputs), len(outputs)
-    return LinearModel(
-        name=name,
-        A=np.asarray(block.A, dtype=float).reshape(n, n),
-        B=np.asarray(block.B, dtype=float).reshape(n, m),
-        C=np.asarray(block.C, dtype=float).reshape(p, n),
-        D=np.asarray(block.D, dtype=float).reshape(p, m),
-        states=states,
-        inputs=inputs,
-        outputs=outputs,
-    )
 
 
 def encode_number(value: float) -> float | str:

@@ -116,6 +116,9 @@ def as_linear_model(system: Any) -> LinearModel:
             list(system.output_labels),
             np.zeros(system.nstates),
         )
+    if callable(getattr(system, "state_space", None)):
+        # any other object that can give its linear form (duck-typed, as python-control does)
+        return as_linear_model(system.state_space())
     raise SimulationError(
         "unknown_kind",
         f"cannot simulate a {type(system).__name__}; expected a CircuitBlock, a composed "
