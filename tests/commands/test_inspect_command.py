@@ -69,3 +69,18 @@ def test_schema_is_json_schema(capsys):
     assert main(["schema"]) == 0
     schema = json.loads(capsys.readouterr().out)
     assert "parts" in schema["properties"] and "$defs" in schema
+
+
+@pytest.mark.parametrize("suffix", [".png", ".svg"])
+def test_inspect_plot_writes_a_figure(tmp_path, capsys, suffix):
+    target = tmp_path / f"poles{suffix}"
+    assert main(["inspect", MODEL, "--plot", str(target), "--pair", "Vbat:v_bus"]) == 0
+    data = target.read_bytes()
+    assert len(data) > 1000
+    assert data.startswith(b"\x89PNG") if suffix == ".png" else b"<svg" in data
+
+
+def test_inspect_plot_refuses_an_unknown_format(tmp_path, capsys):
+    assert main(["inspect", MODEL, "--plot", str(tmp_path / "poles.bmp")]) == 2
+    assert "PNG or SVG" in capsys.readouterr().err
+    assert not (tmp_path / "poles.bmp").exists()

@@ -28,6 +28,10 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    if args.plot:
+        from wirestate.report.figure import figure_format
+
+        figure_format(args.plot)  # a bad file name fails before any output
     block = load_block(args.model)
     if args.json:
         json.dump(block_json(block), sys.stdout, indent=2)

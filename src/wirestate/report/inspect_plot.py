@@ -14,12 +14,11 @@ from typing import Any
 import numpy as np
 
 from wirestate.errors import ModelFileError, WirestateError
-from wirestate.report.figure import save_figure
+from wirestate.report.figure import figure_format, save_figure
 from wirestate.report.signature import as_linear_model, frequency_response, sorted_poles
 
 #: at most this many input->output pairs are drawn when none are chosen
 MAX_DEFAULT_PAIRS = 6
-SUFFIXES = (".png", ".svg")
 
 # colours of our own: a dark slate for poles, then a muted cycle for the Bode traces
 _POLE_COLOUR = "#2f4858"
@@ -122,12 +121,7 @@ def plot_inspect(
         (of the SI ratio output/input) and phase in degrees against frequency in Hz.
     """
     path = Path(path)
-    if path.suffix.lower() not in SUFFIXES:
-        raise WirestateError(
-            "invalid_field",
-            f"plot file must end in .png or .svg, got {path.name!r}",
-            file=str(path),
-        )
+    figure_format(path)  # refuse an unknown suffix before any drawing
     # an Agg canvas on a bare Figure: no pyplot, no global back-end switch, no display
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
