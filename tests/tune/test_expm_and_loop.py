@@ -137,3 +137,15 @@ def test_damping_ratio_limit_binds_at_the_series_rlc_closed_form(write):
     # E24 neighbours 13 and 15 ohm: only 15 ohm keeps zeta >= 0.7 (zeta = 0.75)
     assert result.variables["R1"]["preferred"] == pytest.approx(15.0, rel=1e-12)
     assert limit["value"] == pytest.approx(0.75, rel=1e-9)
+
+
+@pytest.mark.parametrize("order", [1, 2, 5, 12, 13])
+def test_paterson_stockmeyer_evaluates_the_taylor_polynomial(order):
+    # reference: the truncated series sum_k Y**k / k! with numpy matrix powers (definition of
+    # the Taylor polynomial); 1e-14 relative: a different order of the same roundings
+    rng = np.random.default_rng(3)
+    M = rng.standard_normal((5, 5))
+    M *= 0.5 / np.abs(M).sum(axis=0).max()
+    got = np.array(casadi.evalf(cexpm.expm(casadi.DM(M), 0, order)))
+    ref = sum(np.linalg.matrix_power(M, k) / math.factorial(k) for k in range(order + 1))
+    assert np.abs(got - ref).max() <= 1e-14 * np.abs(ref).max()

@@ -51,6 +51,15 @@ def squarings_for_norm(norm_bound: float, theta: float = THETA) -> int:
 def expm(X: Any, squarings: int, order: int = ORDER) -> Any:
     """``exp(X)`` of a square CasADi matrix (SX or MX) by Taylor scaling and squaring.
 
+    The Taylor polynomial is evaluated by the Paterson-Stockmeyer scheme (M. S. Paterson
+    and L. J. Stockmeyer, "On the number of nonscalar multiplications necessary to evaluate
+    polynomials", SIAM J. Comput. 2(1), 1973; Higham, Functions of Matrices, SIAM 2008,
+    sec. 4.2): with the powers ``Y**2 .. Y**c``, ``c = ceil(sqrt(K))``, the polynomial is a
+    polynomial in ``Y**c`` with matrix coefficients, which takes about ``2 sqrt(K)`` matrix
+    products instead of Horner's ``K - 1`` (5 instead of 11 for ``K = 12``). It is the same
+    polynomial, so the truncation bound of the module docstring holds unchanged; the
+    smaller expression graph makes the derivatives cheaper to generate and to evaluate.
+
     Parameters
     ----------
     X
@@ -58,17 +67,31 @@ def expm(X: Any, squarings: int, order: int = ORDER) -> Any:
     squarings
         Number of squarings ``s``; the caller guarantees ``||X||_1 / 2**s <= 0.5``.
     order
-        Degree ``K`` of the Taylor polynomial (Horner form).
+        Degree ``K`` of the Taylor polynomial.
     """
     import casadi
 
     n = X.shape[0]
     identity = casadi.DM.eye(n)
     Y = X / (2.0**squarings)
-    # Horner: T = I + Y (I + Y/2 (I + Y/3 (... (I + Y/K))))
-    T = identity + Y / order
-    for k in range(order - 1, 0, -1):
-        T = identity + casadi.mtimes(Y, T) / k
+    coefficients = [1.0 / math.factorial(k) for k in range(order + 1)]
+    chunk = max(1, math.ceil(math.sqrt(order)))
+    powers = [identity, Y]
+    for _ in range(2, chunk + 1):
+        powers.append(casadi.mtimes(powers[-1], Y))
+    top = powers[chunk]
+
+    def block(j: int) -> Any:
+        # sum_{i < chunk} c[j chunk + i] Y**i: the j-th coefficient of the polynomial in Y**c
+        terms = [
+            coefficients[j * chunk + i] * powers[i] for i in range(chunk) if j * chunk + i <= order
+        ]
+        return sum(terms[1:], terms[0])
+
+    last = order // chunk
+    T = block(last)
+    for j in range(last - 1, -1, -1):
+        T = block(j) + casadi.mtimes(top, T)
     for _ in range(squarings):
         T = casadi.mtimes(T, T)
     return T

@@ -99,7 +99,28 @@ def excess(
     """Vectors that are ``<= 0`` where ``limit`` holds (see the module docstring).
 
     ``start`` is a numeric evaluation fixing the direction of steps (defaults to ``ev``,
-    which must then be numeric). Pole limits are handled by :func:`pole_excess`.
+    which must then be numeric). Pole limits are handled by :func:`pole_excess`. Built
+    from :func:`ranges`: each ``lower <= e <= upper`` gives ``e - upper`` and ``lower - e``.
+    """
+    out = []
+    for expr, lower, upper in ranges(limit, model, ev, start):
+        if upper is not None:
+            out.append(expr - upper)
+        if lower is not None:
+            out.append(lower - expr)
+    return out
+
+
+def ranges(
+    limit: Limit, model: TuningModel, ev: Evaluation, start: Evaluation | None = None
+) -> list[tuple[Any, float | None, float | None]]:
+    """``(e, lower, upper)`` triples, ``lower <= e <= upper`` entrywise where ``limit``
+    holds (``None``: no bound on that side).
+
+    A two-sided band (``|y - y_f| / scale <= band``, ``|i| <= i_max``) is one triple, so
+    an optimiser that takes two-sided constraints sees one row per sample instead of two
+    (the feasible set is the same). Pole limits return their Routh-Hurwitz entries, which
+    need ``start`` only for scaling (see :func:`pole_excess`).
     """
     ref = ev if start is None else start
     times = model.times
@@ -108,7 +129,7 @@ def excess(
         lo, hi = limit.window if limit.window is not None else (0.0, times[-1])
         ks = [k for k, t in enumerate(times) if lo - 1e-12 <= t <= hi + 1e-12]
         y = _row(ev, model.outputs.index(limit.output), ks)
-        return [y - limit.max] if kind == "maximum" else [limit.min - y]
+        return [(y, None, limit.max)] if kind == "maximum" else [(y, limit.min, None)]
     if kind in ("overshoot", "settling"):
         index = model.outputs.index(limit.output)
         k_after = int(round(limit.after / model.step))
@@ -132,18 +153,18 @@ def excess(
             s = 1.0
             scale = _sign(yf_ref) * y_f
         if kind == "overshoot" and by_change:
-            return [s * (y - y_f) / scale - bound]
-        return [(y - y_f) / scale - bound, (y_f - y) / scale - bound]
+            return [(s * (y - y_f) / scale, None, bound)]
+        return [((y - y_f) / scale, -bound, bound)]
     if kind == "peak_current":
         y = _row(ev, model.outputs.index(CURRENT_PREFIX + limit.part), slice(None))
-        return [y - limit.max, -y - limit.max]
+        return [(y, -limit.max, limit.max)]
     if kind == "energy":
-        return [resistor_energy(model, ev, limit.part) - limit.max]
+        return [(resistor_energy(model, ev, limit.part), None, limit.max)]
     if kind == "output_impedance":
         z = impedance_magnitude(ev, model, limit, frequency_grid(limit))
-        return [z - limit.max]
+        return [(z, None, limit.max)]
     if kind in ("damping_ratio", "pole_real_part"):
-        return [pole_excess(limit, ev, start)]
+        return [(pole_excess(limit, ev, start), None, 0.0)]
     raise ValueError(f"internal: unhandled limit kind {kind!r}")  # pragma: no cover
 
 

@@ -311,30 +311,30 @@ class TuningModel:
         loop = self._loop_numeric(block)
         return loop.A, loop.B
 
-    def squarings(self, bounds: dict[str, tuple[float, float]], start: dict[str, float]) -> int:
-        """Squarings that keep the Taylor argument <= 0.5 over the whole variable box.
-
-        ``||[[A, B], [0, 0]] h||_1`` is evaluated at every corner of the box (at most 64,
-        otherwise 64 random points) and at the start; the largest value is doubled to cover
-        points between those evaluated.
-        """
+    def norm_points(self, bounds: dict[str, tuple[float, float]]) -> list[dict[str, float]]:
+        """Points of the variable box at which :meth:`squarings` bounds the step norm: every
+        corner (up to 6 variables), otherwise 64 random points (log-uniform, fixed seed)."""
         names = list(bounds)
         if len(names) <= 6:
-            points = [
+            return [
                 dict(zip(names, c, strict=True))
                 for c in itertools.product(*[bounds[n] for n in names])
             ]
-        else:
-            rng = np.random.default_rng(0)
-            points = [
-                {
-                    n: math.exp(rng.uniform(math.log(lo), math.log(hi)))
-                    for n, (lo, hi) in bounds.items()
-                }
-                for _ in range(64)
-            ]
+        rng = np.random.default_rng(0)
+        return [
+            {n: math.exp(rng.uniform(math.log(lo), math.log(hi))) for n, (lo, hi) in bounds.items()}
+            for _ in range(64)
+        ]
+
+    def squarings(self, bounds: dict[str, tuple[float, float]], start: dict[str, float]) -> int:
+        """Squarings that keep the Taylor argument <= 0.5 over the whole variable box.
+
+        ``||[[A, B], [0, 0]] h||_1`` is evaluated at the start and at :meth:`norm_points`
+        (points where the circuit does not compile are skipped); the largest value is
+        doubled to cover points between those evaluated.
+        """
         norms = [self.step_norm(start)]
-        for point in points:
+        for point in self.norm_points(bounds):
             try:
                 norms.append(self.step_norm(point))
             except WirestateError:
@@ -396,11 +396,13 @@ class TuningModel:
             return np.zeros(n)
         return steady_state(Phi, Gamma, self.schedule[:, 0])
 
-    def symbolic(self, values: dict[str, Any], squarings: int) -> dict[str, Any]:
-        """The loop matrices with part values as CasADi expressions (SX or MX).
+    def symbolic_loop(self, values: dict[str, Any]) -> dict[str, Any]:
+        """The continuous part of :meth:`symbolic`: the circuit's state space with part
+        values as CasADi expressions and the continuous loop around it.
 
-        Returns a mapping with ``Phi, Gamma, C, D`` (discrete loop), ``A, B, Cc, Dc``
-        (continuous loop); build an :class:`Evaluation` with :meth:`evaluation`.
+        Returns a mapping with ``ss`` (the circuit), ``loop`` (continuous loop) and
+        ``zoh`` (the pair ``(A, B)`` whose zero-order hold :meth:`symbolic` forms, the
+        matrices :meth:`step_norm` measures).
         """
         try:
             ss = symbolic_state_space(self.circuit, values)
@@ -422,6 +424,22 @@ class TuningModel:
                 kp=ctrl.proportional,
                 ki=ctrl.integral,
             )
+        zoh_pair = (ss.A, ss.B) if self.sampled else (loop_c.A, loop_c.B)
+        return {"ss": ss, "loop": loop_c, "names": names, "zoh": zoh_pair}
+
+    def symbolic(
+        self, values: dict[str, Any], squarings: int, loop: dict[str, Any] | None = None
+    ) -> dict[str, Any]:
+        """The loop matrices with part values as CasADi expressions (SX or MX).
+
+        Returns a mapping with ``Phi, Gamma, C, D`` (discrete loop), ``A, B, Cc, Dc``
+        (continuous loop); build an :class:`Evaluation` with :meth:`evaluation`. ``loop``
+        is :meth:`symbolic_loop` of the same ``values`` when the caller has it already.
+        """
+        if loop is None:
+            loop = self.symbolic_loop(values)
+        ss, loop_c, names = loop["ss"], loop["loop"], loop["names"]
+        ctrl = self.spec.controller
         if self.sampled:
             Ad, Bd = cexpm.zoh(ss.A, ss.B, self.step, squarings)
             loop_d = close_pi(

@@ -1,27 +1,33 @@
-"""The nonlinear program: multiple shooting over exact zero-order-hold steps, solved by IPOPT.
+"""The nonlinear program over exact zero-order-hold steps, solved by IPOPT.
 
-Decision variables (all scaled to order one):
+Two transcriptions of the same problem:
 
-* design variables on a logarithmic scale, ``value = lo * (hi / lo) ** q`` with
-  ``q in [0, 1]``, so a resistor bounded by 0.1 and 100 ohm moves as freely near 0.1 as
-  near 100;
-* the state at every sample, divided by its largest magnitude along the starting
-  trajectory (multiple shooting: Bock and Plitt, "A multiple shooting algorithm for direct
-  solution of optimal control problems", IFAC 1984);
-* a running-energy state per energy limit (so that no constraint row sums over the whole
-  horizon, which would make the constraint Jacobian dense);
-* one epigraph variable when the peak output impedance is minimised.
+* **condensed** (used when the loop is stable at the starting point): the only unknowns
+  are the design variables; the trajectory ``x[k+1] = Phi(p) x[k] + Gamma(p) v[k]`` is an
+  expression of them (the states eliminated, as in condensing the QPs of multiple
+  shooting: Bock and Plitt 1984, below). Since the loop is linear in the state for fixed
+  part values, ``Phi, Gamma`` are formed once per evaluation and the steps run through
+  CasADi's ``mapaccum`` over a small function advancing a block of samples, so the graph
+  stays small and its derivatives are generated once. An unstable loop would make the
+  eliminated trajectory grow without bound, hence the fallback:
+* **multiple shooting** (Bock and Plitt, "A multiple shooting algorithm for direct
+  solution of optimal control problems", IFAC 1984): the state at every sample is an
+  unknown, divided by its largest magnitude along the starting trajectory, and the
+  dynamics are equality constraints (defects); an energy limit gets a running-energy state
+  so that no constraint row sums over the whole horizon.
 
-The parameter-dependent matrices (the ZOH of the closed loop, its continuous matrices, the
-steady states the limits refer to) are SX expressions of the scaled design variables,
-wrapped in one CasADi function; the NLP itself is an MX graph that calls it once, so their
-derivatives are generated once and not once per sample.
+Both use: design variables on a logarithmic scale, ``value = lo * (hi / lo) ** q`` with
+``q in [0, 1]``, so a resistor bounded by 0.1 and 100 ohm moves as freely near 0.1 as near
+100; one epigraph variable when the peak output impedance is minimised; every limit as
+path constraints (one per sample or per frequency), each divided by the size of its bound,
+a two-sided band (``|y - y_f| <= b``) as one row with two bounds.
 
-Constraints: ``x[k+1] = Phi(p) x[k] + Gamma(p) v[k]`` (``Phi, Gamma`` the exact ZOH of the
-closed loop through :mod:`wirestate.tune.expm`), ``x[0]`` = steady state (or zero), and
-every limit as path constraints (one per sample or per frequency), each divided by the
-size of its bound. IPOPT (Wachter and Biegler, Math. Programming 106, 2006) through CasADi's
-``nlpsol`` gets exact first and second derivatives by algorithmic differentiation.
+The parameter-dependent matrices (the ZOH of the closed loop through
+:mod:`wirestate.tune.expm`, its continuous matrices, the steady states the limits refer
+to, ``x[0]`` = steady state or zero) are SX expressions of the scaled design variables,
+wrapped in one CasADi function; the NLP itself is an MX graph that calls it once. IPOPT
+(Wachter and Biegler, Math. Programming 106, 2006) through CasADi's ``nlpsol`` gets exact
+first and (by default) second derivatives by algorithmic differentiation.
 """
 
 from __future__ import annotations
@@ -33,6 +39,7 @@ from typing import Any
 
 import numpy as np
 
+from wirestate.tune import expm as cexpm
 from wirestate.tune import limits as limit_measures
 from wirestate.tune.model import CURRENT_PREFIX, TuningModel
 
@@ -152,33 +159,132 @@ class _IterationReport:
         return Callback()
 
 
+TRANSCRIPTIONS = ("auto", "condensed", "multiple_shooting")
+HESSIANS = ("exact", "limited_memory")
+
+#: samples advanced per call of the condensed stepping function (see ``_condensed_states``)
+_BLOCK = 50
+
+
+def is_stable_discrete(Phi: np.ndarray) -> bool:
+    """True when every eigenvalue of the one-sample transition matrix lies inside the unit
+    circle (with a margin of 1e-9 for round-off)."""
+    return bool(np.max(np.abs(np.linalg.eigvals(Phi))) < 1.0 - 1e-9)
+
+
+def _squarings(model: TuningModel, q_sx: Any, zoh_pair: tuple[Any, Any], q_points) -> int:
+    """:meth:`TuningModel.squarings` through the symbolic matrices: the same norm
+    ``||[[A, B], [0, 0]] h||_1`` at the same points, evaluated in one vectorised call."""
+    import casadi
+
+    A, B = zoh_pair
+    norm = model.step * casadi.fmax(
+        casadi.mmax(casadi.sum1(casadi.fabs(A))), casadi.mmax(casadi.sum1(casadi.fabs(B)))
+    )
+    fn = casadi.Function("step_norm", [q_sx], [norm])
+    points = np.column_stack(q_points)
+    norms = np.array(fn.map(points.shape[1])(points)).ravel()
+    norms = norms[np.isfinite(norms)]
+    # a corner where the circuit cannot be compiled gives no finite norm; it is skipped
+    # exactly as the numeric path skips the compile error
+    return cexpm.squarings_for_norm(2.0 * float(np.max(norms)))
+
+
+def _condensed_states(Phi: Any, Gamma: Any, x0: Any, V: np.ndarray) -> Any:
+    """State trajectory ``X = [x0, x1, ..., xN]`` as an expression of the loop matrices
+    (the states eliminated, as in condensing: Bock and Plitt 1984).
+
+    ``x[k+1] = Phi x[k] + w[k]`` with ``w = Gamma v`` formed in one product; the steps run
+    through CasADi's ``mapaccum`` over a small SX function that advances ``_BLOCK``
+    samples, so the graph holds ``N / _BLOCK`` calls of one function whose derivatives
+    are generated once (the horizon is padded with zero inputs to a whole number of
+    blocks; the padding is cut off again).
+    """
+    import casadi
+
+    n, steps = Phi.shape[0], V.shape[1] - 1
+    blocks = -(-steps // _BLOCK)
+    padded = np.zeros((V.shape[0], blocks * _BLOCK))
+    padded[:, :steps] = V[:, :-1]
+    x = casadi.SX.sym("x", n)
+    w = casadi.SX.sym("w", n, _BLOCK)
+    P = casadi.SX.sym("Phi", n, n)
+    columns = []
+    state = x
+    for j in range(_BLOCK):
+        state = casadi.mtimes(P, state) + w[:, j]
+        columns.append(state)
+    block = casadi.Function("steps", [x, w, P], [state, casadi.horzcat(*columns)])
+    run = block.mapaccum("trajectory", blocks, [0], [0])
+    W = casadi.mtimes(Gamma, casadi.DM(padded))
+    _, states = run(x0, W, casadi.repmat(Phi, 1, blocks))
+    return casadi.horzcat(x0, states[:, :steps])
+
+
 def solve_nlp(
     model: TuningModel,
     *,
     progress: Progress = None,
     max_iterations: int = 300,
     tolerance: float = 1e-8,
+    transcription: str = "auto",
+    hessian: str = "exact",
 ) -> NlpSolution:
-    """Build and solve the NLP of ``model``; see the module docstring."""
+    """Build and solve the NLP of ``model``; see the module docstring.
+
+    Parameters
+    ----------
+    transcription
+        ``"multiple_shooting"`` (states as unknowns, dynamics as equality constraints),
+        ``"condensed"`` (states eliminated: the trajectory is an expression of the design
+        variables) or ``"auto"``: condensed when the loop is stable at the starting point
+        (the eliminated trajectory then stays bounded), multiple shooting otherwise.
+    hessian
+        ``"exact"`` (second derivatives by algorithmic differentiation) or
+        ``"limited_memory"`` (IPOPT's L-BFGS update from the exact gradients; cheaper per
+        iteration, usually a few more iterations).
+    """
     import time
 
     import casadi
 
+    if transcription not in TRANSCRIPTIONS:
+        raise ValueError(f"internal: unknown transcription {transcription!r}")
+    if hessian not in HESSIANS:
+        raise ValueError(f"internal: unknown Hessian option {hessian!r}")
     t0 = time.perf_counter()
     spec = model.spec
     names = model.variables
     bounds = {n: (float(spec.variables[n].min), float(spec.variables[n].max)) for n in names}
     start = start_values(model)
     start_ev = model.numeric(start)
-    squarings = model.squarings(bounds, start)
+    if transcription == "auto":
+        stable = is_stable_discrete(np.asarray(start_ev.Phi))
+        transcription = "condensed" if stable else "multiple_shooting"
 
+    def scaled(point: dict[str, float]) -> np.ndarray:
+        return np.array(
+            [
+                math.log(point[n] / bounds[n][0]) / math.log(bounds[n][1] / bounds[n][0])
+                for n in names
+            ]
+        )
+
+    q_start = scaled(start)
     # the parameter-dependent matrices are built once as SX expressions of the scaled
     # variables and wrapped in one function; the NLP is an MX graph that calls it once
     q_sx = casadi.SX.sym("q", len(names))
     values_sx = {
         n: bounds[n][0] * (bounds[n][1] / bounds[n][0]) ** q_sx[i] for i, n in enumerate(names)
     }
-    matrices_sx = model.symbolic(values_sx, squarings)
+    loop_sx = model.symbolic_loop(values_sx)
+    squarings = _squarings(
+        model,
+        q_sx,
+        loop_sx["zoh"],
+        [q_start] + [scaled(point) for point in model.norm_points(bounds)],
+    )
+    matrices_sx = model.symbolic(values_sx, squarings, loop_sx)
     keys = list(matrices_sx)
     matrices_fn = casadi.Function(
         "loop_matrices",
@@ -191,10 +297,6 @@ def solve_nlp(
     values = {n: outputs[-1][i] for i, n in enumerate(names)}
     n_x = start_ev.X.shape[0]
     samples = model.n_steps + 1
-    scale = np.max(np.abs(start_ev.X), axis=1)
-    scale = np.where(scale > 1e-9 * max(scale.max(), 1e-300), scale, max(scale.max(), 1.0))
-    Xs = casadi.MX.sym("X", n_x, samples)
-    X = casadi.mtimes(casadi.diag(casadi.DM(scale)), Xs)
 
     g: list[Any] = []
     lbg: list[float] = []
@@ -206,24 +308,36 @@ def solve_nlp(
         lbg.extend([lower] * expr.numel())
         ubg.extend([upper] * expr.numel())
 
-    ev = model.evaluation(matrices, values, X)
+    decision = [q]
+    x_start = [q_start]
+    lbx = [np.zeros(len(names))]
+    ubx = [np.ones(len(names))]
+    if transcription == "condensed":
+        X = _condensed_states(matrices["Phi"], matrices["Gamma"], matrices["x0"], model.schedule)
+        ev = model.evaluation(matrices, values, X)
+    else:
+        scale = np.max(np.abs(start_ev.X), axis=1)
+        scale = np.where(scale > 1e-9 * max(scale.max(), 1e-300), scale, max(scale.max(), 1.0))
+        Xs = casadi.MX.sym("X", n_x, samples)
+        X = casadi.mtimes(casadi.diag(casadi.DM(scale)), Xs)
+        ev = model.evaluation(matrices, values, X)
+        V = casadi.DM(model.schedule)
+        inv_scale = casadi.DM(1.0 / scale)
+        # dynamics (defects), scaled by the state magnitudes
+        defects = X[:, 1:] - casadi.mtimes(ev.Phi, X[:, :-1]) - casadi.mtimes(ev.Gamma, V[:, :-1])
+        add(casadi.mtimes(casadi.diag(inv_scale), defects), 0.0, 0.0)
+        add(inv_scale * (X[:, 0] - ev.extra["x0"]), 0.0, 0.0)
+        decision.append(casadi.vec(Xs))
+        x_start.append((start_ev.X / scale[:, None]).ravel(order="F"))
+        lbx.append(-np.inf * np.ones(n_x * samples))
+        ubx.append(np.inf * np.ones(n_x * samples))
 
-    V = casadi.DM(model.schedule)
-    inv_scale = casadi.DM(1.0 / scale)
-    # dynamics (defects), scaled by the state magnitudes
-    defects = X[:, 1:] - casadi.mtimes(ev.Phi, X[:, :-1]) - casadi.mtimes(ev.Gamma, V[:, :-1])
-    add(casadi.mtimes(casadi.diag(inv_scale), defects), 0.0, 0.0)
-    x0 = ev.extra["x0"]
-    add(inv_scale * (X[:, 0] - x0), 0.0, 0.0)
-
-    extra_decisions: list[Any] = []
-    extra_start: list[np.ndarray] = []
     for lim in spec.limits:
         if lim.kind in ("damping_ratio", "pole_real_part"):
             # Routh-Hurwitz entries of a normalised polynomial: order one, strictly negative
             add(limit_measures.excess(lim, model, ev, start_ev)[0], -casadi.inf, -1e-9)
             continue
-        if lim.kind == "energy":
+        if lim.kind == "energy" and transcription == "multiple_shooting":
             # a running-energy state keeps every constraint row local in time (a dense row
             # summing over all samples would make the constraint Jacobian expensive to form)
             energy_scale = abs(float(lim.max)) or 1.0
@@ -240,31 +354,25 @@ def solve_nlp(
             running = np.concatenate(
                 [[0.0], np.cumsum(0.5 * model.step * R0 * (i0[:-1] ** 2 + i0[1:] ** 2))]
             )
-            extra_decisions.append(Es)
-            extra_start.append(running / energy_scale)
+            decision.append(Es)
+            x_start.append(running / energy_scale)
+            lbx.append(-np.inf * np.ones(samples))
+            ubx.append(np.inf * np.ones(samples))
             continue
         bound = _bound_size(lim)
-        for vec in limit_measures.excess(lim, model, ev, start_ev):
-            add(vec / bound, -casadi.inf, 0.0)
+        # a two-sided band is one row with two bounds (IPOPT takes ranges directly), half
+        # the rows of the two one-sided vectors the numeric verification uses
+        for expr, lower, upper in limit_measures.ranges(lim, model, ev, start_ev):
+            add(
+                expr / bound,
+                -casadi.inf if lower is None else lower / bound,
+                casadi.inf if upper is None else upper / bound,
+            )
 
     start_terms = [abs(float(v)) or 1.0 for _, v in objective_terms(model, start_ev)]
     f = 0
     for (weight, value), ref in zip(objective_terms(model, ev), start_terms, strict=True):
         f = f + weight * value / ref
-    decision = [q, casadi.vec(Xs), *extra_decisions]
-    x_start = [
-        np.array(
-            [
-                math.log(start[n] / bounds[n][0]) / math.log(bounds[n][1] / bounds[n][0])
-                for n in names
-            ]
-        ),
-        (start_ev.X / scale[:, None]).ravel(order="F"),
-        *extra_start,
-    ]
-    n_free = n_x * samples + sum(x.size for x in extra_start)
-    lbx = [np.zeros(len(names)), -np.inf * np.ones(n_free)]
-    ubx = [np.ones(len(names)), np.inf * np.ones(n_free)]
     if spec.objective.peak_impedance:
         start_peak = peak_impedance(model, start_ev) or 1.0
         tau = casadi.MX.sym("tau")
@@ -293,13 +401,19 @@ def solve_nlp(
         "ipopt.constr_viol_tol": 1e-6,
         "ipopt.acceptable_iter": 3,
         "ipopt.mu_strategy": "adaptive",
+        # approximate minimum degree ordering for MUMPS: on these KKT systems (a few dense
+        # columns of design variables against thousands of path constraints) it factors
+        # about four times faster than the automatic choice; pivoting is unchanged
+        "ipopt.mumps_pivot_order": 0,
+        "ipopt.hessian_approximation": "exact" if hessian == "exact" else "limited-memory",
     }
     if progress is not None:
         callback = _IterationReport({"x": xvec.numel(), "g": gvec.numel()}, progress)
         options["iteration_callback"] = callback
         progress(
-            f"NLP: {len(names)} design variables, {xvec.numel()} unknowns, "
-            f"{gvec.numel()} constraints, ZOH with {squarings} squarings"
+            f"NLP ({transcription.replace('_', ' ')}): {len(names)} design variables, "
+            f"{xvec.numel()} unknowns, {gvec.numel()} constraints, ZOH with {squarings} "
+            "squarings"
         )
     t_built = time.perf_counter()
     solver = casadi.nlpsol("tune", "ipopt", {"x": xvec, "f": f, "g": gvec}, options)
@@ -321,6 +435,9 @@ def solve_nlp(
     gval = np.array(result["g"]).ravel()
     violation = float(np.max(np.concatenate([[0.0], np.array(lbg) - gval, gval - np.array(ubg)])))
     status = str(stats.get("return_status", "unknown"))
+    evaluations = sum(
+        float(v) for k, v in stats.items() if k.startswith("t_wall_nlp_") and v is not None
+    )
     from wirestate.tune.expm import truncation_bound
 
     return NlpSolution(
@@ -334,11 +451,14 @@ def solve_nlp(
         truncation_bound=truncation_bound(squarings),
         constraint_violation=violation,
         stats={
+            "transcription": transcription,
+            "hessian": hessian,
             "unknowns": int(xvec.numel()),
             "constraints": int(gvec.numel()),
             "seconds_building_expressions": t_built - t0,
             "seconds_generating_derivatives": t_constructed - t_built,
             "seconds_in_ipopt": t_solved - t_constructed,
+            "seconds_in_ipopt_function_evaluations": evaluations,
         },
     )
 

@@ -1,0 +1,92 @@
+"""Condensed and multiple-shooting transcriptions of the same NLP reach the same optimum.
+
+The condensed form eliminates the states (the trajectory is an expression of the design
+variables, as in condensing: Bock and Plitt, IFAC 1984); multiple shooting keeps them as
+unknowns with the dynamics as equality constraints. ``transcription="auto"`` condenses
+only when the loop is stable at the starting point.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from wirestate.spec.tuning import parse_tuning
+from wirestate.tune import load_tuning
+from wirestate.tune.model import TuningModel
+from wirestate.tune.nlp import is_stable_discrete, solve_nlp
+
+MODELS = Path(__file__).resolve().parents[2] / "models" / "tuning"
+
+
+@pytest.mark.parametrize("transcription", ["condensed", "multiple_shooting"])
+def test_both_transcriptions_reproduce_the_rc_closed_form(rc_case, transcription):
+    model = TuningModel(load_tuning(rc_case()))
+    solution = solve_nlp(model, transcription=transcription)
+    # first-order step response v(t) = 1 - exp(-t / RC) (Ogata, Modern Control Engineering,
+    # 5th ed., sec. 5-2): v(1 ms) <= 0.5 V with R = 1 kohm needs C >= 1e-3 / (1e3 ln 2);
+    # 1e-6 relative: IPOPT meets the constraint to 1e-8 of the bound
+    assert solution.values["C1"] == pytest.approx(1e-3 / (1e3 * math.log(2)), rel=1e-6)
+    assert solution.stats["transcription"] == transcription
+
+
+def test_auto_condenses_a_loop_that_is_stable_at_the_start(rc_case):
+    model = TuningModel(load_tuning(rc_case()))
+    assert solve_nlp(model).stats["transcription"] == "condensed"
+
+
+def _drive_bus(rd_start: str, cd_start: str) -> TuningModel:
+    spec = {
+        "tuning": {"name": "drive_bus_start", "circuit": "drive_bus.toml"},
+        "variables": {
+            "Rd": {"min": "50mohm", "max": "5ohm", "start": rd_start},
+            "Cd": {"min": "47uF", "max": "4.7mF", "start": cd_start},
+        },
+        "controller": {
+            "measure": "i_motor",
+            "drive": "Vm",
+            "proportional": 0.63,
+            "integral": 157.0,
+        },
+        "scenario": {
+            "horizon": "4ms",
+            "step": "10us",
+            "steps": [{"input": "reference", "at": "1ms", "to": "40A"}],
+        },
+        "limits": [
+            {"name": "loop_poles", "kind": "pole_real_part", "max": "-150"},
+            {
+                "name": "bus_deviation",
+                "kind": "overshoot",
+                "output": "v_bus",
+                "after": "1ms",
+                "relative_to": "final",
+                "max": "3%",
+            },
+        ],
+        "objective": {"capacitance": 1.0, "parts": ["Cd"]},
+    }
+    return TuningModel(parse_tuning(spec, base_dir=str(MODELS)))
+
+
+def test_an_unstable_start_falls_back_to_multiple_shooting_and_agrees():
+    # with Rd = 5 ohm the damping leg barely damps: the constant-power drive makes the
+    # filter unstable (spectral radius of the one-step matrix above one, numpy eigvals)
+    unstable = _drive_bus("5ohm", "100uF")
+    start_ev = unstable.numeric({"Rd": 5.0, "Cd": 100e-6})
+    assert np.max(np.abs(np.linalg.eigvals(start_ev.Phi))) > 1.0
+    assert not is_stable_discrete(start_ev.Phi)
+    shooting = solve_nlp(unstable)
+    assert shooting.stats["transcription"] == "multiple_shooting"
+    condensed = solve_nlp(_drive_bus("0.5ohm", "1mF"))
+    assert condensed.stats["transcription"] == "condensed"
+    # the same NLP from two starts and in two transcriptions: 1e-6 relative, IPOPT's
+    # tolerance 1e-8 on a problem whose scaled variables are of order one
+    for name in ("Rd", "Cd"):
+        assert condensed.values[name] == pytest.approx(shooting.values[name], rel=1e-6)
+    # the pole limit holds at the optimum: eigenvalues by numpy, 1e-6 relative of 150 1/s
+    poles = np.linalg.eigvals(unstable.numeric(condensed.values).A)
+    assert float(np.max(poles.real)) <= -150.0 * (1 - 1e-6)
