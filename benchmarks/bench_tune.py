@@ -195,6 +195,7 @@ def run() -> list[dict]:
             "median_s": casadi_s,
             "reference_median_s": ref_s,
             "ratio": ratio,
+            "higher_is_better": False,
             "target": TARGET,
             "meets_target": bool(ratio <= TARGET and worst <= 0.01),
             "details": {
