@@ -22,7 +22,7 @@ from wirestate.spec.generate import ladder
 SIZES = (10, 100, 1000, 2000)
 
 
-def _median_time(fn, repeats: int, min_seconds: float = 2e-3) -> float:
+def _median_time(fn, repeats: int, min_seconds: float = 20e-3) -> float:
     """Median time of one call; calls are grouped so each timing lasts >= ``min_seconds``
     (a 20x20 product takes microseconds, below what one timer reading resolves well)."""
     start = time.perf_counter()
@@ -43,7 +43,7 @@ def run() -> list[dict]:
     medians = {}
     for sections in SIZES:
         spec = ladder(sections, resistance=0.05, inductance=1e-6, capacitance=1e-9)
-        repeats = 9 if sections <= 100 else 3
+        repeats = 15 if sections <= 100 else 3
         block = compile_circuit(spec)
         median = _median_time(lambda spec=spec: compile_circuit(spec), repeats)
         a = block.A
