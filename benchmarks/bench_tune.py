@@ -13,7 +13,7 @@ Times are medians of repeated runs in this process. As in the other benchmarks h
 ``ratio = median_s / reference_median_s`` (lower is better); the target 0.1 means "CasADi at
 least 10x faster"; ``details.speedup`` is the inverse. Both optima must agree within 1 %.
 
-The CasADi side uses the NLP's automatic transcription: the loop is stable at the start, so
+The CasADi side uses the NLP's automatic formulation: the loop is stable at the start, so
 the states are eliminated (condensed: the trajectory is an expression of the four design
 variables, stepped by ``mapaccum``); ``details.casadi.time_split_s`` splits its median run
 into building the expressions (including the numeric start simulation and the squarings
@@ -170,7 +170,7 @@ def _median_time(fn, model) -> tuple[float, dict, dict]:
 def _time_split(info: dict) -> dict:
     evaluations = info.get("seconds_in_ipopt_function_evaluations", 0.0)
     return {
-        "transcription": info.get("transcription"),
+        "formulation": info.get("formulation"),
         "build": info.get("seconds_building_expressions"),
         "derivatives": info.get("seconds_generating_derivatives"),
         "ipopt": info.get("seconds_in_ipopt"),
@@ -205,8 +205,8 @@ def run() -> list[dict]:
                 "casadi": {
                     "method": (
                         f"IPOPT via CasADi, exact gradient, Jacobian and Hessian, "
-                        f"{casadi_info.get('transcription', '?').replace('_', ' ')} "
-                        "transcription, MUMPS with AMD ordering"
+                        f"{casadi_info.get('formulation', '?').replace('_', ' ')} "
+                        "formulation, MUMPS with AMD ordering"
                     ),
                     "optimum": casadi_x,
                     "time_split_s": _time_split(casadi_info),

@@ -24,7 +24,7 @@ REFERENCE_FILE = REFERENCE / "iec60063.json"
 )
 @pytest.mark.parametrize("series", preferred.SERIES_NAMES)
 def test_tables_match_the_standard_reference(series):
-    # source: IEC 60063:2015 tables as transcribed in ../shared/reference/iec60063.json;
+    # source: IEC 60063:2015 tables as copied in ../shared/reference/iec60063.json;
     # exact integer equality (the tables are lists of integers)
     reference = json.loads(REFERENCE_FILE.read_text(encoding="utf-8"))
     assert list(preferred.series_mantissas(series)) == reference[series]

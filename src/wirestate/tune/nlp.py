@@ -1,6 +1,6 @@
 """The nonlinear program over exact zero-order-hold steps, solved by IPOPT.
 
-Two transcriptions of the same problem:
+Two formulations of the same problem:
 
 * **condensed** (used when the loop is stable at the starting point): the only unknowns
   are the design variables; the trajectory ``x[k+1] = Phi(p) x[k] + Gamma(p) v[k]`` is an
@@ -159,7 +159,7 @@ class _IterationReport:
         return Callback()
 
 
-TRANSCRIPTIONS = ("auto", "condensed", "multiple_shooting")
+FORMULATIONS = ("auto", "condensed", "multiple_shooting")
 HESSIANS = ("exact", "limited_memory")
 
 #: samples advanced per call of the condensed stepping function (see ``_condensed_states``)
@@ -227,14 +227,14 @@ def solve_nlp(
     progress: Progress = None,
     max_iterations: int = 300,
     tolerance: float = 1e-8,
-    transcription: str = "auto",
+    formulation: str = "auto",
     hessian: str = "exact",
 ) -> NlpSolution:
     """Build and solve the NLP of ``model``; see the module docstring.
 
     Parameters
     ----------
-    transcription
+    formulation
         ``"multiple_shooting"`` (states as unknowns, dynamics as equality constraints),
         ``"condensed"`` (states eliminated: the trajectory is an expression of the design
         variables) or ``"auto"``: condensed when the loop is stable at the starting point
@@ -248,8 +248,8 @@ def solve_nlp(
 
     import casadi
 
-    if transcription not in TRANSCRIPTIONS:
-        raise ValueError(f"internal: unknown transcription {transcription!r}")
+    if formulation not in FORMULATIONS:
+        raise ValueError(f"internal: unknown formulation {formulation!r}")
     if hessian not in HESSIANS:
         raise ValueError(f"internal: unknown Hessian option {hessian!r}")
     t0 = time.perf_counter()
@@ -258,9 +258,9 @@ def solve_nlp(
     bounds = {n: (float(spec.variables[n].min), float(spec.variables[n].max)) for n in names}
     start = start_values(model)
     start_ev = model.numeric(start)
-    if transcription == "auto":
+    if formulation == "auto":
         stable = is_stable_discrete(np.asarray(start_ev.Phi))
-        transcription = "condensed" if stable else "multiple_shooting"
+        formulation = "condensed" if stable else "multiple_shooting"
 
     def scaled(point: dict[str, float]) -> np.ndarray:
         return np.array(
@@ -312,7 +312,7 @@ def solve_nlp(
     x_start = [q_start]
     lbx = [np.zeros(len(names))]
     ubx = [np.ones(len(names))]
-    if transcription == "condensed":
+    if formulation == "condensed":
         X = _condensed_states(matrices["Phi"], matrices["Gamma"], matrices["x0"], model.schedule)
         ev = model.evaluation(matrices, values, X)
     else:
@@ -337,7 +337,7 @@ def solve_nlp(
             # Routh-Hurwitz entries of a normalised polynomial: order one, strictly negative
             add(limit_measures.excess(lim, model, ev, start_ev)[0], -casadi.inf, -1e-9)
             continue
-        if lim.kind == "energy" and transcription == "multiple_shooting":
+        if lim.kind == "energy" and formulation == "multiple_shooting":
             # a running-energy state keeps every constraint row local in time (a dense row
             # summing over all samples would make the constraint Jacobian expensive to form)
             energy_scale = abs(float(lim.max)) or 1.0
@@ -411,7 +411,7 @@ def solve_nlp(
         callback = _IterationReport({"x": xvec.numel(), "g": gvec.numel()}, progress)
         options["iteration_callback"] = callback
         progress(
-            f"NLP ({transcription.replace('_', ' ')}): {len(names)} design variables, "
+            f"NLP ({formulation.replace('_', ' ')}): {len(names)} design variables, "
             f"{xvec.numel()} unknowns, {gvec.numel()} constraints, ZOH with {squarings} "
             "squarings"
         )
@@ -451,7 +451,7 @@ def solve_nlp(
         truncation_bound=truncation_bound(squarings),
         constraint_violation=violation,
         stats={
-            "transcription": transcription,
+            "formulation": formulation,
             "hessian": hessian,
             "unknowns": int(xvec.numel()),
             "constraints": int(gvec.numel()),

@@ -1,8 +1,8 @@
-"""Condensed and multiple-shooting transcriptions of the same NLP reach the same optimum.
+"""Condensed and multiple-shooting formulations of the same NLP reach the same optimum.
 
 The condensed form eliminates the states (the trajectory is an expression of the design
 variables, as in condensing: Bock and Plitt, IFAC 1984); multiple shooting keeps them as
-unknowns with the dynamics as equality constraints. ``transcription="auto"`` condenses
+unknowns with the dynamics as equality constraints. ``formulation="auto"`` condenses
 only when the loop is stable at the starting point.
 """
 
@@ -22,20 +22,20 @@ from wirestate.tune.nlp import is_stable_discrete, solve_nlp
 MODELS = Path(__file__).resolve().parents[2] / "models" / "tuning"
 
 
-@pytest.mark.parametrize("transcription", ["condensed", "multiple_shooting"])
-def test_both_transcriptions_reproduce_the_rc_closed_form(rc_case, transcription):
+@pytest.mark.parametrize("formulation", ["condensed", "multiple_shooting"])
+def test_both_formulations_reproduce_the_rc_closed_form(rc_case, formulation):
     model = TuningModel(load_tuning(rc_case()))
-    solution = solve_nlp(model, transcription=transcription)
+    solution = solve_nlp(model, formulation=formulation)
     # first-order step response v(t) = 1 - exp(-t / RC) (Ogata, Modern Control Engineering,
     # 5th ed., sec. 5-2): v(1 ms) <= 0.5 V with R = 1 kohm needs C >= 1e-3 / (1e3 ln 2);
     # 1e-6 relative: IPOPT meets the constraint to 1e-8 of the bound
     assert solution.values["C1"] == pytest.approx(1e-3 / (1e3 * math.log(2)), rel=1e-6)
-    assert solution.stats["transcription"] == transcription
+    assert solution.stats["formulation"] == formulation
 
 
 def test_auto_condenses_a_loop_that_is_stable_at_the_start(rc_case):
     model = TuningModel(load_tuning(rc_case()))
-    assert solve_nlp(model).stats["transcription"] == "condensed"
+    assert solve_nlp(model).stats["formulation"] == "condensed"
 
 
 def _drive_bus(rd_start: str, cd_start: str) -> TuningModel:
@@ -80,10 +80,10 @@ def test_an_unstable_start_falls_back_to_multiple_shooting_and_agrees():
     assert np.max(np.abs(np.linalg.eigvals(start_ev.Phi))) > 1.0
     assert not is_stable_discrete(start_ev.Phi)
     shooting = solve_nlp(unstable)
-    assert shooting.stats["transcription"] == "multiple_shooting"
+    assert shooting.stats["formulation"] == "multiple_shooting"
     condensed = solve_nlp(_drive_bus("0.5ohm", "1mF"))
-    assert condensed.stats["transcription"] == "condensed"
-    # the same NLP from two starts and in two transcriptions: 1e-6 relative, IPOPT's
+    assert condensed.stats["formulation"] == "condensed"
+    # the same NLP from two starts and in two formulations: 1e-6 relative, IPOPT's
     # tolerance 1e-8 on a problem whose scaled variables are of order one
     for name in ("Rd", "Cd"):
         assert condensed.values[name] == pytest.approx(shooting.values[name], rel=1e-6)
