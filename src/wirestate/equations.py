@@ -26,6 +26,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
+from wirestate.spec.circuit import part_parameter
 from wirestate.topology import Branch, Topology
 
 Key = tuple[str, int]  # ("w"|"x"|"u"|"du", index)
@@ -40,21 +41,6 @@ class Backend:
 
 
 NUMERIC = Backend()
-
-
-def part_parameter(kind: str) -> str | None:
-    """Name of the field that holds a part's primary value (the one tuning may replace)."""
-    return {
-        "resistor": "value",
-        "inductor": "value",
-        "capacitor": "value",
-        "vcvs": "gain",
-        "vccs": "gain",
-        "ccvs": "gain",
-        "cccs": "gain",
-        "coupling": "coefficient",
-        "electromechanical": "constant",
-    }.get(kind)
 
 
 @dataclass

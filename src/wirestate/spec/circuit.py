@@ -20,6 +20,7 @@ from pydantic import (
     model_validator,
 )
 
+from wirestate.errors import ModelFileError
 from wirestate.units import parse_quantity, parse_tolerance
 
 NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -209,6 +210,25 @@ PART_KINDS: tuple[str, ...] = (
 )
 
 
+#: the field holding each kind's primary value: the one tuning and ``with_values`` replace
+PRIMARY_FIELD: dict[str, str] = {
+    "resistor": "value",
+    "inductor": "value",
+    "capacitor": "value",
+    "vcvs": "gain",
+    "vccs": "gain",
+    "ccvs": "gain",
+    "cccs": "gain",
+    "coupling": "coefficient",
+    "electromechanical": "constant",
+}
+
+
+def part_parameter(kind: str) -> str | None:
+    """Name of the field that holds a part's primary value (``None`` for sources)."""
+    return PRIMARY_FIELD.get(kind)
+
+
 def _voltage_output(value: Any) -> Any:
     if isinstance(value, str):
         return (value, None)
@@ -279,15 +299,17 @@ class CircuitSpec(_Strict):
         data = self.model_dump(mode="python")
         for part, value in values.items():
             if part not in data["parts"]:
-                from wirestate.errors import ModelFileError
-
                 raise ModelFileError(
                     "unknown_part",
                     f"no part named {part!r} (parts: {', '.join(sorted(data['parts']))})",
                     location=("parts", part),
                 )
-            field = "coefficient" if data["parts"][part]["kind"] == "coupling" else "value"
-            field = "gain" if "gain" in data["parts"][part] else field
-            field = "constant" if "constant" in data["parts"][part] else field
+            field = part_parameter(data["parts"][part]["kind"])
+            if field is None:
+                raise ModelFileError(
+                    "unknown_part",
+                    f"{part} ({data['parts'][part]['kind']}) has no value to replace",
+                    location=("parts", part),
+                )
             data["parts"][part][field] = float(value)
         return CircuitSpec.model_validate(data)
