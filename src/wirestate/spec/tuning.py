@@ -67,6 +67,7 @@ limits, the objective and the stress conditions. Every quantity is read into SI 
 
     [solver]                    # optional IPOPT settings
     max_iterations = 300
+    robust = false              # true: every limit at every tolerance corner as well
 """
 
 from __future__ import annotations
@@ -363,10 +364,26 @@ class Stress(_Strict):
 
 
 class SolverOptions(_Strict):
-    """IPOPT settings (rarely needed)."""
+    """IPOPT settings (rarely needed), and ``robust``.
+
+    ``robust = true`` imposes every limit inside the optimiser not only at the nominal part
+    values but also at every tolerance corner (each resistor, capacitor and inductor with
+    a ``tolerance`` t, design variables included, at ``value * (1 +- t)``; at most 8 parts,
+    design variables first, so at most 256 corners), with the same design variables and
+    the objective at nominal values. The continuous optimum then meets every limit at
+    every corner, and snapping prefers the preferred values that do too (as with
+    ``stress.corners_must_pass``). Each corner adds the nominal problem's constraints once
+    more, so solve time grows with the number of corners. Needs
+    ``stress.tolerance_corners = true``.
+    """
 
     max_iterations: int = Field(default=300, ge=1, le=10000)
     tolerance: float = Field(default=1e-8, gt=0, lt=1)
+    robust: bool = Field(
+        default=False,
+        description="impose every limit at the nominal values and at every tolerance corner "
+        "inside the optimiser, and snap to values that pass every corner",
+    )
 
 
 class TuningSpec(_Strict):

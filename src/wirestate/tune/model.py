@@ -32,6 +32,9 @@ from wirestate.tune.loop import REFERENCE, Loop, close_pi, open_loop
 CURRENT_PREFIX = "i__"
 VOLTAGE_PREFIX = "v__"
 
+#: at most this many toleranced parts span the corners (2**8 = 256 corners)
+MAX_CORNER_PARTS = 8
+
 
 @dataclass
 class Evaluation:
@@ -68,6 +71,14 @@ class TuningModel:
             raise exc.with_file(str(spec.circuit_path)) from None
         self.base_circuit = circuit
         self.variables = list(spec.variables)
+        if spec.solver.robust and not spec.stress.tolerance_corners:
+            raise TuningError(
+                "invalid_field",
+                "robust = true imposes every limit at the tolerance corners; it needs "
+                "stress.tolerance_corners = true",
+                file=file,
+                location=("solver", "robust"),
+            )
         for name in self.variables:
             part = circuit.parts.get(name)
             if (
@@ -295,6 +306,51 @@ class TuningModel:
             ) from None
         y = block.C @ x + block.D @ u
         return float(y[block.outputs.index(ctrl.measure)])
+
+    # -- tolerance corners ----------------------------------------------------------------
+
+    def tolerance_corners(self) -> tuple[list[str], list[dict[str, float]]]:
+        """The toleranced parts and the factor each corner applies to their values.
+
+        Every resistor, capacitor and inductor with a tolerance ``t`` is taken at
+        ``value * (1 - t)`` or ``value * (1 + t)``; the corners are all ``2**m``
+        combinations (a worst-case vertex analysis; the extremes of a response that is
+        monotonic in each part lie on these vertices). Design variables come first, so
+        that a cap of :data:`MAX_CORNER_PARTS` parts keeps the parts being sized.
+
+        Returns
+        -------
+        (parts, corners)
+            ``corners[i][part]`` is the factor ``1 +- t`` (dimensionless) by which corner
+            ``i`` scales the part's value (the design variable's current value, or the
+            nominal value of any other part).
+        """
+        parts = self.base_circuit.parts
+        toleranced = [
+            n
+            for n, p in parts.items()
+            if getattr(p, "tolerance", None) and p.kind in ("resistor", "capacitor", "inductor")
+        ]
+        design = set(self.variables)
+        toleranced.sort(key=lambda n: (n not in design, n))
+        toleranced = toleranced[:MAX_CORNER_PARTS]
+        corners = [
+            {
+                name: 1.0 + sign * float(parts[name].tolerance)
+                for sign, name in zip(signs, toleranced, strict=True)
+            }
+            for signs in itertools.product((-1.0, 1.0), repeat=len(toleranced))
+        ]
+        return toleranced, corners
+
+    def corner_values(self, values: dict[str, Any], factors: dict[str, float]) -> dict[str, Any]:
+        """Part values at one corner: each part in ``factors`` scaled by its factor, from
+        ``values`` where given (design variables; floats or CasADi expressions), else from
+        its nominal value; the design variables not in ``factors`` as given."""
+        out = dict(values)
+        for name, factor in factors.items():
+            out[name] = (values[name] if name in values else self.nominal[name]) * factor
+        return out
 
     # -- evaluations ----------------------------------------------------------------------
 

@@ -22,6 +22,14 @@ Both use: design variables on a logarithmic scale, ``value = lo * (hi / lo) ** q
 path constraints (one per sample or per frequency), each divided by the size of its bound,
 a two-sided band (``|y - y_f| <= b``) as one row with two bounds.
 
+Robust variant (``robust=True``, the tuning file's ``[solver] robust = true``): the same
+limits are imposed again at every tolerance corner (each toleranced part, design variables
+included, at ``value * (1 +- t)``), a worst-case vertex formulation over the tolerance box
+with the same design variables. Each corner's matrices come from the same compile path
+(:func:`wirestate.reduce.symbolic_state_space` with that corner's part values) and its own
+trajectory (condensed) or states (multiple shooting); the objective stays at the nominal
+values.
+
 The parameter-dependent matrices (the ZOH of the closed loop through
 :mod:`wirestate.tune.expm`, its continuous matrices, the steady states the limits refer
 to, ``x[0]`` = steady state or zero) are SX expressions of the scaled design variables,
@@ -229,6 +237,7 @@ def solve_nlp(
     tolerance: float = 1e-8,
     formulation: str = "auto",
     hessian: str = "exact",
+    robust: bool = False,
 ) -> NlpSolution:
     """Build and solve the NLP of ``model``; see the module docstring.
 
@@ -243,6 +252,12 @@ def solve_nlp(
         ``"exact"`` (second derivatives by algorithmic differentiation) or
         ``"limited_memory"`` (IPOPT's L-BFGS update from the exact gradients; cheaper per
         iteration, usually a few more iterations).
+    robust
+        Impose every limit at the nominal values and at every tolerance corner of
+        :meth:`TuningModel.tolerance_corners` (each toleranced part's value, design
+        variables included, times ``1 +- t``); the design variables and the objective
+        (taken at the nominal values) are unchanged. Each corner adds the constraints of
+        the nominal problem once more (and, in multiple shooting, its own states).
     """
     import time
 
@@ -258,8 +273,18 @@ def solve_nlp(
     bounds = {n: (float(spec.variables[n].min), float(spec.variables[n].max)) for n in names}
     start = start_values(model)
     start_ev = model.numeric(start)
+    # the points at which every limit is imposed: the nominal values (no factors) and,
+    # when robust, every tolerance corner (factors 1 +- t on the toleranced parts)
+    corners: list[dict[str, float]] = [{}]
+    if robust:
+        toleranced, factors = model.tolerance_corners()
+        # without toleranced parts the one "corner" is the nominal point itself
+        corners += factors if toleranced else []
+    # numeric starting evaluations at each corner: initial guesses and state scales only;
+    # the limits themselves are defined against the nominal start, as in the verification
+    start_evs = [start_ev] + [model.numeric(model.corner_values(start, c)) for c in corners[1:]]
     if formulation == "auto":
-        stable = is_stable_discrete(np.asarray(start_ev.Phi))
+        stable = all(is_stable_discrete(np.asarray(e.Phi)) for e in start_evs)
         formulation = "condensed" if stable else "multiple_shooting"
 
     def scaled(point: dict[str, float]) -> np.ndarray:
@@ -272,28 +297,30 @@ def solve_nlp(
 
     q_start = scaled(start)
     # the parameter-dependent matrices are built once as SX expressions of the scaled
-    # variables and wrapped in one function; the NLP is an MX graph that calls it once
+    # variables and wrapped in one function; the NLP is an MX graph that calls it once.
+    # Each corner goes through the same compile path (symbolic_state_space) with its own
+    # part values: the design variables times their factors, other parts as constants.
     q_sx = casadi.SX.sym("q", len(names))
     values_sx = {
         n: bounds[n][0] * (bounds[n][1] / bounds[n][0]) ** q_sx[i] for i, n in enumerate(names)
     }
-    loop_sx = model.symbolic_loop(values_sx)
-    squarings = _squarings(
-        model,
-        q_sx,
-        loop_sx["zoh"],
-        [q_start] + [scaled(point) for point in model.norm_points(bounds)],
-    )
-    matrices_sx = model.symbolic(values_sx, squarings, loop_sx)
-    keys = list(matrices_sx)
+    corner_values_sx = [model.corner_values(values_sx, c) for c in corners]
+    loops_sx = [model.symbolic_loop(v) for v in corner_values_sx]
+    norm_points = [q_start] + [scaled(point) for point in model.norm_points(bounds)]
+    # one number of squarings for all corners: the largest any corner needs
+    squarings = max(_squarings(model, q_sx, loop["zoh"], norm_points) for loop in loops_sx)
+    matrices_per_corner = [
+        model.symbolic(v, squarings, loop)
+        for v, loop in zip(corner_values_sx, loops_sx, strict=True)
+    ]
+    keys = list(matrices_per_corner[0])
     matrices_fn = casadi.Function(
         "loop_matrices",
         [q_sx],
-        [matrices_sx[k] for k in keys] + [casadi.vertcat(*values_sx.values())],
+        [m[k] for m in matrices_per_corner for k in keys] + [casadi.vertcat(*values_sx.values())],
     )
     q = casadi.MX.sym("q", len(names))
     outputs = matrices_fn(q)
-    matrices = dict(zip(keys, outputs[:-1], strict=True))
     values = {n: outputs[-1][i] for i, n in enumerate(names)}
     n_x = start_ev.X.shape[0]
     samples = model.n_steps + 1
@@ -312,62 +339,41 @@ def solve_nlp(
     x_start = [q_start]
     lbx = [np.zeros(len(names))]
     ubx = [np.ones(len(names))]
-    if formulation == "condensed":
-        X = _condensed_states(matrices["Phi"], matrices["Gamma"], matrices["x0"], model.schedule)
-        ev = model.evaluation(matrices, values, X)
-    else:
-        scale = np.max(np.abs(start_ev.X), axis=1)
-        scale = np.where(scale > 1e-9 * max(scale.max(), 1e-300), scale, max(scale.max(), 1.0))
-        Xs = casadi.MX.sym("X", n_x, samples)
-        X = casadi.mtimes(casadi.diag(casadi.DM(scale)), Xs)
-        ev = model.evaluation(matrices, values, X)
-        V = casadi.DM(model.schedule)
-        inv_scale = casadi.DM(1.0 / scale)
-        # dynamics (defects), scaled by the state magnitudes
-        defects = X[:, 1:] - casadi.mtimes(ev.Phi, X[:, :-1]) - casadi.mtimes(ev.Gamma, V[:, :-1])
-        add(casadi.mtimes(casadi.diag(inv_scale), defects), 0.0, 0.0)
-        add(inv_scale * (X[:, 0] - ev.extra["x0"]), 0.0, 0.0)
-        decision.append(casadi.vec(Xs))
-        x_start.append((start_ev.X / scale[:, None]).ravel(order="F"))
-        lbx.append(-np.inf * np.ones(n_x * samples))
-        ubx.append(np.inf * np.ones(n_x * samples))
-
-    for lim in spec.limits:
-        if lim.kind in ("damping_ratio", "pole_real_part"):
-            # Routh-Hurwitz entries of a normalised polynomial: order one, strictly negative
-            add(limit_measures.excess(lim, model, ev, start_ev)[0], -casadi.inf, -1e-9)
-            continue
-        if lim.kind == "energy" and formulation == "multiple_shooting":
-            # a running-energy state keeps every constraint row local in time (a dense row
-            # summing over all samples would make the constraint Jacobian expensive to form)
-            energy_scale = abs(float(lim.max)) or 1.0
-            Es = casadi.MX.sym(f"E_{lim.part}", samples)
-            E = Es * energy_scale
-            i = ev.Y[model.outputs.index(CURRENT_PREFIX + lim.part), :].T
-            R = ev.values[lim.part]
-            increments = 0.5 * model.step * R * (i[:-1] ** 2 + i[1:] ** 2)
-            add((E[1:] - E[:-1] - increments) / energy_scale, 0.0, 0.0)
-            add(Es[0], 0.0, 0.0)
-            add(Es[-1] - float(lim.max) / energy_scale, -casadi.inf, 0.0)
-            i0 = start_ev.Y[model.outputs.index(CURRENT_PREFIX + lim.part), :]
-            R0 = start_ev.values[lim.part]
-            running = np.concatenate(
-                [[0.0], np.cumsum(0.5 * model.step * R0 * (i0[:-1] ** 2 + i0[1:] ** 2))]
+    evaluations_per_corner = []
+    for index, (factors, corner_start) in enumerate(zip(corners, start_evs, strict=True)):
+        matrices = dict(
+            zip(keys, outputs[index * len(keys) : (index + 1) * len(keys)], strict=True)
+        )
+        corner_values = model.corner_values(values, factors)
+        if formulation == "condensed":
+            X = _condensed_states(
+                matrices["Phi"], matrices["Gamma"], matrices["x0"], model.schedule
             )
-            decision.append(Es)
-            x_start.append(running / energy_scale)
-            lbx.append(-np.inf * np.ones(samples))
-            ubx.append(np.inf * np.ones(samples))
-            continue
-        bound = _bound_size(lim)
-        # a two-sided band is one row with two bounds (IPOPT takes ranges directly), half
-        # the rows of the two one-sided vectors the numeric verification uses
-        for expr, lower, upper in limit_measures.ranges(lim, model, ev, start_ev):
-            add(
-                expr / bound,
-                -casadi.inf if lower is None else lower / bound,
-                casadi.inf if upper is None else upper / bound,
+            ev = model.evaluation(matrices, corner_values, X)
+        else:
+            scale = np.max(np.abs(corner_start.X), axis=1)
+            scale = np.where(scale > 1e-9 * max(scale.max(), 1e-300), scale, max(scale.max(), 1.0))
+            Xs = casadi.MX.sym(f"X{index}", n_x, samples)
+            X = casadi.mtimes(casadi.diag(casadi.DM(scale)), Xs)
+            ev = model.evaluation(matrices, corner_values, X)
+            V = casadi.DM(model.schedule)
+            inv_scale = casadi.DM(1.0 / scale)
+            # dynamics (defects), scaled by the state magnitudes
+            defects = (
+                X[:, 1:] - casadi.mtimes(ev.Phi, X[:, :-1]) - casadi.mtimes(ev.Gamma, V[:, :-1])
             )
+            add(casadi.mtimes(casadi.diag(inv_scale), defects), 0.0, 0.0)
+            add(inv_scale * (X[:, 0] - ev.extra["x0"]), 0.0, 0.0)
+            decision.append(casadi.vec(Xs))
+            x_start.append((corner_start.X / scale[:, None]).ravel(order="F"))
+            lbx.append(-np.inf * np.ones(n_x * samples))
+            ubx.append(np.inf * np.ones(n_x * samples))
+        evaluations_per_corner.append(ev)
+        _add_limits(
+            model, ev, start_ev, corner_start, formulation, add, decision, x_start, lbx, ubx
+        )
+    # the objective is taken at the nominal values
+    ev = evaluations_per_corner[0]
 
     start_terms = [abs(float(v)) or 1.0 for _, v in objective_terms(model, start_ev)]
     f = 0
@@ -410,10 +416,11 @@ def solve_nlp(
     if progress is not None:
         callback = _IterationReport({"x": xvec.numel(), "g": gvec.numel()}, progress)
         options["iteration_callback"] = callback
+        where = f", limits at nominal and {len(corners) - 1} tolerance corners" if robust else ""
         progress(
             f"NLP ({formulation.replace('_', ' ')}): {len(names)} design variables, "
             f"{xvec.numel()} unknowns, {gvec.numel()} constraints, ZOH with {squarings} "
-            "squarings"
+            f"squarings{where}"
         )
     t_built = time.perf_counter()
     solver = casadi.nlpsol("tune", "ipopt", {"x": xvec, "f": f, "g": gvec}, options)
@@ -459,8 +466,68 @@ def solve_nlp(
             "seconds_generating_derivatives": t_constructed - t_built,
             "seconds_in_ipopt": t_solved - t_constructed,
             "seconds_in_ipopt_function_evaluations": evaluations,
+            **({"tolerance_corners_in_optimiser": len(corners) - 1} if robust else {}),
         },
     )
+
+
+def _add_limits(
+    model: TuningModel,
+    ev: Any,
+    start_ev: Any,
+    corner_start: Any,
+    formulation: str,
+    add: Callable[[Any, float, float], None],
+    decision: list[Any],
+    x_start: list[Any],
+    lbx: list[Any],
+    ubx: list[Any],
+) -> None:
+    """Impose every limit on one symbolic evaluation ``ev`` (nominal or a corner).
+
+    ``start_ev`` (the nominal start) defines the limits, as in the numeric verification
+    (step directions, scaling of the pole conditions); ``corner_start`` (the start at the
+    same corner) gives initial guesses of the running-energy states.
+    """
+    import casadi
+
+    samples = model.n_steps + 1
+    for lim in model.spec.limits:
+        if lim.kind in ("damping_ratio", "pole_real_part"):
+            # Routh-Hurwitz entries of a normalised polynomial: order one, strictly negative
+            add(limit_measures.excess(lim, model, ev, start_ev)[0], -casadi.inf, -1e-9)
+            continue
+        if lim.kind == "energy" and formulation == "multiple_shooting":
+            # a running-energy state keeps every constraint row local in time (a dense row
+            # summing over all samples would make the constraint Jacobian expensive to form)
+            energy_scale = abs(float(lim.max)) or 1.0
+            Es = casadi.MX.sym(f"E_{lim.part}", samples)
+            E = Es * energy_scale
+            i = ev.Y[model.outputs.index(CURRENT_PREFIX + lim.part), :].T
+            R = ev.values[lim.part]
+            increments = 0.5 * model.step * R * (i[:-1] ** 2 + i[1:] ** 2)
+            add((E[1:] - E[:-1] - increments) / energy_scale, 0.0, 0.0)
+            add(Es[0], 0.0, 0.0)
+            add(Es[-1] - float(lim.max) / energy_scale, -casadi.inf, 0.0)
+            i0 = corner_start.Y[model.outputs.index(CURRENT_PREFIX + lim.part), :]
+            R0 = corner_start.values[lim.part]
+            running = np.concatenate(
+                [[0.0], np.cumsum(0.5 * model.step * R0 * (i0[:-1] ** 2 + i0[1:] ** 2))]
+            )
+            decision.append(Es)
+            x_start.append(running / energy_scale)
+            lbx.append(-np.inf * np.ones(samples))
+            ubx.append(np.inf * np.ones(samples))
+            continue
+        bound = _bound_size(lim)
+        # a two-sided band is one row with two bounds (IPOPT takes ranges directly), half
+        # the rows of the two one-sided vectors the numeric verification uses
+        for expr, lower, upper in limit_measures.ranges(lim, model, ev, start_ev):
+            add(
+                expr / bound,
+                -casadi.inf if lower is None else lower / bound,
+                casadi.inf if upper is None else upper / bound,
+            )
 
 
 def _bound_size(limit: Any) -> float:

@@ -10,6 +10,9 @@
    the feasible one with the lowest objective is kept;
 3. at the chosen values every limit is re-verified numerically, then again at every corner
    of the parts' tolerances (each toleranced part at ``value * (1 +- tolerance)``);
+   with ``[solver] robust = true`` the NLP of step 1 already imposes every limit at every
+   corner, and step 2 keeps, like ``[stress] corners_must_pass``, the cheapest of the
+   combinations (three preferred values either side) that pass every corner;
 4. stresses: resistor energy and power (scenario, steady state and a stated sinusoidal
    ripple), capacitor voltage and part currents against their ratings.
 """
@@ -24,7 +27,7 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.errors import TuningError
+from wirestate.errors import TuningError, WirestateError
 from wirestate.spec.tuning import Limit, TuningSpec
 from wirestate.tune import limits as limit_measures
 from wirestate.tune import preferred
@@ -59,7 +62,6 @@ _LIMIT_UNITS = {
     "peak_current": "A",
     "energy": "J",
 }
-_MAX_CORNERS_PARTS = 8
 _MAX_SNAP_VARIABLES = 8
 
 
@@ -184,23 +186,38 @@ def _combinations(
 
 
 def _corners(model: TuningModel, values: dict[str, float]) -> tuple[list[str], list[dict]]:
-    parts = model.base_circuit.parts
-    toleranced = [
-        n
-        for n, p in parts.items()
-        if getattr(p, "tolerance", None) and p.kind in ("resistor", "capacitor", "inductor")
+    # the part values at each tolerance corner around ``values`` (the design variables)
+    toleranced, factors = model.tolerance_corners()
+    corners = [
+        {name: values.get(name, model.nominal[name]) * f for name, f in factor.items()}
+        for factor in factors
     ]
-    # design variables first, so that a cap on the count keeps the parts being sized
-    toleranced.sort(key=lambda n: (n not in values, n))
-    toleranced = toleranced[:_MAX_CORNERS_PARTS]
-    corners = []
-    for signs in itertools.product((-1.0, 1.0), repeat=len(toleranced)):
-        corner = {}
-        for sign, name in zip(signs, toleranced, strict=True):
-            base = values.get(name, model.nominal[name])
-            corner[name] = base * (1.0 + sign * float(parts[name].tolerance))
-        corners.append(corner)
     return toleranced, corners
+
+
+def _log_distance(values: dict[str, float], optimum: dict[str, float]) -> float:
+    return sum(math.log(values[n] / optimum[n]) ** 2 for n in optimum)
+
+
+def _worst_over_corners(
+    model: TuningModel,
+    values: dict[str, float],
+    nominal_rows: list[dict[str, Any]],
+    start: Evaluation,
+) -> list[dict[str, Any]]:
+    # per limit, the row of least relative margin over the nominal values and every
+    # tolerance corner, with that corner (a corner that cannot be compiled is skipped)
+    worst = [dict(r, worst_corner={}) for r in nominal_rows]
+    toleranced, corners = _corners(model, values)
+    for corner in corners if toleranced else []:
+        try:
+            rows = limit_margins(model, model.numeric({**values, **corner}), start)
+        except WirestateError:
+            continue
+        for index, row in enumerate(rows):
+            if row["relative_margin"] < worst[index]["relative_margin"]:
+                worst[index] = dict(row, worst_corner=dict(corner))
+    return worst
 
 
 def _frequency_response(ev: Evaluation, model: TuningModel, input_name: str, freq: float):
@@ -317,6 +334,7 @@ def solve(
         progress=progress,
         max_iterations=spec.solver.max_iterations,
         tolerance=spec.solver.tolerance,
+        robust=spec.solver.robust,
     )
     say(f"solver: {nlp.status} after {nlp.iterations} iterations ({nlp.seconds:.2f} s)")
     optimum_ev = model.numeric(nlp.values)
@@ -336,14 +354,35 @@ def solve(
             "poles and impedances of the sampled PI use its continuous counterpart "
             "in the optimiser; the verification uses the discrete loop's poles"
         )
+    # robust: the optimiser imposed the limits at every tolerance corner, so a stopped
+    # solver's point is judged (and reported) at its worst corner too
+    check_rows = error_rows = optimum_rows
+    if spec.solver.robust:
+        toleranced_nlp = model.tolerance_corners()[0]
+        count = nlp.stats.get("tolerance_corners_in_optimiser", 0)
+        notes.append(
+            f"robust: every limit imposed in the optimiser at the nominal values and at "
+            f"{count} tolerance corners ({', '.join(toleranced_nlp) or 'no toleranced parts'})"
+        )
+    if spec.solver.robust and nlp.status not in _CONVERGED:
+        check_rows = _worst_over_corners(model, nlp.values, optimum_rows, start_ev)
+        error_rows = [
+            dict(
+                row,
+                margin_worst_corner=worst["margin"],
+                relative_margin_worst_corner=worst["relative_margin"],
+                worst_corner=worst["worst_corner"],
+            )
+            for row, worst in zip(optimum_rows, check_rows, strict=True)
+        ]
     if nlp.status not in _CONVERGED:
-        if _is_feasible(optimum_rows):
+        if _is_feasible(check_rows):
             notes.append(
                 f"the solver stopped with {nlp.status}, but its last point meets "
                 "every limit in the numeric verification"
             )
         else:
-            failing = [r for r in optimum_rows if r["relative_margin"] < -1e-7]
+            failing = [r for r in check_rows if r["relative_margin"] < -1e-7]
             listing = "; ".join(
                 f"{r['name']} misses by {-r['margin']:.4g} {r['unit']}".rstrip() for r in failing
             )
@@ -369,7 +408,7 @@ def solve(
                 nlp.values,
                 nlp.values,
                 optimum_rows,
-                optimum_rows,
+                error_rows,
                 None,
                 [],
                 0,
@@ -382,13 +421,16 @@ def solve(
             raise error
     # snapping: every combination of neighbouring preferred values, simulated
     combos = _combinations(
-        model, nlp.values, series, count=3 if spec.stress.corners_must_pass else 1
+        model,
+        nlp.values,
+        series,
+        count=3 if spec.stress.corners_must_pass or spec.solver.robust else 1,
     )
     say(f"snapping to {series}: {len(combos)} combinations of neighbouring values")
     start_terms = [abs(float(v)) or 1.0 for _, v in objective_terms(model, start_ev)]
     start_peak = peak_impedance(model, start_ev) or 1.0
     scored = []
-    robust = spec.stress.corners_must_pass and spec.stress.tolerance_corners
+    robust = (spec.stress.corners_must_pass or spec.solver.robust) and spec.stress.tolerance_corners
     for combo in combos:
         ev = model.numeric(combo)
         rows = limit_margins(model, ev, start_ev)
@@ -407,7 +449,10 @@ def solve(
     robust_ones = [s for s in scored if s[1]]
     nominal_ones = [s for s in scored if s[0]]
     if robust and robust_ones:
-        best = min(robust_ones, key=lambda s: s[2])
+        # with three values either side, several combinations can share the least
+        # objective (a capacitance objective ignores the resistor); the one nearest the
+        # continuous optimum (log distance) is kept, rather than whichever comes first
+        best = min(robust_ones, key=lambda s: (s[2], _log_distance(s[4], nlp.values)))
     elif nominal_ones:
         best = min(nominal_ones, key=lambda s: s[2])
         if robust:
