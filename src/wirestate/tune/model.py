@@ -184,6 +184,25 @@ class TuningModel:
         except WirestateError as exc:
             raise exc.with_file(str(self.spec.circuit_path)) from None
 
+    def _close_pi(
+        self, A: Any, B: Any, C: Any, D: Any, names: dict, sample_time: float | None = None
+    ) -> Loop:
+        """The spec's PI loop around ``(A, B, C, D)`` (numbers or CasADi; continuous, or
+        discrete with ``sample_time`` when ``A, B`` are already the ZOH pair)."""
+        ctrl = self.spec.controller
+        return close_pi(
+            A,
+            B,
+            C,
+            D,
+            **names,
+            measure=ctrl.measure,
+            drive=ctrl.drive,
+            kp=ctrl.proportional,
+            ki=ctrl.integral,
+            sample_time=sample_time,
+        )
+
     def _loop_numeric(self, block) -> Loop:
         ctrl = self.spec.controller
         if ctrl is None:
@@ -191,19 +210,7 @@ class TuningModel:
                 block.A, block.B, block.C, block.D, block.states, block.inputs, block.outputs
             )
         try:
-            return close_pi(
-                block.A,
-                block.B,
-                block.C,
-                block.D,
-                states=block.states,
-                inputs=block.inputs,
-                outputs=block.outputs,
-                measure=ctrl.measure,
-                drive=ctrl.drive,
-                kp=ctrl.proportional,
-                ki=ctrl.integral,
-            )
+            return self._close_pi(block.A, block.B, block.C, block.D, _names(block))
         except WirestateError as exc:
             raise exc.with_file(self.file or "") from None
 
@@ -401,23 +408,9 @@ class TuningModel:
         """The case at part values ``values`` (others nominal), simulated numerically."""
         all_values = {**self.nominal, **{k: float(v) for k, v in values.items()}}
         block = self._compile(all_values)
-        ctrl = self.spec.controller
         if self.sampled:
             Ad, Bd = numeric_zoh(block.A, block.B, self.step)
-            loop_d = close_pi(
-                Ad,
-                Bd,
-                block.C,
-                block.D,
-                states=block.states,
-                inputs=block.inputs,
-                outputs=block.outputs,
-                measure=ctrl.measure,
-                drive=ctrl.drive,
-                kp=ctrl.proportional,
-                ki=ctrl.integral,
-                sample_time=self.step,
-            )
+            loop_d = self._close_pi(Ad, Bd, block.C, block.D, _names(block), self.step)
             loop_c = self._loop_numeric(block)
             Phi, Gamma, C, D = loop_d.A, loop_d.B, loop_d.C, loop_d.D
         else:
@@ -469,17 +462,7 @@ class TuningModel:
         if ctrl is None:
             loop_c = open_loop(ss.A, ss.B, ss.C, ss.D, **names)
         else:
-            loop_c = close_pi(
-                ss.A,
-                ss.B,
-                ss.C,
-                ss.D,
-                **names,
-                measure=ctrl.measure,
-                drive=ctrl.drive,
-                kp=ctrl.proportional,
-                ki=ctrl.integral,
-            )
+            loop_c = self._close_pi(ss.A, ss.B, ss.C, ss.D, names)
         zoh_pair = (ss.A, ss.B) if self.sampled else (loop_c.A, loop_c.B)
         return {"ss": ss, "loop": loop_c, "names": names, "zoh": zoh_pair}
 
@@ -495,21 +478,9 @@ class TuningModel:
         if loop is None:
             loop = self.symbolic_loop(values)
         ss, loop_c, names = loop["ss"], loop["loop"], loop["names"]
-        ctrl = self.spec.controller
         if self.sampled:
             Ad, Bd = cexpm.zoh(ss.A, ss.B, self.step, squarings)
-            loop_d = close_pi(
-                Ad,
-                Bd,
-                ss.C,
-                ss.D,
-                **names,
-                measure=ctrl.measure,
-                drive=ctrl.drive,
-                kp=ctrl.proportional,
-                ki=ctrl.integral,
-                sample_time=self.step,
-            )
+            loop_d = self._close_pi(Ad, Bd, ss.C, ss.D, names, self.step)
             Phi, Gamma, C, D = loop_d.A, loop_d.B, loop_d.C, loop_d.D
         else:
             Phi, Gamma = cexpm.zoh(loop_c.A, loop_c.B, self.step, squarings)
@@ -585,3 +556,11 @@ def steady_state(Phi: Any, Gamma: Any, v: Any) -> Any:
         return np.linalg.solve(np.eye(n) - Phi, Gamma @ np.asarray(v))
     except np.linalg.LinAlgError:
         return np.linalg.lstsq(np.eye(n) - Phi, Gamma @ np.asarray(v), rcond=None)[0]
+
+
+def _names(block: Any) -> dict[str, list[str]]:
+    return {
+        "states": list(block.states),
+        "inputs": list(block.inputs),
+        "outputs": list(block.outputs),
+    }
