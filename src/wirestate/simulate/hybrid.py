@@ -74,16 +74,13 @@ def simulate_system(
         External outputs and every state (``block.state``) at each output step.
     """
     t = time_grid(until, step)
-    if isinstance(inputs, InputSet):
-        input_set = inputs
-    else:
-        input_set = build_inputs(
-            inputs or {},
-            system.inputs,
-            system.units,
-            defaults=system.input_defaults if use_defaults else None,
-            base=base,
-        )
+    input_set = build_inputs(
+        inputs or {},
+        system.inputs,
+        system.units,
+        defaults=system.input_defaults if use_defaults else None,
+        base=base,
+    )
     engine = _Engine(system, t, step, input_set, rtol, atol)
     return engine.run(progress)
 

@@ -312,7 +312,7 @@ def parse_assignment(text: str) -> tuple[str, str]:
 
 
 def build_inputs(
-    assignments: Mapping[str, str | float | Waveform],
+    assignments: Mapping[str, str | float | Waveform] | InputSet,
     names: Sequence[str],
     units: Mapping[str, str],
     *,
@@ -324,8 +324,10 @@ def build_inputs(
     ``assignments`` maps input names to waveform text, numbers (constants) or
     :class:`Waveform` objects. Inputs not assigned but present in ``defaults`` (a source's
     ``value`` field) are driven by that constant. An assignment to an unknown input raises
-    ``unknown_signal``.
+    ``unknown_signal``. An :class:`InputSet` is returned as it is.
     """
+    if isinstance(assignments, InputSet):
+        return assignments
     waveforms: dict[str, Waveform] = {}
     for name, value in (defaults or {}).items():
         if name in names and value is not None:

@@ -282,16 +282,13 @@ def simulate_linear(
     """
     model = as_linear_model(system)
     t = time_grid(until, step)
-    if isinstance(inputs, InputSet):
-        input_set = inputs
-    else:
-        input_set = build_inputs(
-            inputs or {},
-            model.inputs,
-            model.units,
-            defaults=model.input_defaults if use_defaults else None,
-            base=base,
-        )
+    input_set = build_inputs(
+        inputs or {},
+        model.inputs,
+        model.units,
+        defaults=model.input_defaults if use_defaults else None,
+        base=base,
+    )
     U = input_set.matrix(model.inputs, t)
     x_init = model.x0 if x0 is None else np.asarray(x0, dtype=float)
     if x_init.shape != (model.n_states,):
