@@ -40,6 +40,7 @@ first and (by default) second derivatives by algorithmic differentiation.
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -198,15 +199,35 @@ def _squarings(model: TuningModel, q_sx: Any, zoh_pair: tuple[Any, Any], q_point
     return cexpm.squarings_for_norm(2.0 * float(np.max(norms)))
 
 
+@functools.lru_cache(maxsize=16)
+def _stepping_function(n: int, blocks: int, block: int) -> Any:
+    """``mapaccum`` of a small SX function advancing ``block`` samples of an ``n``-state
+    loop, repeated ``blocks`` times. Cached, so that every corner of a robust problem (and
+    every NLP of the same size) calls the same CasADi function, whose derivative functions
+    CasADi then generates once and keeps."""
+    import casadi
+
+    x = casadi.SX.sym("x", n)
+    w = casadi.SX.sym("w", n, block)
+    P = casadi.SX.sym("Phi", n, n)
+    columns = []
+    state = x
+    for j in range(block):
+        state = casadi.mtimes(P, state) + w[:, j]
+        columns.append(state)
+    steps = casadi.Function("steps", [x, w, P], [state, casadi.horzcat(*columns)])
+    return steps.mapaccum("trajectory", blocks, [0], [0])
+
+
 def _condensed_states(Phi: Any, Gamma: Any, x0: Any, V: np.ndarray) -> Any:
     """State trajectory ``X = [x0, x1, ..., xN]`` as an expression of the loop matrices
     (the states eliminated, as in condensing: Bock and Plitt 1984).
 
     ``x[k+1] = Phi x[k] + w[k]`` with ``w = Gamma v`` formed in one product; the steps run
     through CasADi's ``mapaccum`` over a small SX function that advances ``_BLOCK``
-    samples, so the graph holds ``N / _BLOCK`` calls of one function whose derivatives
-    are generated once (the horizon is padded with zero inputs to a whole number of
-    blocks; the padding is cut off again).
+    samples (:func:`_stepping_function`), so the graph holds ``N / _BLOCK`` calls of one
+    function whose derivatives are generated once (the horizon is padded with zero inputs
+    to a whole number of blocks; the padding is cut off again).
     """
     import casadi
 
@@ -214,16 +235,7 @@ def _condensed_states(Phi: Any, Gamma: Any, x0: Any, V: np.ndarray) -> Any:
     blocks = -(-steps // _BLOCK)
     padded = np.zeros((V.shape[0], blocks * _BLOCK))
     padded[:, :steps] = V[:, :-1]
-    x = casadi.SX.sym("x", n)
-    w = casadi.SX.sym("w", n, _BLOCK)
-    P = casadi.SX.sym("Phi", n, n)
-    columns = []
-    state = x
-    for j in range(_BLOCK):
-        state = casadi.mtimes(P, state) + w[:, j]
-        columns.append(state)
-    block = casadi.Function("steps", [x, w, P], [state, casadi.horzcat(*columns)])
-    run = block.mapaccum("trajectory", blocks, [0], [0])
+    run = _stepping_function(n, blocks, _BLOCK)
     W = casadi.mtimes(Gamma, casadi.DM(padded))
     _, states = run(x0, W, casadi.repmat(Phi, 1, blocks))
     return casadi.horzcat(x0, states[:, :steps])
