@@ -56,3 +56,14 @@ def test_user_mistakes_exit_2_with_one_line(args, fragment, capsys):
     assert code == 2
     err = capsys.readouterr().err
     assert err.startswith("error: ") and fragment in err and "Traceback" not in err
+
+
+def test_first_order_hold_on_a_sampled_system_is_refused(capsys):
+    # battery_drive has a sampled speed controller: its outputs are held between samples,
+    # so a first-order hold cannot apply; the option must not be ignored silently
+    code = main(["simulate", str(MODELS / "systems" / "battery_drive.toml"), "--until",
+                 "1ms", "--step", "2us", "--hold", "foh"])  # fmt: skip
+    assert code == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: ") and "foh" in err and "Traceback" not in err
+    assert "linear time-invariant models only" in err

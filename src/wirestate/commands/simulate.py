@@ -44,7 +44,10 @@ def configure(parser: argparse.ArgumentParser) -> None:
         "--hold",
         choices=("zoh", "foh"),
         default="zoh",
-        help="input hold for LTI models: zero-order (default) or first-order",
+        help=(
+            "input hold for LTI models: zero-order (default) or first-order; systems "
+            "with sampled or nonlinear blocks take zoh only"
+        ),
     )
     parser.add_argument("--rtol", type=float, default=1e-8, help="CVODES relative tolerance")
     parser.add_argument("--atol", type=float, default=1e-10, help="CVODES absolute tolerance")

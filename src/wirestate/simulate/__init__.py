@@ -8,6 +8,7 @@ from pathlib import Path
 from typing import Any
 
 from wirestate.compose import ComposedSystem
+from wirestate.errors import SimulationError
 from wirestate.simulate.discretize import Discretization, foh, zoh
 from wirestate.simulate.hybrid import simulate_system
 from wirestate.simulate.inputs import InputSet, Waveform, build_inputs, parse_waveform
@@ -54,6 +55,16 @@ def simulate(
     ``atol``).
     """
     if isinstance(model, ComposedSystem) and not model.is_linear:
+        if hold != "zoh":
+            # the hybrid engines hold the sampled outputs by construction and take the
+            # external inputs as held (ZOH engine) or exact (CVODES): no other hold exists
+            other = [b.name for b in model.blocks.values() if b.category != "linear"]
+            raise SimulationError(
+                "invalid_field",
+                f"{model.name}: hold {hold!r} applies to linear time-invariant models only; "
+                f"this system has sampled or nonlinear blocks ({', '.join(other)}), which "
+                "are simulated with their outputs held between samples",
+            )
         return simulate_system(
             model, until, step, inputs, use_defaults=use_defaults, base=base,
             progress=progress, **options,
