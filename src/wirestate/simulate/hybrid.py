@@ -311,6 +311,11 @@ class _ZohBackend:
     def finish(self, held_hist):
         e = self.e
         cs = e.cs
+        # the held outputs as recorded, so that a continuous output fed through from a
+        # sampled one sees the value set at t_k at every sample, the last one included
+        # (no step follows the last sample to carry it into U)
+        for row, block, index in self.cut:
+            self.U[row] = held_hist[block][index]
         Y = self.C @ self.X + self.D @ self.U
         rows = []
         for src in cs.external_outputs.values():
