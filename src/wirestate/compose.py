@@ -509,13 +509,7 @@ def build_block(name: str, spec: Any, base: Path | None = None) -> Any:
     """Build one block from its validated system-file table."""
     kind = spec.kind
     if kind == "circuit":
-        path = Path(spec.file)
-        if base is not None and not path.is_absolute():
-            path = base / path
-        circuit = load_circuit(path)
-        if spec.values:
-            circuit = _with_values(circuit, spec.values, name, str(path))
-        block = compile_circuit(circuit)
+        block = compile_circuit(block_circuit(name, spec, base)[0])
         block.name = name
         return block
     if kind == "rotary_inertia":
@@ -554,6 +548,18 @@ def build_block(name: str, spec: Any, base: Path | None = None) -> Any:
     raise CompositionError(
         "unknown_kind", f"unknown block kind {kind!r}", location=("blocks", name)
     )  # pragma: no cover
+
+
+def block_circuit(name: str, spec: Any, base: Path | None = None) -> tuple[Any, Path]:
+    """The validated circuit of a ``kind = "circuit"`` block table (its ``values``
+    replacements applied) and the circuit file's path."""
+    path = Path(spec.file)
+    if base is not None and not path.is_absolute():
+        path = base / path
+    circuit = load_circuit(path)
+    if spec.values:
+        circuit = _with_values(circuit, spec.values, name, str(path))
+    return circuit, path
 
 
 def _with_values(circuit: Any, values: Mapping[str, Any], block: str, file: str) -> Any:
@@ -612,6 +618,7 @@ __all__ = [
     "BlockView",
     "ComposedSystem",
     "LinearPart",
+    "block_circuit",
     "build_block",
     "compose",
     "is_system_file",

@@ -10,6 +10,8 @@ limits, the objective and the stress conditions. Every quantity is read into SI 
     [tuning]
     name = "bus_damping"
     circuit = "drive_bus.toml"  # relative to this file
+    # or: system = "gantry.toml" with block = "bus" (the circuit block whose parts are
+    # sized); the system file's controllers then close the loop, no [controller] table
 
     [variables.Rd]              # part values to size; log-scaled inside the optimiser
     min = "50mohm"
@@ -149,8 +151,29 @@ class _Strict(BaseModel):
 
 class TuningHeader(_Strict):
     name: str = "tuning"
-    circuit: str = Field(description="circuit model file, relative to the tuning file")
+    circuit: str | None = Field(
+        default=None, description="circuit model file, relative to the tuning file"
+    )
+    system: str | None = Field(
+        default=None,
+        description="system file (blocks wired by signal name), relative to the tuning file; "
+        "instead of 'circuit'",
+    )
+    block: str | None = Field(
+        default=None,
+        description="with 'system': the circuit block whose parts are sized and watched",
+    )
     description: str | None = None
+
+    @model_validator(mode="after")
+    def _one_model(self) -> TuningHeader:
+        if (self.circuit is None) == (self.system is None):
+            raise ValueError("give exactly one of 'circuit' and 'system'")
+        if self.system is not None and self.block is None:
+            raise ValueError("with 'system', 'block' names the circuit block to size")
+        if self.circuit is not None and self.block is not None:
+            raise ValueError("'block' applies only with 'system'")
+        return self
 
 
 class DesignVariable(_Strict):
@@ -407,6 +430,11 @@ class TuningSpec(_Strict):
         duplicates = sorted({x for x in labels if labels.count(x) > 1})
         if duplicates:
             raise ValueError(f"limit names must be unique; repeated: {', '.join(duplicates)}")
+        if self.tuning.system is not None and self.controller is not None:
+            raise ValueError(
+                "with 'system' the controllers are blocks of the system file; remove the "
+                "[controller] table"
+            )
         if self.objective.peak_impedance and not any(
             limit.kind == "output_impedance" for limit in self.limits
         ):
@@ -419,7 +447,13 @@ class TuningSpec(_Strict):
 
     @property
     def circuit_path(self) -> Path:
-        return Path(self.base_dir) / self.tuning.circuit
+        """The circuit file (with 'system': see :attr:`system_path`; the design block's
+        file is known once the system file is read)."""
+        return Path(self.base_dir) / (self.tuning.circuit or self.tuning.system or "")
+
+    @property
+    def system_path(self) -> Path | None:
+        return None if self.tuning.system is None else Path(self.base_dir) / self.tuning.system
 
 
 def parse_tuning(

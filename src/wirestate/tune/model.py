@@ -1,4 +1,6 @@
-"""One tuning case: circuit + optional PI loop + scenario, evaluated numerically or symbolically.
+"""One tuning case, evaluated numerically or symbolically: a circuit with an optional PI
+loop, or a circuit block inside a composed system file (its other blocks closing the loop,
+:mod:`wirestate.tune.wiring`), and a scenario.
 
 :class:`TuningModel` reads the circuit named by a tuning file, adds the outputs the limits
 and the stress report need (currents through parts, voltages across capacitors), checks
@@ -17,20 +19,25 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from wirestate.compose import ComposedSystem, block_circuit, system_from_spec
 from wirestate.errors import TuningError, WirestateError
 from wirestate.reduce import compile_circuit, symbolic_state_space
 from wirestate.simulate.discretize import zoh as numeric_zoh
 from wirestate.spec import CircuitSpec, load_circuit
+from wirestate.spec.system import load_system_spec
 from wirestate.spec.tuning import TuningSpec
 from wirestate.tune import expm as cexpm
 from wirestate.tune.loop import REFERENCE, Loop, close_pi, open_loop
+from wirestate.tune.wiring import SystemLoop
 
 CURRENT_PREFIX = "i__"
 VOLTAGE_PREFIX = "v__"
+_WATCH = (CURRENT_PREFIX, VOLTAGE_PREFIX)
 
 #: at most this many toleranced parts span the corners (2**8 = 256 corners)
 MAX_CORNER_PARTS = 8
@@ -65,10 +72,16 @@ class TuningModel:
     def __init__(self, spec: TuningSpec, *, file: str | None = None) -> None:
         self.spec = spec
         self.file = file
-        try:
-            circuit = load_circuit(spec.circuit_path)
-        except WirestateError as exc:
-            raise exc.with_file(str(spec.circuit_path)) from None
+        self.system_loop: SystemLoop | None = None
+        system = None
+        if spec.system_path is not None:
+            circuit, self.circuit_file, system = self._load_system()
+        else:
+            self.circuit_file = spec.circuit_path
+            try:
+                circuit = load_circuit(spec.circuit_path)
+            except WirestateError as exc:
+                raise exc.with_file(str(spec.circuit_path)) from None
         self.base_circuit = circuit
         self.variables = list(spec.variables)
         if spec.solver.robust and not spec.stress.tolerance_corners:
@@ -113,8 +126,17 @@ class TuningModel:
         self.nominal = {n: float(p.value) for n, p in circuit.parts.items() if _has_value(p)}
         self.block = self._compile(self.nominal)
         ctrl = spec.controller
-        self.sampled = ctrl is not None and ctrl.sample_time is not None
-        self.step = float(ctrl.sample_time) if self.sampled else float(spec.scenario.step)
+        if system is not None:
+            self.system_loop = SystemLoop(
+                system, spec.tuning.block, list(self.block.outputs), file=file
+            )
+            period = self.system_loop.sample_time
+            self.sampled = period is not None
+            self.step = float(period) if self.sampled else float(spec.scenario.step)
+            self._check_system_limits()
+        else:
+            self.sampled = ctrl is not None and ctrl.sample_time is not None
+            self.step = float(ctrl.sample_time) if self.sampled else float(spec.scenario.step)
         self.n_steps = max(1, int(round(spec.scenario.horizon / self.step)))
         self.times = np.arange(self.n_steps + 1) * self.step
         loop = self._loop_numeric(self.block)
@@ -126,6 +148,45 @@ class TuningModel:
         self.reference = None
 
     # -- set-up ---------------------------------------------------------------------------
+
+    def _load_system(self) -> tuple[CircuitSpec, Path, ComposedSystem]:
+        """The system file: its design block's circuit, that circuit's file, the system."""
+        path = self.spec.system_path
+        try:
+            system_spec = load_system_spec(path)
+            system = system_from_spec(system_spec, file=path)
+        except WirestateError as exc:
+            raise exc.with_file(str(path)) from None
+        design = self.spec.tuning.block
+        block_spec = system_spec.blocks.get(design)
+        if block_spec is None or block_spec.kind != "circuit":
+            circuits = [n for n, b in system_spec.blocks.items() if b.kind == "circuit"]
+            raise TuningError(
+                "unknown_part",
+                f"block {design!r} is not a circuit block of system {system.name!r} "
+                f"(circuit blocks: {', '.join(circuits) or 'none'})",
+                file=self.file,
+                location=("tuning", "block"),
+            )
+        try:
+            circuit, circuit_file = block_circuit(design, block_spec, Path(path).parent)
+        except WirestateError as exc:
+            raise exc.with_file(str(path)) from None
+        return circuit, circuit_file, system
+
+    def _check_system_limits(self) -> None:
+        if not self.sampled:
+            return
+        for limit in self.spec.limits:
+            if limit.kind in ("damping_ratio", "pole_real_part", "output_impedance"):
+                raise TuningError(
+                    "invalid_limit",
+                    f"limit {limit.label!r} ({limit.kind}) needs a continuous loop; system "
+                    f"{self.system_loop.system.name!r} has sampled blocks "
+                    f"({', '.join(self.system_loop.sampled)})",
+                    file=self.file,
+                    location=("limits", limit.label, "kind"),
+                )
 
     def _watched_parts(self, circuit: CircuitSpec) -> list[str]:
         names: list[str] = []
@@ -182,7 +243,63 @@ class TuningModel:
         try:
             return compile_circuit(self.circuit.with_values(values))
         except WirestateError as exc:
-            raise exc.with_file(str(self.spec.circuit_path)) from None
+            raise exc.with_file(str(self.circuit_file)) from None
+
+    @property
+    def units(self) -> dict[str, str]:
+        """Unit of every output (and input) the limits can name."""
+        if self.system_loop is None:
+            return dict(self.block.units)
+        watch = {o: u for o, u in self.block.units.items() if o.startswith(_WATCH)}
+        return {**self.system_loop.system.units, **watch}
+
+    def _system_outputs(self) -> list[str]:
+        """The outputs of a system case: the system's external outputs, then the design
+        block's watch outputs; each is a row of :attr:`SystemLoop.signals`."""
+        loop = self.system_loop
+        watch = [o for o in self.block.outputs if o.startswith(_WATCH)]
+        return list(loop.system.external_outputs) + watch
+
+    def _system_rows(self, signals: list[str]) -> np.ndarray:
+        """0/1 matrix picking :meth:`_system_outputs` out of ``signals`` (a missing one,
+        such as a sampled output in the continuous part, gives a zero row)."""
+        loop = self.system_loop
+        names = [loop.system.external_outputs[o] for o in loop.system.external_outputs]
+        names += [f"{loop.design}.{o}" for o in self.block.outputs if o.startswith(_WATCH)]
+        S = np.zeros((len(names), len(signals)))
+        for row, name in enumerate(names):
+            if name in signals:
+                S[row, signals.index(name)] = 1.0
+        return S
+
+    def _system_matrices(self, A1: Any, B1: Any, C1: Any, D1: Any, zoh: Any) -> dict[str, Any]:
+        """A system case's loop around the design block's matrices (numpy or CasADi):
+        ``Phi, Gamma, C, D`` over one step and the continuous ``A, B, Cc, Dc`` (with a
+        sampled block's outputs frozen: the ripple response); ``zoh(A, B)`` discretises."""
+        import casadi
+
+        loop = self.system_loop
+        part = loop.continuous_part(A1, B1, C1, D1)
+        numeric = isinstance(part.A, np.ndarray)
+        nw = len(loop.inputs)
+
+        def pick(S: np.ndarray, M: Any) -> Any:
+            return S @ M if numeric else casadi.mtimes(casadi.DM(S), M)
+
+        Sc = self._system_rows(loop.continuous_outputs)
+        Cc, Dc = pick(Sc, part.C), pick(Sc, part.D[:, :nw])
+        if not self.sampled:
+            Phi, Gamma = zoh(part.A, part.B)
+            C, D = Cc, Dc
+        else:
+            Phi0, Gamma0 = zoh(part.A, part.B)
+            Phi, Gamma, C_all, D_all = loop.discrete(part, Phi0, Gamma0)
+            S = self._system_rows(loop.signals)
+            C, D = pick(S, C_all), pick(S, D_all)
+        return {
+            "Phi": Phi, "Gamma": Gamma, "C": C, "D": D,
+            "A": part.A, "B": part.B[:, :nw], "Cc": Cc, "Dc": Dc, "part": part,
+        }  # fmt: skip
 
     def _close_pi(
         self, A: Any, B: Any, C: Any, D: Any, names: dict, sample_time: float | None = None
@@ -205,6 +322,16 @@ class TuningModel:
 
     def _loop_numeric(self, block) -> Loop:
         ctrl = self.spec.controller
+        if self.system_loop is not None:
+            loop = self.system_loop
+            part = loop.continuous_part(block.A, block.B, block.C, block.D)
+            states = loop.all_states if self.sampled else loop.states
+            S = self._system_rows(loop.continuous_outputs)
+            nw = len(loop.inputs)
+            return Loop(
+                part.A, part.B[:, :nw], S @ part.C, S @ part.D[:, :nw], states,
+                list(loop.inputs), self._system_outputs(),
+            )  # fmt: skip
         if ctrl is None:
             return open_loop(
                 block.A, block.B, block.C, block.D, block.states, block.inputs, block.outputs
@@ -267,7 +394,11 @@ class TuningModel:
         scenario = self.spec.scenario
         ctrl = self.spec.controller
         circuit_inputs = list(self.block.inputs)
-        level = {name: float(self.block.input_defaults.get(name) or 0.0) for name in circuit_inputs}
+        defaults = self.block.input_defaults
+        if self.system_loop is not None:
+            circuit_inputs = list(self.system_loop.inputs)
+            defaults = self.system_loop.system.input_defaults
+        level = {name: float(defaults.get(name) or 0.0) for name in circuit_inputs}
         for name, value in scenario.inputs.items():
             if name not in circuit_inputs or (ctrl is not None and name == ctrl.drive):
                 raise TuningError(
@@ -369,6 +500,9 @@ class TuningModel:
         return float(np.abs(M * self.step).sum(axis=0).max())
 
     def _continuous_for_zoh(self, block) -> tuple[np.ndarray, np.ndarray]:
+        if self.system_loop is not None:
+            part = self.system_loop.continuous_part(block.A, block.B, block.C, block.D)
+            return part.A, part.B
         if self.sampled:
             return block.A, block.B
         loop = self._loop_numeric(block)
@@ -408,7 +542,13 @@ class TuningModel:
         """The case at part values ``values`` (others nominal), simulated numerically."""
         all_values = {**self.nominal, **{k: float(v) for k, v in values.items()}}
         block = self._compile(all_values)
-        if self.sampled:
+        if self.system_loop is not None:
+            m = self._system_matrices(
+                block.A, block.B, block.C, block.D, lambda A, B: numeric_zoh(A, B, self.step)
+            )
+            Phi, Gamma, C, D = m["Phi"], m["Gamma"], m["C"], m["D"]
+            loop_c = Loop(m["A"], m["B"], m["Cc"], m["Dc"], [], [], [])
+        elif self.sampled:
             Ad, Bd = numeric_zoh(block.A, block.B, self.step)
             loop_d = self._close_pi(Ad, Bd, block.C, block.D, _names(block), self.step)
             loop_c = self._loop_numeric(block)
@@ -459,6 +599,9 @@ class TuningModel:
             raise exc.with_file(str(self.spec.circuit_path)) from None
         ctrl = self.spec.controller
         names = dict(states=list(ss.states), inputs=list(ss.inputs), outputs=list(ss.outputs))
+        if self.system_loop is not None:
+            part = self.system_loop.continuous_part(ss.A, ss.B, ss.C, ss.D)
+            return {"ss": ss, "loop": None, "names": names, "zoh": (part.A, part.B)}
         if ctrl is None:
             loop_c = open_loop(ss.A, ss.B, ss.C, ss.D, **names)
         else:
@@ -478,7 +621,13 @@ class TuningModel:
         if loop is None:
             loop = self.symbolic_loop(values)
         ss, loop_c, names = loop["ss"], loop["loop"], loop["names"]
-        if self.sampled:
+        if self.system_loop is not None:
+            m = self._system_matrices(
+                ss.A, ss.B, ss.C, ss.D, lambda A, B: cexpm.zoh(A, B, self.step, squarings)
+            )
+            Phi, Gamma, C, D = m["Phi"], m["Gamma"], m["C"], m["D"]
+            loop_c = Loop(m["A"], m["B"], m["Cc"], m["Dc"], [], [], [])
+        elif self.sampled:
             Ad, Bd = cexpm.zoh(ss.A, ss.B, self.step, squarings)
             loop_d = self._close_pi(Ad, Bd, ss.C, ss.D, names, self.step)
             Phi, Gamma, C, D = loop_d.A, loop_d.B, loop_d.C, loop_d.D

@@ -106,7 +106,7 @@ class TuningResult:
 def _limit_unit(model: TuningModel, limit: Limit) -> str:
     if limit.kind in _LIMIT_UNITS:
         return _LIMIT_UNITS[limit.kind]
-    return model.block.units.get(limit.output, "") if limit.output else ""
+    return model.units.get(limit.output, "") if limit.output else ""
 
 
 def limit_margins(
@@ -349,10 +349,15 @@ def solve(
             f"the scenario is stepped at the controller's sample time {model.step:g} s "
             f"(scenario.step {spec.scenario.step:g} s is not used)"
         )
-    if model.sampled:
+    if model.sampled and model.system_loop is None:
         notes.append(
             "poles and impedances of the sampled PI use its continuous counterpart "
             "in the optimiser; the verification uses the discrete loop's poles"
+        )
+    if model.sampled and model.system_loop is not None and spec.stress.ripple is not None:
+        notes.append(
+            "the ripple response holds the outputs of the sampled blocks "
+            f"({', '.join(model.system_loop.sampled)}) constant: the continuous part only"
         )
     # robust: the optimiser imposed the limits at every tolerance corner, so a stopped
     # solver's point is judged (and reported) at its worst corner too
@@ -576,7 +581,7 @@ def _result(
         "start": start_ev.Y,
         "preferred": chosen_ev.Y,
         "optimum": optimum_ev.Y,
-        "units": model.block.units,
+        "units": model.units,
         "limits": [lim.model_dump() for lim in spec.limits],
         "final": {},
         "impedance": [],

@@ -1,0 +1,320 @@
+"""Tuning a circuit block inside a composed system file (``system = ...``, ``block = ...``).
+
+The closed loop of :mod:`wirestate.tune.wiring` is checked three ways: against
+python-control's ``interconnect`` (continuous loop matrices), against the tuning path
+with a ``[controller]`` table that closes the same PI loop by its own formula (trajectories
+and the optimum), and against the hybrid simulator (a sampled PI with a computation
+delay and a sensor filter).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from tests.conftest import MODELS
+from wirestate.cli import main
+from wirestate.errors import TuningError, WirestateError
+from wirestate.simulate import simulate_system
+from wirestate.spec.tuning import load_tuning
+from wirestate.tune.model import TuningModel
+from wirestate.tune.nlp import solve_nlp
+
+BUS = (MODELS / "tuning" / "drive_bus.toml").as_posix()
+
+SYSTEM = """
+    [system]
+    name = "bus_loop"
+    [blocks.bus]
+    kind = "circuit"
+    file = "{bus}"
+    {sensor}
+    [blocks.current_loop]
+    kind = "pi"
+    kp = 0.63
+    ki = 157.0
+    unit = "V"
+    {sampling}
+    [wiring]
+    "bus.Vm" = "current_loop.command"
+    "current_loop.measurement" = "{measured}"
+    {sensor_wiring}
+    [inputs]
+    current_ref = "{reference_target}"
+    Vbat = "bus.Vbat"
+    Iport = "bus.Iport"
+    Eb = "bus.Eb"
+    [outputs]
+    v_bus = "bus.v_bus"
+    i_motor = "bus.i_motor"
+    v_inverter = "current_loop.command"
+    {extra_outputs}
+"""
+
+SENSOR = """
+    [blocks.current_sensor]
+    kind = "sensor_filter"
+    time_constant = "5us"
+    unit = "A"
+"""
+
+TUNING = """
+    [tuning]
+    name = "bus_leg"
+    {model}
+    [variables.Rd]
+    min = "50mohm"
+    max = "5ohm"
+    start = "0.5ohm"
+    [variables.Cd]
+    min = "47uF"
+    max = "4.7mF"
+    start = "1mF"
+    {controller}
+    [scenario]
+    horizon = "6ms"
+    step = "{step}"
+    initial = "{initial}"
+    {inputs}
+    [[scenario.steps]]
+    input = "{reference}"
+    at = "1.02ms"
+    to = "40A"
+    [[limits]]
+    name = "bus_deviation"
+    kind = "overshoot"
+    output = "v_bus"
+    after = "1.02ms"
+    relative_to = "final"
+    max = "3%"
+    [[limits]]
+    name = "damping_current"
+    kind = "peak_current"
+    part = "Rd"
+    max = "4A"
+    [objective]
+    capacitance = 1.0
+    parts = ["Cd"]
+"""
+
+
+SCALE = """
+    [blocks.reference_scale]
+    kind = "gain"
+    gain = 2.0
+    unit = "A"
+    [blocks.command_probe]
+    kind = "gain"
+    gain = 0.5
+    unit = "V"
+"""
+
+
+def _system(write, *, sample_time=None, delay=False, sensor=False, scale=False):
+    # scale: the reference passes through a gain block (a continuous block with direct
+    # feedthrough from an external input into the sampled controller), and a second gain
+    # reads the held command (a continuous output fed through from a sampled one)
+    sampling = ""
+    if sample_time:
+        sampling = f'sample_time = "{sample_time}"' + ("\ndelay = true" if delay else "")
+    return write(
+        "bus_loop.toml",
+        SYSTEM.format(
+            bus=BUS,
+            sensor=(SENSOR if sensor else "") + (SCALE if scale else ""),
+            sampling=sampling,
+            measured="current_sensor.measured" if sensor else "bus.i_motor",
+            sensor_wiring=('"current_sensor.signal" = "bus.i_motor"\n' if sensor else "")
+            + (
+                '"current_loop.reference" = "reference_scale.output"\n'
+                '"command_probe.input" = "current_loop.command"'
+                if scale
+                else ""
+            ),
+            extra_outputs='probe = "command_probe.output"' if scale else "",
+            reference_target="reference_scale.input" if scale else "current_loop.reference",
+        ),
+    )
+
+
+def _system_case(write, *, step="10us", initial="steady_state", ref=("30A", "40A"), **system):
+    _system(write, **system)
+    path = write(
+        "system_tuning.toml",
+        TUNING.format(
+            model='system = "bus_loop.toml"\nblock = "bus"',
+            controller="",
+            step=step,
+            initial=initial,
+            inputs=f'[scenario.inputs]\ncurrent_ref = "{ref[0]}"',
+            reference="current_ref",
+        ).replace('to = "40A"', f'to = "{ref[1]}"'),
+    )
+    return TuningModel(load_tuning(path), file=str(path))
+
+
+def _controller_case(write, *, step="10us", sample_time=None):
+    sampling = f'sample_time = "{sample_time}"' if sample_time else ""
+    path = write(
+        "controller_tuning.toml",
+        TUNING.format(
+            model=f'circuit = "{BUS}"',
+            controller=(
+                '[controller]\nmeasure = "i_motor"\ndrive = "Vm"\nproportional = 0.63\n'
+                f'integral = 157.0\nreference = "30A"\n{sampling}'
+            ),
+            step=step,
+            initial="steady_state",
+            inputs="",
+            reference="reference",
+        ),
+    )
+    return TuningModel(load_tuning(path), file=str(path))
+
+
+def test_continuous_loop_matches_python_control_interconnect(write):
+    # reference: python-control's interconnect (ComposedSystem.state_space) joins the same
+    # blocks numerically; the tuning closure must give the same A and the same B, C, D
+    # columns and rows for the external signals (exact algebra: 1e-9 relative)
+    model = _system_case(write, sensor=True)
+    loop = model.system_loop
+    reference = loop.system.state_space()
+    part = loop.continuous_part(model.block.A, model.block.B, model.block.C, model.block.D)
+    assert loop.states == list(reference.state_labels)
+    scale = np.abs(reference.A).max()
+    np.testing.assert_allclose(part.A, reference.A, rtol=0, atol=1e-9 * scale)
+    rows = [
+        loop.continuous_outputs.index(loop.system.external_outputs[o])
+        for o in reference.output_labels
+    ]
+    np.testing.assert_allclose(part.B, reference.B, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(part.C[rows], reference.C, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(part.D[rows], reference.D, rtol=1e-9, atol=1e-12)
+
+
+@pytest.mark.parametrize("sample_time", [None, "20us"])
+def test_system_file_reproduces_the_controller_table_loop(write, sample_time):
+    # the same PI loop written two ways: as a [controller] table (closed by
+    # wirestate.tune.loop's feedback formula) and as a system file (closed by the general
+    # wiring algebra); trajectories must agree to rounding (1e-9 of the bus voltage)
+    step = sample_time or "10us"
+    by_system = _system_case(write, sample_time=sample_time, step=step)
+    by_table = _controller_case(write, sample_time=sample_time, step=step)
+    values = {"Rd": 0.3, "Cd": 300e-6}
+    ev_s, ev_t = by_system.numeric(values), by_table.numeric(values)
+    for name in ("v_bus", "i_motor", "i__Rd"):
+        ys = ev_s.Y[by_system.outputs.index(name)]
+        yt = ev_t.Y[by_table.outputs.index(name)]
+        np.testing.assert_allclose(ys, yt, rtol=1e-9, atol=1e-9 * np.abs(yt).max())
+
+
+def test_system_path_reaches_the_controller_table_optimum(write):
+    # one NLP, two closures: the optima must agree to IPOPT's tolerance (1e-6 relative)
+    a = solve_nlp(_system_case(write)).values
+    b = solve_nlp(_controller_case(write)).values
+    for name in a:
+        assert a[name] == pytest.approx(b[name], rel=1e-6)
+
+
+@pytest.mark.parametrize("delay", [True, False])
+def test_sampled_loop_with_delay_and_sensor_matches_the_hybrid_simulator(write, delay):
+    # reference: wirestate.simulate.hybrid (the piecewise-exact ZOH engine with its own
+    # sample-instant ordering) on the same system file; both exact at the samples, so
+    # agreement to rounding (1e-8 of the signal's range)
+    model = _system_case(write, sample_time="20us", delay=delay, sensor=True, scale=True,
+                         step="20us", initial="zero", ref=("15A", "20A"))  # fmt: skip
+    ev = model.numeric({})
+    result = simulate_system(
+        model.system_loop.system,
+        6e-3,
+        20e-6,
+        {"current_ref": "step:20A@1.01ms,from=15A"},
+    )
+    for name in ("v_bus", "i_motor", "v_inverter", "probe"):
+        ours = ev.Y[model.outputs.index(name)]
+        theirs = result.outputs[result.output_names.index(name)]
+        assert theirs.shape == ours.shape
+        span = np.ptp(theirs)
+        np.testing.assert_allclose(ours, theirs, rtol=0, atol=1e-8 * span)
+
+
+def test_symbolic_matrices_equal_the_numeric_ones(write):
+    # the CasADi path (tuning) against the numpy path (verification) at a perturbed point
+    import casadi
+
+    model = _system_case(write, sample_time="20us", delay=True, sensor=True, step="20us")
+    values = {"Rd": 0.41, "Cd": 530e-6}
+    numeric = model.numeric(values)
+    m = model.symbolic({k: casadi.DM(v) for k, v in values.items()}, squarings=8)
+    for key, ref in (("Phi", numeric.Phi), ("Gamma", numeric.Gamma), ("C", numeric.C),
+                     ("D", numeric.D)):  # fmt: skip
+        got = np.array(casadi.evalf(m[key]), dtype=float)
+        np.testing.assert_allclose(got, ref, rtol=1e-10, atol=1e-12 * max(np.abs(ref).max(), 1))
+
+
+def test_limited_controller_is_refused_with_the_block_named(write, capsys):
+    _system(write, sample_time="20us")
+    path = write(
+        "system_tuning.toml",
+        TUNING.format(
+            model='system = "bus_loop.toml"\nblock = "bus"', controller="", step="20us",
+            initial="steady_state", inputs='[scenario.inputs]\ncurrent_ref = "30A"',
+            reference="current_ref",
+        ),
+    )  # fmt: skip
+    system = path.parent / "bus_loop.toml"
+    system.write_text(
+        system.read_text().replace('unit = "V"', 'unit = "V"\noutput_limits = ["-48V", "48V"]', 1)
+    )
+    code = main(["tune", str(path)])
+    err = capsys.readouterr().err
+    assert code == 2 and err.startswith("error: ") and "Traceback" not in err
+    assert "current_loop" in err and "not linear" in err
+
+
+@pytest.mark.parametrize(
+    ("change", "fragment"),
+    [
+        (('block = "bus"', 'block = "current_loop"'), "not a circuit block"),
+        (('block = "bus"', 'block = "bus"\ncircuit = "x.toml"'), "exactly one of"),
+        (('block = "bus"\n', ""), "'block' names the circuit block"),
+    ],
+)
+def test_header_mistakes_name_the_field(write, change, fragment, capsys):
+    _system(write)
+    text = TUNING.format(
+        model='system = "bus_loop.toml"\nblock = "bus"\n', controller="", step="10us",
+        initial="steady_state", inputs='[scenario.inputs]\ncurrent_ref = "30A"',
+        reference="current_ref",
+    ).replace(*change)  # fmt: skip
+    path = write("system_tuning.toml", text)
+    code = main(["tune", str(path)])
+    err = capsys.readouterr().err
+    assert code == 2 and err.startswith("error: ") and fragment in err
+
+
+def test_a_pole_limit_on_a_sampled_system_is_refused(write):
+    _system(write, sample_time="20us")
+    text = TUNING.format(
+        model='system = "bus_loop.toml"\nblock = "bus"', controller="", step="20us",
+        initial="steady_state", inputs='[scenario.inputs]\ncurrent_ref = "30A"',
+        reference="current_ref",
+    ) + '\n[[limits]]\nname = "poles"\nkind = "pole_real_part"\nmax = "-100"\n'  # fmt: skip
+    path = write("system_tuning.toml", text)
+    with pytest.raises(TuningError, match="needs a continuous loop"):
+        TuningModel(load_tuning(path), file=str(path))
+
+
+def test_a_controller_table_beside_a_system_is_refused(write):
+    _system(write)
+    text = TUNING.format(
+        model='system = "bus_loop.toml"\nblock = "bus"',
+        controller=(
+            '[controller]\nmeasure = "i_motor"\ndrive = "Vm"\nproportional = 1.0\n'
+            "integral = 1.0"
+        ),
+        step="10us", initial="steady_state", inputs="", reference="current_ref",
+    )  # fmt: skip
+    path = write("system_tuning.toml", text)
+    with pytest.raises(WirestateError, match="remove the"):
+        load_tuning(path)
