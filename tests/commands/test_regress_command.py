@@ -267,3 +267,22 @@ def test_a_tightened_limit_in_a_bundled_tuning_file_moves_the_tuned_values(tmp_p
     out = capsys.readouterr().out
     assert code == 1, out
     assert re.search(r"drive_bus_damping\.toml\s+tuned\.optimum\s+Cd\s", out), out
+
+
+def test_a_changed_sample_time_needs_update_which_derives_a_new_grid(tmp_path, capsys):
+    # the golden file keeps its sample grid; a controller period that no longer fits it
+    # is an error that says how to proceed, and --update derives a new grid
+    models, goldens = tmp_path / "models", tmp_path / "golden"
+    models.mkdir()
+    for name in ("drive_bus.toml", "drive_bus_loop.toml"):
+        shutil.copy(MODELS / "tuning" / name, models / name)
+    system = models / "drive_bus_loop.toml"
+    args = [str(system), "--golden", str(goldens)]
+    assert main(["regress", *args, "--update"]) == 0
+    system.write_text(system.read_text().replace('sample_time = "50us"', 'sample_time = "70us"'))
+    capsys.readouterr()
+    assert main(["regress", *args]) == 2
+    assert "regress --update" in capsys.readouterr().err
+    assert main(["regress", *args, "--update"]) == 0
+    assert "new sample grid" in capsys.readouterr().out
+    assert main(["regress", *args]) == 0

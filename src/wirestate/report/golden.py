@@ -304,7 +304,8 @@ def regress_file(
     Returns the outcome; a user error (unreadable model, missing or invalid golden file)
     is captured as status ``"error"`` so the remaining models are still checked.
     With ``update`` the golden file is rewritten atomically when anything changed; its
-    tolerances and sample grid are kept (delete the file to derive a new grid).
+    tolerances and sample grid are kept; a grid that no longer fits the model (a changed
+    sample time) is derived anew, with a message.
     """
     from wirestate.errors import WirestateError
     from wirestate.report import signature as sig
@@ -333,8 +334,24 @@ def regress_file(
                 )
             golden = None
         grid = sig.signature_grid(golden["signature"]) if golden else None
-        current = file_signature(path, outcome.kind, grid)
-        if golden is not None:
+        try:
+            current = file_signature(path, outcome.kind, grid)
+        except WirestateError as exc:
+            if grid is None:
+                raise
+            if not update:
+                exc.message += (
+                    " (the golden file's sample grid no longer fits the model; "
+                    "'wirestate regress --update' derives a new one)"
+                )
+                exc.args = (str(exc),)
+                raise
+            # the model changed so that the kept grid no longer applies (a new sample
+            # time, say): derive a new grid, keep the tolerances, compare nothing
+            outcome.message = f"new sample grid: the kept one no longer fits ({exc.message})"
+            current = file_signature(path, outcome.kind, None)
+            golden = {**golden, "signature": None}
+        if golden is not None and golden["signature"] is not None:
             outcome.drifts += sig.compare_signatures(
                 golden["signature"], current, golden["tolerances"]
             )
