@@ -216,20 +216,22 @@ def test_system_path_reaches_the_controller_table_optimum(write):
         assert a[name] == pytest.approx(b[name], rel=1e-6)
 
 
-@pytest.mark.parametrize("delay", [True, False])
-def test_sampled_loop_with_delay_and_sensor_matches_the_hybrid_simulator(write, delay):
+@pytest.mark.parametrize(("delay", "step"), [(True, "20us"), (False, "20us"), (True, "5us")])
+def test_sampled_loop_with_delay_and_sensor_matches_the_hybrid_simulator(write, delay, step):
     # reference: wirestate.simulate.hybrid (the piecewise-exact ZOH engine with its own
     # sample-instant ordering) on the same system file; both exact at the samples, so
     # agreement to rounding (1e-8 of the signal's range)
+    # (step 5us: four output steps per sample, the outputs between the samples included)
     model = _system_case(write, sample_time="20us", delay=delay, sensor=True, scale=True,
-                         step="20us", initial="zero", ref=("15A", "20A"))  # fmt: skip
+                         step=step, initial="zero", ref=("15A", "20A"))  # fmt: skip
     ev = model.numeric({})
     result = simulate_system(
         model.system_loop.system,
         6e-3,
-        20e-6,
+        model.output_step,
         {"current_ref": "step:20A@1.01ms,from=15A"},
     )
+    np.testing.assert_allclose(result.time, model.times, rtol=0, atol=1e-15)
     for name in ("v_bus", "i_motor", "v_inverter", "probe"):
         ours = ev.Y[model.outputs.index(name)]
         theirs = result.outputs[result.output_names.index(name)]
@@ -239,10 +241,11 @@ def test_sampled_loop_with_delay_and_sensor_matches_the_hybrid_simulator(write, 
 
 
 def test_symbolic_matrices_equal_the_numeric_ones(write):
-    # the CasADi path (tuning) against the numpy path (verification) at a perturbed point
+    # the CasADi path (tuning) against the numpy path (verification) at a perturbed point,
+    # with two output steps per sample (the maps between the samples included)
     import casadi
 
-    model = _system_case(write, sample_time="20us", delay=True, sensor=True, step="20us")
+    model = _system_case(write, sample_time="20us", delay=True, sensor=True, step="10us")
     values = {"Rd": 0.41, "Cd": 530e-6}
     numeric = model.numeric(values)
     m = model.symbolic({k: casadi.DM(v) for k, v in values.items()}, squarings=8)
@@ -250,6 +253,14 @@ def test_symbolic_matrices_equal_the_numeric_ones(write):
                      ("D", numeric.D)):  # fmt: skip
         got = np.array(casadi.evalf(m[key]), dtype=float)
         np.testing.assert_allclose(got, ref, rtol=1e-10, atol=1e-12 * max(np.abs(ref).max(), 1))
+    Y = np.array(casadi.evalf(model.evaluation(m, values, casadi.DM(numeric.X)).Y))
+    assert Y.shape == numeric.Y.shape == (len(model.outputs), 2 * model.n_steps + 1)
+    np.testing.assert_allclose(Y, numeric.Y, rtol=1e-10, atol=1e-10 * np.abs(numeric.Y).max())
+
+
+def test_a_scenario_step_that_does_not_divide_the_period_is_refused(write):
+    with pytest.raises(TuningError, match="must divide the sample time"):
+        _system_case(write, sample_time="20us", step="15us")
 
 
 def test_limited_controller_is_refused_with_the_block_named(write, capsys):

@@ -172,7 +172,7 @@ def resistor_energy(model: TuningModel, ev: Evaluation, part: str) -> Any:
     """``R * integral(i^2 dt)`` over the horizon, trapezoidal rule on the samples (J)."""
     i = _row(ev, model.outputs.index(CURRENT_PREFIX + part), slice(None))
     R = ev.values[part]
-    h = model.step
+    h = model.output_step
     if ev.symbolic:
         cas = _cas()
         sq = i**2
@@ -189,8 +189,8 @@ def integral_squared_error(model: TuningModel, ev: Evaluation, output: str) -> A
     e2 = (y - y_f) ** 2
     if ev.symbolic:
         cas = _cas()
-        return model.step * (cas.sum1(e2) - 0.5 * (e2[0] + e2[-1]))
-    return model.step * (e2.sum() - 0.5 * (e2[0] + e2[-1]))
+        return model.output_step * (cas.sum1(e2) - 0.5 * (e2[0] + e2[-1]))
+    return model.output_step * (e2.sum() - 0.5 * (e2[0] + e2[-1]))
 
 
 def _pole_matrix(limit: Limit, A: Any, symbolic: bool) -> Any:

@@ -133,12 +133,18 @@ class TuningModel:
             period = self.system_loop.sample_time
             self.sampled = period is not None
             self.step = float(period) if self.sampled else float(spec.scenario.step)
+            self.substeps = self._substeps() if self.sampled else 1
             self._check_system_limits()
         else:
             self.sampled = ctrl is not None and ctrl.sample_time is not None
             self.step = float(ctrl.sample_time) if self.sampled else float(spec.scenario.step)
+            self.substeps = 1
         self.n_steps = max(1, int(round(spec.scenario.horizon / self.step)))
-        self.times = np.arange(self.n_steps + 1) * self.step
+        #: output step: the scenario step between the samples of a sampled system (the
+        #: continuous part advanced exactly within each period), else the stepping step
+        self.output_step = self.step / self.substeps
+        #: times of the output samples (``Evaluation.Y`` columns), every ``output_step``
+        self.times = np.arange(self.n_steps * self.substeps + 1) * self.output_step
         loop = self._loop_numeric(self.block)
         self.states = loop.states
         self.inputs = loop.inputs
@@ -173,6 +179,21 @@ class TuningModel:
         except WirestateError as exc:
             raise exc.with_file(str(path)) from None
         return circuit, circuit_file, system
+
+    def _substeps(self) -> int:
+        """Output steps per sample period of a sampled system: the period over the
+        scenario step, which must divide it."""
+        ratio = self.step / float(self.spec.scenario.step)
+        m = round(ratio)
+        if m < 1 or abs(ratio - m) > 1e-9 * max(ratio, 1.0):
+            raise TuningError(
+                "invalid_step",
+                f"scenario.step {self.spec.scenario.step:g} s must divide the sample time "
+                f"{self.step:g} s of system {self.system_loop.system.name!r}",
+                file=self.file,
+                location=("scenario", "step"),
+            )
+        return m
 
     def _check_system_limits(self) -> None:
         if not self.sampled:
@@ -291,13 +312,16 @@ class TuningModel:
         if not self.sampled:
             Phi, Gamma = zoh(part.A, part.B)
             C, D = Cc, Dc
+            outputs = [(C, D)]
         else:
-            Phi0, Gamma0 = zoh(part.A, part.B)
-            Phi, Gamma, C_all, D_all = loop.discrete(part, Phi0, Gamma0)
+            # zoh is taken over the output step; the period is made of substeps of it
+            Phi_h, Gamma_h = zoh(part.A, part.B)
+            Phi, Gamma, maps = loop.discrete(part, Phi_h, Gamma_h, self.substeps)
             S = self._system_rows(loop.signals)
-            C, D = pick(S, C_all), pick(S, D_all)
+            outputs = [(pick(S, Cj), pick(S, Dj)) for Cj, Dj in maps]
+            C, D = outputs[0]
         return {
-            "Phi": Phi, "Gamma": Gamma, "C": C, "D": D,
+            "Phi": Phi, "Gamma": Gamma, "C": C, "D": D, "outputs": outputs,
             "A": part.A, "B": part.B[:, :nw], "Cc": Cc, "Dc": Dc, "part": part,
         }  # fmt: skip
 
@@ -497,7 +521,12 @@ class TuningModel:
         block = self._compile({**self.nominal, **values})
         A, B = self._continuous_for_zoh(block)
         M = np.block([[A, B], [np.zeros((B.shape[1], A.shape[0] + B.shape[1]))]])
-        return float(np.abs(M * self.step).sum(axis=0).max())
+        return float(np.abs(M * self.zoh_step).sum(axis=0).max())
+
+    @property
+    def zoh_step(self) -> float:
+        """The step over which the matrix exponential is taken (see :meth:`step_norm`)."""
+        return self.output_step if self.system_loop is not None else self.step
 
     def _continuous_for_zoh(self, block) -> tuple[np.ndarray, np.ndarray]:
         if self.system_loop is not None:
@@ -544,9 +573,10 @@ class TuningModel:
         block = self._compile(all_values)
         if self.system_loop is not None:
             m = self._system_matrices(
-                block.A, block.B, block.C, block.D, lambda A, B: numeric_zoh(A, B, self.step)
+                block.A, block.B, block.C, block.D, lambda A, B: numeric_zoh(A, B, self.zoh_step)
             )
             Phi, Gamma, C, D = m["Phi"], m["Gamma"], m["C"], m["D"]
+            output_maps = m["outputs"]
             loop_c = Loop(m["A"], m["B"], m["Cc"], m["Dc"], [], [], [])
         elif self.sampled:
             Ad, Bd = numeric_zoh(block.A, block.B, self.step)
@@ -557,13 +587,15 @@ class TuningModel:
             loop_c = self._loop_numeric(block)
             Phi, Gamma = numeric_zoh(loop_c.A, loop_c.B, self.step)
             C, D = loop_c.C, loop_c.D
+        if self.system_loop is None:
+            output_maps = [(C, D)]
         V = self.schedule
         n = Phi.shape[0]
         X = np.zeros((n, self.n_steps + 1))
         X[:, 0] = self.initial_state(Phi, Gamma) if initial is None else initial
         for k in range(self.n_steps):
             X[:, k + 1] = Phi @ X[:, k] + Gamma @ V[:, k]
-        Y = C @ X + D @ V
+        Y = self._outputs_between(output_maps, X, V)
         return Evaluation(
             Phi,
             Gamma,
@@ -577,6 +609,35 @@ class TuningModel:
             False,
             {"Cc": loop_c.C, "Dc": loop_c.D},
         )
+
+    def _outputs_between(self, maps: list[tuple[Any, Any]], X: Any, V: Any) -> Any:
+        """Outputs at every output step: ``maps[j] = (C_j, D_j)`` give the outputs ``j``
+        output steps after each sample from that sample's state and inputs (``j = 0``: at
+        the sample); the last column is the final sample. numpy or CasADi."""
+        C0, D0 = maps[0]
+        if len(maps) == 1:
+            if isinstance(X, np.ndarray):
+                return C0 @ X + D0 @ V
+            import casadi
+
+            return casadi.mtimes(C0, X) + casadi.mtimes(D0, casadi.DM(V))
+        m, n_out = len(maps), C0.shape[0]
+        if isinstance(X, np.ndarray):
+            Y = np.empty((n_out, self.n_steps * m + 1))
+            for j, (Cj, Dj) in enumerate(maps):
+                Y[:, j : self.n_steps * m : m] = Cj @ X[:, :-1] + Dj @ V[:, :-1]
+            Y[:, -1] = C0 @ X[:, -1] + D0 @ V[:, -1]
+            return Y
+        import casadi
+
+        Vd = casadi.DM(V)
+        # stacked (j, output) rows per sample, reshaped column-major: column k*m + j
+        stacked = casadi.vertcat(
+            *[casadi.mtimes(Cj, X[:, :-1]) + casadi.mtimes(Dj, Vd[:, :-1]) for Cj, Dj in maps]
+        )
+        body = casadi.reshape(stacked, n_out, self.n_steps * m)
+        last = casadi.mtimes(C0, X[:, -1]) + casadi.mtimes(D0, Vd[:, -1])
+        return casadi.horzcat(body, last)
 
     def initial_state(self, Phi: Any, Gamma: Any) -> Any:
         """Steady state of the loop at the first input sample, or zero (scenario.initial)."""
@@ -596,7 +657,7 @@ class TuningModel:
         try:
             ss = symbolic_state_space(self.circuit, values)
         except WirestateError as exc:
-            raise exc.with_file(str(self.spec.circuit_path)) from None
+            raise exc.with_file(str(self.circuit_file)) from None
         ctrl = self.spec.controller
         names = dict(states=list(ss.states), inputs=list(ss.inputs), outputs=list(ss.outputs))
         if self.system_loop is not None:
@@ -623,9 +684,10 @@ class TuningModel:
         ss, loop_c, names = loop["ss"], loop["loop"], loop["names"]
         if self.system_loop is not None:
             m = self._system_matrices(
-                ss.A, ss.B, ss.C, ss.D, lambda A, B: cexpm.zoh(A, B, self.step, squarings)
+                ss.A, ss.B, ss.C, ss.D, lambda A, B: cexpm.zoh(A, B, self.zoh_step, squarings)
             )
             Phi, Gamma, C, D = m["Phi"], m["Gamma"], m["C"], m["D"]
+            output_maps = m["outputs"]
             loop_c = Loop(m["A"], m["B"], m["Cc"], m["Dc"], [], [], [])
         elif self.sampled:
             Ad, Bd = cexpm.zoh(ss.A, ss.B, self.step, squarings)
@@ -634,6 +696,8 @@ class TuningModel:
         else:
             Phi, Gamma = cexpm.zoh(loop_c.A, loop_c.B, self.step, squarings)
             C, D = loop_c.C, loop_c.D
+        if self.system_loop is None:
+            output_maps = [(C, D)]
         import casadi
 
         # steady states at the input columns the limits refer to, and the initial state,
@@ -655,6 +719,10 @@ class TuningModel:
             "Dc": loop_c.D,
             "steady": Yss,
             "x0": x0,
+            # the output maps between samples (j output steps after each sample), flat so
+            # that every entry is one matrix
+            **{f"C_sub{j}": Cj for j, (Cj, _) in enumerate(output_maps) if j},
+            **{f"D_sub{j}": Dj for j, (_, Dj) in enumerate(output_maps) if j},
         }
 
     def steady_columns(self) -> list[int]:
@@ -666,10 +734,12 @@ class TuningModel:
 
     def evaluation(self, matrices: dict[str, Any], values: dict[str, Any], X: Any) -> Evaluation:
         """A symbolic :class:`Evaluation` from :meth:`symbolic` matrices and states ``X``."""
-        import casadi
 
         m = matrices
-        Y = casadi.mtimes(m["C"], X) + casadi.mtimes(m["D"], casadi.DM(self.schedule))
+        maps = [(m["C"], m["D"])] + [
+            (m[f"C_sub{j}"], m[f"D_sub{j}"]) for j in range(1, self.substeps)
+        ]
+        Y = self._outputs_between(maps, X, self.schedule)
         return Evaluation(
             m["Phi"],
             m["Gamma"],

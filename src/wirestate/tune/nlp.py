@@ -187,7 +187,7 @@ def _squarings(model: TuningModel, q_sx: Any, zoh_pair: tuple[Any, Any], q_point
     import casadi
 
     A, B = zoh_pair
-    norm = model.step * casadi.fmax(
+    norm = model.zoh_step * casadi.fmax(
         casadi.mmax(casadi.sum1(casadi.fabs(A))), casadi.mmax(casadi.sum1(casadi.fabs(B)))
     )
     fn = casadi.Function("step_norm", [q_sx], [norm])
@@ -503,7 +503,7 @@ def _add_limits(
     """
     import casadi
 
-    samples = model.n_steps + 1
+    samples = len(model.times)  # output samples (the energy state runs on them)
     for lim in model.spec.limits:
         if lim.kind in ("damping_ratio", "pole_real_part"):
             # Routh-Hurwitz entries of a normalised polynomial: order one, strictly negative
@@ -517,14 +517,14 @@ def _add_limits(
             E = Es * energy_scale
             i = ev.Y[model.outputs.index(CURRENT_PREFIX + lim.part), :].T
             R = ev.values[lim.part]
-            increments = 0.5 * model.step * R * (i[:-1] ** 2 + i[1:] ** 2)
+            increments = 0.5 * model.output_step * R * (i[:-1] ** 2 + i[1:] ** 2)
             add((E[1:] - E[:-1] - increments) / energy_scale, 0.0, 0.0)
             add(Es[0], 0.0, 0.0)
             add(Es[-1] - float(lim.max) / energy_scale, -casadi.inf, 0.0)
             i0 = corner_start.Y[model.outputs.index(CURRENT_PREFIX + lim.part), :]
             R0 = corner_start.values[lim.part]
             running = np.concatenate(
-                [[0.0], np.cumsum(0.5 * model.step * R0 * (i0[:-1] ** 2 + i0[1:] ** 2))]
+                [[0.0], np.cumsum(0.5 * model.output_step * R0 * (i0[:-1] ** 2 + i0[1:] ** 2))]
             )
             decision.append(Es)
             x_start.append(running / energy_scale)

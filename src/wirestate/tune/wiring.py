@@ -15,9 +15,11 @@ composition refused algebraic loops. This is the interconnection that
 ``control.interconnect`` forms numerically (a test checks the two agree); here it also runs
 on CasADi expressions.
 
-Sampled blocks (one common period ``Ts``, the tuning step) see the continuous part through
-its zero-order hold over ``Ts`` (``Phi, [Gw, Gs]``: the held outputs ``ys`` of the sampled
-blocks are inputs between samples). At a sample, with ``yc = Cy x + Dyw w + Dys ys`` and
+Sampled blocks (one common period ``Ts``, the stepping period of the tuning) see the
+continuous part through its zero-order hold over ``Ts`` (``Phi, [Gw, Gs]``: the held
+outputs ``ys`` of the sampled blocks are inputs between samples), formed as the power
+``Phi_h**m`` of the hold over the output step ``h = Ts / m``, whose lower powers give the
+outputs between the samples. At a sample, with ``yc = Cy x + Dyw w + Dys ys`` and
 the sampled blocks ``xs+ = As xs + Bs us``, ``ys = Cs xs + Ds us``, ``us = Ksc yc + Kss ys +
 Es w``, the held outputs solve::
 
@@ -177,16 +179,32 @@ class SystemLoop:
         Bcl = mt(B, mt(K, Dy)) + mt(B, G)
         return ContinuousPart(*(_back(m, numeric) for m in (Acl, Bcl, Cy, Dy)))
 
-    def discrete(self, part: ContinuousPart, Phi: Any, Gamma: Any) -> tuple[Any, Any, Any, Any]:
-        """The discrete loop over one sample from the continuous part and its zero-order
-        hold ``(Phi, Gamma)`` over the sample time: ``(Phi_cl, Gamma_cl, C, D)`` in the
-        states :attr:`all_states`, inputs :attr:`inputs`, outputs :attr:`signals`."""
+    def discrete(
+        self, part: ContinuousPart, Phi_h: Any, Gamma_h: Any, substeps: int = 1
+    ) -> tuple[Any, Any, list[tuple[Any, Any]]]:
+        """The discrete loop over one sample period from the continuous part and its
+        zero-order hold ``(Phi_h, Gamma_h)`` over ``period / substeps``.
+
+        Returns ``(Phi_cl, Gamma_cl, maps)``: the loop over one period in the states
+        :attr:`all_states` and inputs :attr:`inputs`, and ``maps[j] = (C_j, D_j)`` giving
+        the outputs :attr:`signals` ``j`` substeps after a sample (``j = 0``: at the
+        sample) from the state and inputs at that sample: the continuous part advanced by
+        ``Phi_h**j`` with the sampled outputs held, those outputs themselves constant.
+        """
         import casadi
 
-        numeric = _numeric(Phi, Gamma, part.C, part.D)
+        numeric = _numeric(Phi_h, Gamma_h, part.C, part.D)
         mt = casadi.mtimes
         nw, nx = len(self.inputs), len(self.states)
-        Phi, Gamma, Cy, Dy = (casadi.DM(m) if numeric else m for m in (Phi, Gamma, part.C, part.D))
+        Phi_h, Gamma_h, Cy, Dy = (
+            casadi.DM(m) if numeric else m for m in (Phi_h, Gamma_h, part.C, part.D)
+        )
+        # powers over the substeps: x(t_k + j h) = P_j x_k + G_j [w; ys]
+        powers = [(casadi.DM.eye(nx), casadi.DM.zeros(nx, Gamma_h.shape[1]))]
+        for _ in range(substeps):
+            P, G = powers[-1]
+            powers.append((mt(Phi_h, P), mt(Phi_h, G) + Gamma_h))
+        Phi, Gamma = powers[-1]
         Gw, Gs = Gamma[:, :nw], Gamma[:, nw:]
         Dyw, Dys = Dy[:, :nw], Dy[:, nw:]
         fixed = [self._fixed[n] for n in self.sampled]
@@ -206,9 +224,16 @@ class SystemLoop:
         Gamma_cl = casadi.vertcat(Gw, mt(Bs, mt(Ksc, Dyw) + Es)) + mt(
             casadi.vertcat(Gs, mt(Bs, through)), Yw
         )
-        C_out = casadi.vertcat(mt(Cy, select_x) + mt(Dys, Yx), Yx)
-        D_out = casadi.vertcat(Dyw + mt(Dys, Yw), Yw)
-        return tuple(_back(m, numeric) for m in (Phi_cl, Gamma_cl, C_out, D_out))
+        maps = []
+        for P, G in powers[:substeps]:
+            # continuous outputs j substeps on: Cy x_j + Dyw w + Dys ys, with
+            # x_j = P x_k + Gw_j w + Gs_j ys and ys = Yx z + Yw w held
+            Gw_j, Gs_j = G[:, :nw], G[:, nw:]
+            via_held = mt(Cy, Gs_j) + Dys
+            C_j = casadi.vertcat(mt(mt(Cy, P), select_x) + mt(via_held, Yx), Yx)
+            D_j = casadi.vertcat(mt(Cy, Gw_j) + Dyw + mt(via_held, Yw), Yw)
+            maps.append((_back(C_j, numeric), _back(D_j, numeric)))
+        return _back(Phi_cl, numeric), _back(Gamma_cl, numeric), maps
 
 
 def _numeric(*items: Any) -> bool:
