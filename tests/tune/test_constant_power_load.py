@@ -195,8 +195,10 @@ def test_tuned_leg_restores_stability_and_meets_the_bus_limit(write):
 
 
 def test_sampled_current_controller_matches_an_independent_discrete_loop(write):
-    # the same case with the PI sampled at 20 us: the tool's verified bus trajectory must
-    # equal a hand-written loop on scipy's ZOH discretisation (scipy.signal.cont2discrete)
+    # the same case with the PI sampled at 20 us and the scenario step 10 us: the tool's
+    # verified bus trajectory, between the samples too, must equal a hand-written loop on
+    # scipy's ZOH discretisation (scipy.signal.cont2discrete) over the 10 us output step,
+    # the command held for two of them
     from scipy.signal import cont2discrete
 
     circuit = MODELS / "drive_bus.toml"
@@ -207,21 +209,24 @@ def test_sampled_current_controller_matches_an_independent_discrete_loop(write):
     assert result.feasible
     chosen = {k: v["preferred"] for k, v in result.variables.items()}
     block = compile_circuit(load_block(circuit).spec.with_values(chosen))
-    ts = 20e-6
-    Ad, Bd, *_ = cont2discrete((block.A, block.B, block.C, block.D), ts, method="zoh")
+    ts, h = 20e-6, 10e-6
+    Ad, Bd, *_ = cont2discrete((block.A, block.B, block.C, block.D), h, method="zoh")
     j, m = block.inputs.index("Vm"), block.outputs.index("i_motor")
     bus = block.outputs.index("v_bus")
     u = np.array([block.input_defaults.get(name) or 0.0 for name in block.inputs])
     x = np.linalg.solve(block.A, -block.B @ u)  # operating point: i_motor = 30 A
     z = u[j]  # the integrator holds the operating command (state = ki * integral of e)
     v_bus = []
-    for t in result.responses["times"]:
-        r = 40.0 if t >= 1e-3 - 1e-12 else 30.0
-        e = r - block.C[m] @ x
-        u[j] = 0.63 * e + z
+    times = result.responses["times"]
+    assert times[1] == pytest.approx(h, rel=1e-12)
+    for n, t in enumerate(times):
+        if n % 2 == 0:  # a controller sample
+            r = 40.0 if t >= 1e-3 - 1e-12 else 30.0
+            e = r - block.C[m] @ x
+            u[j] = 0.63 * e + z
+            z = z + 157.0 * ts * e
         v_bus.append(block.C[bus] @ x + block.D[bus] @ u)
         x = Ad @ x + Bd @ u
-        z = z + 157.0 * ts * e
     v_tool = result.responses["preferred"][result.responses["index"]["v_bus"]]
     # two exact ZOH discretisations (Pade in both): 1e-9 relative
     assert v_tool == pytest.approx(np.array(v_bus), rel=1e-9)

@@ -240,12 +240,16 @@ def test_sampled_loop_with_delay_and_sensor_matches_the_hybrid_simulator(write, 
         np.testing.assert_allclose(ours, theirs, rtol=0, atol=1e-8 * span)
 
 
-def test_symbolic_matrices_equal_the_numeric_ones(write):
+@pytest.mark.parametrize("path", ["system", "controller"])
+def test_symbolic_matrices_equal_the_numeric_ones(write, path):
     # the CasADi path (tuning) against the numpy path (verification) at a perturbed point,
     # with two output steps per sample (the maps between the samples included)
     import casadi
 
-    model = _system_case(write, sample_time="20us", delay=True, sensor=True, step="10us")
+    if path == "system":
+        model = _system_case(write, sample_time="20us", delay=True, sensor=True, step="10us")
+    else:
+        model = _controller_case(write, sample_time="20us", step="10us")
     values = {"Rd": 0.41, "Cd": 530e-6}
     numeric = model.numeric(values)
     m = model.symbolic({k: casadi.DM(v) for k, v in values.items()}, squarings=8)
@@ -261,6 +265,22 @@ def test_symbolic_matrices_equal_the_numeric_ones(write):
 def test_a_scenario_step_that_does_not_divide_the_period_is_refused(write):
     with pytest.raises(TuningError, match="must divide the sample time"):
         _system_case(write, sample_time="20us", step="15us")
+    with pytest.raises(TuningError, match="must divide the sample time"):
+        _controller_case(write, sample_time="20us", step="15us")
+
+
+def test_controller_table_and_system_agree_between_the_samples(write):
+    # the two closures' maps between the samples, on the same loop (no delay, no sensor):
+    # 1e-9 of the bus voltage at every 5 us output step of a 20 us sampled PI
+    values = {"Rd": 0.3, "Cd": 300e-6}
+    system = _system_case(write, sample_time="20us", step="5us")
+    table = _controller_case(write, sample_time="20us", step="5us")
+    by_system, by_table = system.numeric(values), table.numeric(values)
+    assert by_table.Y.shape[1] == 4 * table.n_steps + 1
+    for name in ("v_bus", "i__Rd"):
+        yt = by_table.Y[table.outputs.index(name)]
+        ys = by_system.Y[system.outputs.index(name)]
+        np.testing.assert_allclose(ys, yt, rtol=1e-9, atol=1e-9 * np.abs(yt).max())
 
 
 def test_limited_controller_is_refused_with_the_block_named(write, capsys):

@@ -208,7 +208,8 @@ class Controller(_Strict):
     """A PI controller: ``drive = offset + kp e + ki int e``, ``e = reference - measure``.
 
     With ``sample_time`` the PI is sampled (forward-Euler integral) and its output held
-    by a zero-order hold; the scenario step is then set to the sample time.
+    by a zero-order hold; the scenario step must divide the sample time, and the limits
+    are checked at every scenario step, between the samples too.
     """
 
     measure: str = Field(description="circuit output the controller measures")

@@ -158,3 +158,79 @@ def close_loop(
 def open_loop(A: Any, B: Any, C: Any, D: Any, states, inputs, outputs) -> Loop:
     """No controller: the circuit itself."""
     return Loop(A, B, C, D, list(states), list(inputs), list(outputs))
+
+
+def held_output_maps(
+    loop: Loop,
+    powers: list[tuple[Any, Any]],
+    C: Any,
+    D: Any,
+    *,
+    inputs: list[str],
+    drive: str,
+) -> list[tuple[Any, Any]]:
+    """Outputs between the samples of a sampled loop closed by :func:`close_pi`.
+
+    ``loop`` is the discrete loop over the period (states ``[x..., controller...]``,
+    inputs ``[w..., reference]``, outputs ``[y..., controller_output]``); ``powers[j] =
+    (P_j, G_j)`` advance the circuit ``j`` output steps with its inputs held (``x_j = P_j x
+    + G_j u``, ``P_0 = I``, ``G_0 = 0``); ``C, D`` are the circuit's output matrices and
+    ``inputs`` its input names. The command ``u_k = Cu z + Du v`` (the loop's last output
+    row) is held over the period, so ``j`` steps after a sample the circuit outputs are
+    ``C x_j + D u`` with ``u = Ew w + e_drive u_k``; the last row stays ``u_k``.
+
+    Returns ``[(C_j, D_j)]`` in the loop's states, inputs and outputs (``j = 0`` gives the
+    loop's own ``C, D``). numpy in, numpy out; CasADi in, CasADi out.
+    """
+    import casadi
+
+    numeric = not _is_casadi(loop.A, loop.C, C, D, *[m for pair in powers for m in pair])
+    as_cas = (lambda m: casadi.DM(np.atleast_2d(np.asarray(m, dtype=float)))) if numeric else (
+        lambda m: m
+    )  # fmt: skip
+    mt = casadi.mtimes
+    Cl, Dl, Cc, Dc = (as_cas(m) for m in (loop.C, loop.D, C, D))
+    nx, n_cl = Cc.shape[1], Cl.shape[1]
+    j = inputs.index(drive)
+    keep = [i for i in range(len(inputs)) if i != j]
+    # circuit inputs from the loop's inputs [w..., reference] and the held command
+    Ew = np.zeros((len(inputs), len(keep) + 1))
+    for column, row in enumerate(keep):
+        Ew[row, column] = 1.0
+    e = np.zeros((len(inputs), 1))
+    e[j, 0] = 1.0
+    Cu, Du = Cl[-1, :], Dl[-1, :]
+    U_z = mt(casadi.DM(e), Cu)  # circuit inputs from the loop state (through u_k)
+    U_v = casadi.DM(Ew) + mt(casadi.DM(e), Du)  # ... and from the loop inputs
+    select_x = casadi.horzcat(casadi.DM.eye(nx), casadi.DM.zeros(nx, n_cl - nx))
+    maps = []
+    for P, G in powers:
+        P, G = as_cas(P), as_cas(G)
+        through = mt(Cc, G) + Dc
+        C_j = casadi.vertcat(mt(mt(Cc, P), select_x) + mt(through, U_z), Cu)
+        D_j = casadi.vertcat(mt(through, U_v), Du)
+        if numeric:
+            C_j, D_j = np.array(C_j, dtype=float), np.array(D_j, dtype=float)
+        maps.append((C_j, D_j))
+    return maps
+
+
+def hold_powers(Phi_h: Any, Gamma_h: Any, substeps: int) -> list[tuple[Any, Any]]:
+    """``[(P_j, G_j)]`` for ``j = 0..substeps``: ``P_j = Phi_h**j`` and
+    ``G_j = sum_{i<j} Phi_h**i Gamma_h``, the zero-order hold over ``j`` output steps built
+    from the hold over one (numpy or CasADi)."""
+    import casadi
+
+    if not _is_casadi(Phi_h, Gamma_h):
+        n = np.asarray(Phi_h).shape[0]
+        out = [(np.eye(n), np.zeros_like(np.asarray(Gamma_h, dtype=float)))]
+        for _ in range(substeps):
+            P, G = out[-1]
+            out.append((Phi_h @ P, Phi_h @ G + Gamma_h))
+        return out
+    n = Phi_h.shape[0]
+    out = [(casadi.DM.eye(n), casadi.DM.zeros(n, Gamma_h.shape[1]))]
+    for _ in range(substeps):
+        P, G = out[-1]
+        out.append((casadi.mtimes(Phi_h, P), casadi.mtimes(Phi_h, G) + Gamma_h))
+    return out

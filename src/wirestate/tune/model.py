@@ -32,7 +32,14 @@ from wirestate.spec import CircuitSpec, load_circuit
 from wirestate.spec.system import load_system_spec
 from wirestate.spec.tuning import TuningSpec
 from wirestate.tune import expm as cexpm
-from wirestate.tune.loop import REFERENCE, Loop, close_pi, open_loop
+from wirestate.tune.loop import (
+    REFERENCE,
+    Loop,
+    close_pi,
+    held_output_maps,
+    hold_powers,
+    open_loop,
+)
 from wirestate.tune.wiring import SystemLoop
 
 CURRENT_PREFIX = "i__"
@@ -133,12 +140,11 @@ class TuningModel:
             period = self.system_loop.sample_time
             self.sampled = period is not None
             self.step = float(period) if self.sampled else float(spec.scenario.step)
-            self.substeps = self._substeps() if self.sampled else 1
             self._check_system_limits()
         else:
             self.sampled = ctrl is not None and ctrl.sample_time is not None
             self.step = float(ctrl.sample_time) if self.sampled else float(spec.scenario.step)
-            self.substeps = 1
+        self.substeps = self._substeps() if self.sampled else 1
         self.n_steps = max(1, int(round(spec.scenario.horizon / self.step)))
         #: output step: the scenario step between the samples of a sampled system (the
         #: continuous part advanced exactly within each period), else the stepping step
@@ -186,10 +192,15 @@ class TuningModel:
         ratio = self.step / float(self.spec.scenario.step)
         m = round(ratio)
         if m < 1 or abs(ratio - m) > 1e-9 * max(ratio, 1.0):
+            what = (
+                f"of system {self.system_loop.system.name!r}"
+                if self.system_loop is not None
+                else "of the controller"
+            )
             raise TuningError(
                 "invalid_step",
                 f"scenario.step {self.spec.scenario.step:g} s must divide the sample time "
-                f"{self.step:g} s of system {self.system_loop.system.name!r}",
+                f"{self.step:g} s {what}",
                 file=self.file,
                 location=("scenario", "step"),
             )
@@ -525,8 +536,9 @@ class TuningModel:
 
     @property
     def zoh_step(self) -> float:
-        """The step over which the matrix exponential is taken (see :meth:`step_norm`)."""
-        return self.output_step if self.system_loop is not None else self.step
+        """The step over which the matrix exponential is taken (see :meth:`step_norm`): the
+        output step; a sampled loop's period is made of powers of that hold."""
+        return self.output_step
 
     def _continuous_for_zoh(self, block) -> tuple[np.ndarray, np.ndarray]:
         if self.system_loop is not None:
@@ -579,15 +591,16 @@ class TuningModel:
             output_maps = m["outputs"]
             loop_c = Loop(m["A"], m["B"], m["Cc"], m["Dc"], [], [], [])
         elif self.sampled:
-            Ad, Bd = numeric_zoh(block.A, block.B, self.step)
+            powers = hold_powers(*numeric_zoh(block.A, block.B, self.zoh_step), self.substeps)
+            Ad, Bd = powers[-1]
             loop_d = self._close_pi(Ad, Bd, block.C, block.D, _names(block), self.step)
             loop_c = self._loop_numeric(block)
             Phi, Gamma, C, D = loop_d.A, loop_d.B, loop_d.C, loop_d.D
+            output_maps = self._held_maps(loop_d, powers, block.C, block.D, block.inputs)
         else:
             loop_c = self._loop_numeric(block)
             Phi, Gamma = numeric_zoh(loop_c.A, loop_c.B, self.step)
             C, D = loop_c.C, loop_c.D
-        if self.system_loop is None:
             output_maps = [(C, D)]
         V = self.schedule
         n = Phi.shape[0]
@@ -609,6 +622,17 @@ class TuningModel:
             False,
             {"Cc": loop_c.C, "Dc": loop_c.D},
         )
+
+    def _held_maps(self, loop_d: Loop, powers, C: Any, D: Any, inputs) -> list:
+        """Output maps between the samples of the ``[controller]`` loop (see
+        :func:`wirestate.tune.loop.held_output_maps`); the first is the loop's own."""
+        if self.substeps == 1:
+            return [(loop_d.C, loop_d.D)]
+        maps = held_output_maps(
+            loop_d, powers[: self.substeps], C, D, inputs=list(inputs),
+            drive=self.spec.controller.drive,
+        )  # fmt: skip
+        return [(loop_d.C, loop_d.D)] + maps[1:]
 
     def _outputs_between(self, maps: list[tuple[Any, Any]], X: Any, V: Any) -> Any:
         """Outputs at every output step: ``maps[j] = (C_j, D_j)`` give the outputs ``j``
@@ -690,13 +714,14 @@ class TuningModel:
             output_maps = m["outputs"]
             loop_c = Loop(m["A"], m["B"], m["Cc"], m["Dc"], [], [], [])
         elif self.sampled:
-            Ad, Bd = cexpm.zoh(ss.A, ss.B, self.step, squarings)
+            powers = hold_powers(*cexpm.zoh(ss.A, ss.B, self.zoh_step, squarings), self.substeps)
+            Ad, Bd = powers[-1]
             loop_d = self._close_pi(Ad, Bd, ss.C, ss.D, names, self.step)
             Phi, Gamma, C, D = loop_d.A, loop_d.B, loop_d.C, loop_d.D
+            output_maps = self._held_maps(loop_d, powers, ss.C, ss.D, ss.inputs)
         else:
             Phi, Gamma = cexpm.zoh(loop_c.A, loop_c.B, self.step, squarings)
             C, D = loop_c.C, loop_c.D
-        if self.system_loop is None:
             output_maps = [(C, D)]
         import casadi
 

@@ -344,16 +344,11 @@ def solve(
         f"truncation bound {nlp.truncation_bound:.1e} relative",
         "time-domain limits are checked at the samples of the scenario step",
     ]
-    if model.sampled and model.system_loop is not None:
+    if model.sampled and model.substeps > 1:
         notes.append(
-            f"sampled blocks step every {model.step:g} s; the limits are checked every "
-            f"{model.output_step:g} s in between (continuous part advanced exactly, sampled "
-            "outputs held)"
-        )
-    elif model.sampled and abs(model.step - spec.scenario.step) > 1e-12 * model.step:
-        notes.append(
-            f"the scenario is stepped at the controller's sample time {model.step:g} s "
-            f"(scenario.step {spec.scenario.step:g} s is not used)"
+            f"the controllers sample every {model.step:g} s; the limits are checked every "
+            f"{model.output_step:g} s in between (continuous part advanced exactly, "
+            "controller outputs held)"
         )
     if model.sampled and model.system_loop is None:
         notes.append(

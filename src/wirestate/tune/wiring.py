@@ -41,6 +41,7 @@ from wirestate.blocks import PIDController
 from wirestate.compose import LINEAR, SAMPLED, ComposedSystem
 from wirestate.errors import TuningError
 from wirestate.lti import CircuitBlock
+from wirestate.tune.loop import hold_powers
 
 
 @dataclass
@@ -200,10 +201,7 @@ class SystemLoop:
             casadi.DM(m) if numeric else m for m in (Phi_h, Gamma_h, part.C, part.D)
         )
         # powers over the substeps: x(t_k + j h) = P_j x_k + G_j [w; ys]
-        powers = [(casadi.DM.eye(nx), casadi.DM.zeros(nx, Gamma_h.shape[1]))]
-        for _ in range(substeps):
-            P, G = powers[-1]
-            powers.append((mt(Phi_h, P), mt(Phi_h, G) + Gamma_h))
+        powers = hold_powers(Phi_h, Gamma_h, substeps)
         Phi, Gamma = powers[-1]
         Gw, Gs = Gamma[:, :nw], Gamma[:, nw:]
         Dyw, Dys = Dy[:, :nw], Dy[:, nw:]
