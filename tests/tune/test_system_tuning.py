@@ -9,11 +9,15 @@ delay and a sensor filter).
 
 from __future__ import annotations
 
+import json
+from pathlib import Path
+
 import numpy as np
 import pytest
 
 from tests.conftest import MODELS
 from wirestate.cli import main
+from wirestate.compose import load_system
 from wirestate.errors import TuningError, WirestateError
 from wirestate.simulate import simulate_system
 from wirestate.spec.tuning import load_tuning
@@ -283,24 +287,69 @@ def test_controller_table_and_system_agree_between_the_samples(write):
         np.testing.assert_allclose(ys, yt, rtol=1e-9, atol=1e-9 * np.abs(yt).max())
 
 
-def test_limited_controller_is_refused_with_the_block_named(write, capsys):
+def _limited(write, limits: str) -> Path:
+    # the sampled current loop with command limits, tuned with 10 us output steps
     _system(write, sample_time="20us")
     path = write(
         "system_tuning.toml",
         TUNING.format(
-            model='system = "bus_loop.toml"\nblock = "bus"', controller="", step="20us",
+            model='system = "bus_loop.toml"\nblock = "bus"', controller="", step="10us",
             initial="steady_state", inputs='[scenario.inputs]\ncurrent_ref = "30A"',
             reference="current_ref",
         ),
     )  # fmt: skip
-    system = path.parent / "bus_loop.toml"
-    system.write_text(
-        system.read_text().replace('unit = "V"', 'unit = "V"\noutput_limits = ["-48V", "48V"]', 1)
+    loop_file = path.parent / "bus_loop.toml"
+    loop_file.write_text(
+        loop_file.read_text().replace('unit = "V"', f'unit = "V"\noutput_limits = {limits}', 1)
     )
+    return path
+
+
+def test_limited_controller_commands_become_limits_and_the_result_holds_with_limits(
+    write, tmp_path, capsys
+):
+    # the command of a controller with output limits is kept inside them by two limits,
+    # so the linear loop the optimiser uses is exact; checked against the hybrid
+    # simulator running the limited controller (saturation and anti-windup included)
+    path = _limited(write, '["0V", "45V"]')
+    report = tmp_path / "report.json"
+    assert main(["tune", str(path), "--json", str(report)]) == 0
+    data = json.loads(report.read_text())
+    names = {row["name"]: row for row in data["limits"]}
+    assert {"current_loop_command_max", "current_loop_command_min"} <= set(names)
+    assert all(row["margin"] > 0 for row in names.values())
+    preferred = {n: v["preferred"] for n, v in data["variables"].items()}
+    model = TuningModel(load_tuning(path), file=str(path))
+    ev = model.numeric(preferred)
+    system_file = path.parent / "bus_loop.toml"
+    values = ", ".join(f'{n} = "{v!r}"' for n, v in preferred.items())
+    system_file.write_text(
+        system_file.read_text().replace(
+            'kind = "circuit"', f'kind = "circuit"\nvalues = {{ {values} }}', 1
+        )
+    )
+    # the hybrid run starts from rest; start the tuning model from rest too
+    x0 = np.zeros(ev.X.shape[0])
+    ev = model.numeric(preferred, initial=x0)
+    result = simulate_system(
+        load_system(system_file), 6e-3, 10e-6, {"current_ref": "step:40A@1.01ms,from=30A"}
+    )
+    for name in ("v_bus", "v_inverter"):
+        ours = ev.Y[model.outputs.index(name)]
+        theirs = result.outputs[result.output_names.index(name)]
+        np.testing.assert_allclose(ours, theirs, rtol=0, atol=1e-8 * np.ptp(theirs))
+    # the command stays under its ceiling all along (the limits never act)
+    command = ev.Y[model.outputs.index("u__current_loop")]
+    assert command.max() <= 45.0 + 1e-9
+
+
+def test_limits_the_command_cannot_meet_end_infeasible_naming_them(write, capsys):
+    # a 10 A reference step asks for about 6 V more at once (kp = 0.63 V/A) on top of the
+    # 35.5 V operating point: a 40 V ceiling cannot be met by any Rd, Cd
+    path = _limited(write, '["0V", "40V"]')
     code = main(["tune", str(path)])
     err = capsys.readouterr().err
-    assert code == 2 and err.startswith("error: ") and "Traceback" not in err
-    assert "current_loop" in err and "not linear" in err
+    assert code == 2 and "current_loop_command_max" in err and "Traceback" not in err
 
 
 @pytest.mark.parametrize(

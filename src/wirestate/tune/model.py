@@ -44,6 +44,8 @@ from wirestate.tune.wiring import SystemLoop
 
 CURRENT_PREFIX = "i__"
 VOLTAGE_PREFIX = "v__"
+#: outputs added for a limited controller's command (its output range as two limits)
+COMMAND_PREFIX = "u__"
 _WATCH = (CURRENT_PREFIX, VOLTAGE_PREFIX)
 
 #: at most this many toleranced parts span the corners (2**8 = 256 corners)
@@ -137,6 +139,7 @@ class TuningModel:
             self.system_loop = SystemLoop(
                 system, spec.tuning.block, list(self.block.outputs), file=file
             )
+            self.spec = spec = self._with_range_limits(spec)
             period = self.system_loop.sample_time
             self.sampled = period is not None
             self.step = float(period) if self.sampled else float(spec.scenario.step)
@@ -185,6 +188,32 @@ class TuningModel:
         except WirestateError as exc:
             raise exc.with_file(str(path)) from None
         return circuit, circuit_file, system
+
+    def _with_range_limits(self, spec: TuningSpec) -> TuningSpec:
+        """The spec with two more limits per controller with output limits: its command
+        (output ``u__<block>``) at most ``high`` and at least ``low``, so the loop's
+        unsaturated dynamics stay exact."""
+        from wirestate.spec.tuning import Limit
+
+        extra = []
+        for signal, (low, high) in self.system_loop.output_ranges.items():
+            block = signal.split(".")[0]
+            output = COMMAND_PREFIX + block
+            if math.isfinite(high):
+                extra.append(Limit(name=f"{block}_command_max", kind="maximum", output=output,
+                                   max=high))  # fmt: skip
+            if math.isfinite(low):
+                extra.append(Limit(name=f"{block}_command_min", kind="minimum", output=output,
+                                   min=low))  # fmt: skip
+        taken = {limit.label for limit in spec.limits} & {limit.label for limit in extra}
+        if taken:
+            raise TuningError(
+                "invalid_limit",
+                f"limit name {sorted(taken)[0]!r} is taken by a controller's output range",
+                file=self.file,
+                location=("limits",),
+            )
+        return spec.model_copy(update={"limits": [*spec.limits, *extra]}) if extra else spec
 
     def _substeps(self) -> int:
         """Output steps per sample period of a sampled system: the period over the
@@ -283,14 +312,20 @@ class TuningModel:
         if self.system_loop is None:
             return dict(self.block.units)
         watch = {o: u for o, u in self.block.units.items() if o.startswith(_WATCH)}
-        return {**self.system_loop.system.units, **watch}
+        blocks = self.system_loop.system.blocks
+        commands = {
+            COMMAND_PREFIX + s.split(".")[0]: blocks[s.split(".")[0]].units.get(s.split(".")[1], "")
+            for s in self.system_loop.output_ranges
+        }
+        return {**self.system_loop.system.units, **watch, **commands}
 
     def _system_outputs(self) -> list[str]:
         """The outputs of a system case: the system's external outputs, then the design
         block's watch outputs; each is a row of :attr:`SystemLoop.signals`."""
         loop = self.system_loop
         watch = [o for o in self.block.outputs if o.startswith(_WATCH)]
-        return list(loop.system.external_outputs) + watch
+        commands = [COMMAND_PREFIX + s.split(".")[0] for s in loop.output_ranges]
+        return list(loop.system.external_outputs) + watch + commands
 
     def _system_rows(self, signals: list[str]) -> np.ndarray:
         """0/1 matrix picking :meth:`_system_outputs` out of ``signals`` (a missing one,
@@ -298,6 +333,7 @@ class TuningModel:
         loop = self.system_loop
         names = [loop.system.external_outputs[o] for o in loop.system.external_outputs]
         names += [f"{loop.design}.{o}" for o in self.block.outputs if o.startswith(_WATCH)]
+        names += list(loop.output_ranges)
         S = np.zeros((len(names), len(signals)))
         for row, name in enumerate(names):
             if name in signals:

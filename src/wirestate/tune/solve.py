@@ -323,6 +323,8 @@ def solve(
     series = _check_series(series)
     say = progress or (lambda _message: None)
     model = TuningModel(spec, file=file)
+    # the model's spec: a system's limited controllers add their output ranges as limits
+    spec = model.spec
     start = start_values(model)
     start_ev = model.numeric(start)
     say(
@@ -349,6 +351,13 @@ def solve(
             f"the controllers sample every {model.step:g} s; the limits are checked every "
             f"{model.output_step:g} s in between (continuous part advanced exactly, "
             "controller outputs held)"
+        )
+    if model.system_loop is not None and model.system_loop.output_ranges:
+        notes.append(
+            "controller output limits ("
+            + ", ".join(s.split(".")[0] for s in model.system_loop.output_ranges)
+            + ") are kept as limits on the commands, so the loop never saturates and its "
+            "linear model is exact"
         )
     if model.sampled and model.system_loop is None:
         notes.append(

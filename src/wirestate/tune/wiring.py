@@ -79,16 +79,23 @@ class SystemLoop:
                 file=file,
                 location=("tuning", "block"),
             )
+        #: ``block.output -> (low, high)`` of every controller with output limits; the loop
+        #: uses its unsaturated dynamics, exact while the command stays inside the limits
+        self.output_ranges: dict[str, tuple[float, float]] = {}
         for name, b in blocks.items():
-            limited = isinstance(b.source, PIDController) and b.source.is_limited
-            if b.category not in (LINEAR, SAMPLED) or limited:
+            controller = isinstance(b.source, PIDController)
+            if b.category not in (LINEAR, SAMPLED) and not controller:
                 raise TuningError(
                     "invalid_field",
-                    f"block {name!r} of system {system.name!r} is not linear (output limits "
-                    "or a nonlinear block); the tuning optimiser needs a linear loop: use a "
-                    "copy of the system without the limits for tuning",
+                    f"block {name!r} of system {system.name!r} is a nonlinear block; the "
+                    "tuning optimiser needs a linear loop (controllers with output limits "
+                    "are the exception: their commands are kept inside the limits)",
                     file=file,
                     location=("tuning", "system"),
+                )
+            if controller and b.source.is_limited:
+                self.output_ranges[f"{name}.{b.outputs[0]}"] = tuple(
+                    float(v) for v in b.source.limits
                 )
         periods = sorted({float(b.sample_time) for b in blocks.values() if b.category == SAMPLED})
         if len(periods) > 1:
@@ -100,7 +107,7 @@ class SystemLoop:
                 location=("tuning", "system"),
             )
         self.sample_time: float | None = periods[0] if periods else None
-        self.continuous = [n for n, b in blocks.items() if b.category == LINEAR]
+        self.continuous = [n for n, b in blocks.items() if b.category not in (SAMPLED,)]
         self.sampled = [n for n, b in blocks.items() if b.category == SAMPLED]
         self._outputs = {n: list(blocks[n].outputs) for n in blocks}
         self._outputs[design] = list(design_outputs)
@@ -145,6 +152,8 @@ class SystemLoop:
             s = b.system
             return s.A, s.B, s.C, s.D
         if isinstance(b.source, PIDController):
+            # sampled: the discrete matrices; a continuous one with limits (a nonlinear
+            # block for the simulator): its unsaturated continuous dynamics
             return b.source.matrices()
         src = b.source
         return src.A, src.B, src.C, src.D
