@@ -358,6 +358,7 @@ def test_limits_the_command_cannot_meet_end_infeasible_naming_them(write, capsys
         (('block = "bus"', 'block = "current_loop"'), "not a circuit block"),
         (('block = "bus"', 'block = "bus"\ncircuit = "x.toml"'), "exactly one of"),
         (('block = "bus"\n', ""), "'block' names the circuit block"),
+        (('system = "bus_loop.toml"', 'system = "absent.toml"'), "tuning.system"),
     ],
 )
 def test_header_mistakes_name_the_field(write, change, fragment, capsys):

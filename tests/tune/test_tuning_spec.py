@@ -60,7 +60,7 @@ parts = ["C1"]
         (('step = "10us"', 'step = "3ms"'), "invalid_field", "scenario"),
         (("[objective]", "[objective]\nwrong = 1"), "unknown_field", "objective.wrong"),
         (('horizon = "2ms"\n', ""), "missing_field", "scenario.horizon"),
-        (('circuit = "rc.toml"', 'circuit = "absent.toml"'), "file_not_found", ""),
+        (('circuit = "rc.toml"', 'circuit = "absent.toml"'), "file_not_found", "tuning.circuit"),
         (
             (
                 "[objective]",

@@ -87,6 +87,7 @@ class TuningModel:
             circuit, self.circuit_file, system = self._load_system()
         else:
             self.circuit_file = spec.circuit_path
+            self._check_exists(spec.circuit_path, "circuit")
             try:
                 circuit = load_circuit(spec.circuit_path)
             except WirestateError as exc:
@@ -167,6 +168,7 @@ class TuningModel:
     def _load_system(self) -> tuple[CircuitSpec, Path, ComposedSystem]:
         """The system file: its design block's circuit, that circuit's file, the system."""
         path = self.spec.system_path
+        self._check_exists(path, "system")
         try:
             system_spec = load_system_spec(path)
             system = system_from_spec(system_spec, file=path)
@@ -188,6 +190,15 @@ class TuningModel:
         except WirestateError as exc:
             raise exc.with_file(str(path)) from None
         return circuit, circuit_file, system
+
+    def _check_exists(self, path: Path, field_name: str) -> None:
+        if not Path(path).is_file():
+            raise TuningError(
+                "file_not_found",
+                f"{field_name} = {getattr(self.spec.tuning, field_name)!r}: no file {path}",
+                file=self.file,
+                location=("tuning", field_name),
+            )
 
     def _with_range_limits(self, spec: TuningSpec) -> TuningSpec:
         """The spec with two more limits per controller with output limits: its command
@@ -412,6 +423,11 @@ class TuningModel:
         except WirestateError as exc:
             raise exc.with_file(self.file or "") from None
 
+    @property
+    def user_outputs(self) -> list[str]:
+        """The outputs a tuning file can name (without the ones the model adds)."""
+        return [o for o in self.outputs if not o.startswith((*_WATCH, COMMAND_PREFIX))]
+
     def _check_names(self) -> None:
         horizon = self.times[-1]
         for limit in self.spec.limits:
@@ -431,7 +447,7 @@ class TuningModel:
                 raise TuningError(
                     "invalid_limit",
                     f"limit {limit.label!r} names output {limit.output!r}; outputs: "
-                    f"{', '.join(o for o in self.outputs if not o.startswith(('i__', 'v__')))}",
+                    f"{', '.join(self.user_outputs)}",
                     file=self.file,
                     location=("limits", limit.label, "output"),
                 )
@@ -470,11 +486,12 @@ class TuningModel:
             circuit_inputs = list(self.system_loop.inputs)
             defaults = self.system_loop.system.input_defaults
         level = {name: float(defaults.get(name) or 0.0) for name in circuit_inputs}
+        where = "circuit" if self.system_loop is None else "system"
         for name, value in scenario.inputs.items():
             if name not in circuit_inputs or (ctrl is not None and name == ctrl.drive):
                 raise TuningError(
                     "unknown_signal",
-                    f"scenario input {name!r} is not a free circuit input (inputs: "
+                    f"scenario input {name!r} is not a free {where} input (inputs: "
                     f"{', '.join(i for i in self.inputs if i != REFERENCE)})",
                     file=self.file,
                     location=("scenario", "inputs", name),
