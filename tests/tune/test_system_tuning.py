@@ -374,13 +374,16 @@ def test_header_mistakes_name_the_field(write, change, fragment, capsys):
     assert code == 2 and err.startswith("error: ") and fragment in err
 
 
-def test_a_pole_limit_on_a_sampled_system_is_refused(write):
+def test_an_impedance_limit_on_a_sampled_system_is_refused(write):
     _system(write, sample_time="20us")
     text = TUNING.format(
         model='system = "bus_loop.toml"\nblock = "bus"', controller="", step="20us",
         initial="steady_state", inputs='[scenario.inputs]\ncurrent_ref = "30A"',
         reference="current_ref",
-    ) + '\n[[limits]]\nname = "poles"\nkind = "pole_real_part"\nmax = "-100"\n'  # fmt: skip
+    ) + (
+        '\n[[limits]]\nname = "port"\nkind = "output_impedance"\ninput = "Iport"\n'
+        'output = "v_bus"\nband = ["100Hz", "10kHz"]\nmax = "1ohm"\n'
+    )  # fmt: skip
     path = write("system_tuning.toml", text)
     with pytest.raises(TuningError, match="needs a continuous loop"):
         TuningModel(load_tuning(path), file=str(path))
@@ -399,3 +402,69 @@ def test_a_controller_table_beside_a_system_is_refused(write):
     path = write("system_tuning.toml", text)
     with pytest.raises(WirestateError, match="remove the"):
         load_tuning(path)
+
+
+def _evaluation(Phi, symbolic: bool):
+    import casadi
+
+    from wirestate.tune.model import Evaluation
+
+    P = casadi.DM(Phi) if symbolic else Phi
+    return Evaluation(P, None, None, None, None, None, None, None, {}, symbolic)
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_sampled_pole_tests_agree_with_the_eigenvalues(seed):
+    # reference: numpy's eigenvalues. A real-part limit on a sampled loop must hold
+    # exactly when every s = ln(z) / T has Re s <= sigma (the disc test is exact); a
+    # damping-ratio limit when every pole of the Tustin equivalent (2/T)(z - 1)/(z + 1)
+    # has a damping ratio >= zeta. Random loops, cases within 1e-6 of the bound skipped.
+    from types import SimpleNamespace
+
+    import casadi
+
+    from wirestate.spec.tuning import Limit
+    from wirestate.tune import limits
+
+    rng = np.random.default_rng(seed)
+    n, T = int(rng.integers(2, 7)), 50e-6
+    Phi = rng.normal(size=(n, n))
+    Phi *= rng.uniform(0.6, 1.1) / np.max(np.abs(np.linalg.eigvals(Phi)))
+    model = SimpleNamespace(sampled=True, step=T)
+    z = np.linalg.eigvals(Phi)
+    s = np.log(z.astype(complex)) / T
+    sigma = float(np.max(s.real)) + rng.uniform(-2000.0, 2000.0)
+    tustin = (2.0 / T) * (z - 1.0) / (z + 1.0)
+    zeta = float(rng.uniform(0.05, 0.6))
+    cases = [
+        (Limit(kind="pole_real_part", max=sigma), float(np.max(s.real)) < sigma,
+         abs(np.max(s.real) - sigma) / abs(sigma)),
+        (Limit(kind="damping_ratio", min=zeta),
+         bool(np.all(-tustin.real >= zeta * np.abs(tustin))),
+         float(np.min(np.abs(-tustin.real / np.abs(tustin) - zeta)))),
+    ]  # fmt: skip
+    for limit, holds, distance in cases:
+        if distance < 1e-6:
+            continue
+        excess = limits.pole_excess(limit, _evaluation(Phi, True), _evaluation(Phi, False), model)
+        entries = np.array(casadi.evalf(excess)).ravel()
+        assert bool(np.all(entries < 0)) == holds, (limit.kind, entries)
+
+
+def test_a_sampled_pole_limit_is_imposed_and_verified(write, capsys):
+    # the loop's slowest pole, about -250 1/s (the PI zero at Ra/La, which Rd and Cd do
+    # not move), lies past a -230 1/s limit: feasible; a -300 1/s limit cannot be met
+    _system(write, sample_time="20us")
+    for sigma, code in (("-230", 0), ("-300", 2)):
+        text = TUNING.format(
+            model='system = "bus_loop.toml"\nblock = "bus"', controller="", step="10us",
+            initial="steady_state", inputs='[scenario.inputs]\ncurrent_ref = "30A"',
+            reference="current_ref",
+        ) + f'\n[[limits]]\nname = "poles"\nkind = "pole_real_part"\nmax = "{sigma}"\n'  # fmt: skip
+        path = write("system_tuning.toml", text)
+        assert main(["tune", str(path)]) == code
+        captured = capsys.readouterr()
+        if code:
+            assert "poles" in captured.err
+        else:
+            assert "sampled loop poles" in captured.out

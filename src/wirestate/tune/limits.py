@@ -18,8 +18,9 @@ inputs just before ``after``, ``s`` the sign of ``y_f - y_b`` at the starting po
   positive; Routh 1877, see Ogata sec. 5-6) on ``A - sigma I`` for a real-part limit and on
   the rotated matrix ``[[cos p A, -sin p A], [sin p A, cos p A]]``, ``p = asin(zeta_min)``,
   for a damping-ratio limit (its eigenvalues are the poles turned by ``+-p``, which are all
-  in the left half-plane exactly when every pole has damping ratio ``>= zeta_min``); in the
-  verification the eigenvalues themselves;
+  in the left half-plane exactly when every pole has damping ratio ``>= zeta_min``); for a
+  sampled loop the same tests on Cayley transforms of its one-period matrix (see
+  :func:`pole_test_matrix`); in the verification the eigenvalues themselves;
 * output impedance: ``|C (j w I - A)^-1 b + d|`` on a logarithmic grid over the band,
   through the real system ``[[-A, -w I], [w I, -A]] [xr; xi] = [b; 0]``.
 """
@@ -164,7 +165,7 @@ def ranges(
         z = impedance_magnitude(ev, model, limit, frequency_grid(limit))
         return [(z, None, limit.max)]
     if kind in ("damping_ratio", "pole_real_part"):
-        return [(pole_excess(limit, ev, start), None, 0.0)]
+        return [(pole_excess(limit, ev, start, model), None, 0.0)]
     raise ValueError(f"internal: unhandled limit kind {kind!r}")  # pragma: no cover
 
 
@@ -226,17 +227,56 @@ def pole_margin(limit: Limit, ev: Evaluation, model: TuningModel) -> tuple[float
     return value, float(value - limit.min)
 
 
-def pole_excess(limit: Limit, ev: Evaluation, start: Evaluation | None) -> Any:
-    """Routh-Hurwitz first-column entries, negated (``<= 0`` where the limit holds)."""
+def pole_test_matrix(
+    limit: Limit, ev: Evaluation, model: TuningModel | None, symbolic: bool
+) -> Any:
+    """The matrix that is Hurwitz (every eigenvalue in the open left half-plane) exactly
+    when ``limit`` holds for the loop of ``ev``.
+
+    Continuous loop: :func:`_pole_matrix` of ``A``. Sampled loop (``Phi`` over the period
+    ``T``), through the Cayley transform ``c(P) = (P - I)(P + I)^-1``, which maps the open
+    unit disc onto the open left half-plane:
+
+    * real part ``<= sigma``: ``c(exp(-sigma T) Phi)``; a pole ``s = ln(z) / T`` has
+      ``Re s < sigma`` exactly when ``|z| < exp(sigma T)``, so this test is exact;
+    * damping ratio ``>= zeta``: the rotated matrix of ``(2 / T) c(Phi)``, the Tustin
+      (bilinear) equivalent of the loop, whose poles approach ``ln(z) / T`` well below
+      the Nyquist frequency (Franklin, Powell and Workman, Digital Control of Dynamic
+      Systems, 3rd ed., sec. 6.3); the verification uses ``ln(z) / T`` itself.
+    """
+    if model is None or not model.sampled:
+        return _pole_matrix(limit, ev.A, symbolic)
+    T = model.step
+    if limit.kind == "pole_real_part":
+        return _cayley(math.exp(-limit.max * T) * ev.Phi, symbolic)
+    return _pole_matrix(limit, (2.0 / T) * _cayley(ev.Phi, symbolic), symbolic)
+
+
+def _cayley(P: Any, symbolic: bool) -> Any:
+    """``(P - I)(P + I)^-1``, solved as ``(P + I)^T X^T = (P - I)^T``."""
+    n = P.shape[0]
+    if symbolic:
+        cas = _cas()
+        eye = cas.DM.eye(n)
+        return cas.solve((P + eye).T, (P - eye).T).T
+    eye = np.eye(n)
+    return np.linalg.solve((P + eye).T, (P - eye).T).T
+
+
+def pole_excess(
+    limit: Limit, ev: Evaluation, start: Evaluation | None, model: TuningModel | None = None
+) -> Any:
+    """Routh-Hurwitz first-column entries of :func:`pole_test_matrix`, negated (``<= 0``
+    where the limit holds)."""
     if not ev.symbolic:
         raise ValueError("internal: numeric pole limits use pole_margin")
     cas = _cas()
     ref = start if start is not None else None
-    M = _pole_matrix(limit, ev.A, True)
+    M = pole_test_matrix(limit, ev, model, True)
     # normalise the time scale so that the polynomial coefficients are of order one
     rho = 1.0
     if ref is not None:
-        eig = np.linalg.eigvals(_pole_matrix(limit, ref.A, False))
+        eig = np.linalg.eigvals(pole_test_matrix(limit, ref, model, False))
         rho = float(max(np.max(np.abs(eig)), 1e-12))
     coefficients = _characteristic_polynomial(M / rho)
     column = _routh_first_column(coefficients)

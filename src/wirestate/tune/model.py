@@ -250,7 +250,7 @@ class TuningModel:
         if not self.sampled:
             return
         for limit in self.spec.limits:
-            if limit.kind in ("damping_ratio", "pole_real_part", "output_impedance"):
+            if limit.kind == "output_impedance":
                 raise TuningError(
                     "invalid_limit",
                     f"limit {limit.label!r} ({limit.kind}) needs a continuous loop; system "

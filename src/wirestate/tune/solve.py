@@ -359,11 +359,19 @@ def solve(
             + ") are kept as limits on the commands, so the loop never saturates and its "
             "linear model is exact"
         )
-    if model.sampled and model.system_loop is None:
+    pole_kinds = {lim.kind for lim in spec.limits} & {"damping_ratio", "pole_real_part"}
+    if model.sampled and pole_kinds:
         notes.append(
-            "poles and impedances of the sampled PI use its continuous counterpart "
-            "in the optimiser; the verification uses the discrete loop's poles"
+            "sampled loop poles: the optimiser tests the discrete loop (a real-part limit "
+            "exactly, through |z| < exp(sigma T); a damping-ratio limit on its Tustin "
+            "equivalent); the verification uses s = ln(z) / T"
         )
+    if (
+        model.sampled
+        and model.system_loop is None
+        and any(lim.kind == "output_impedance" for lim in spec.limits)
+    ):
+        notes.append("impedances of the sampled PI use its continuous counterpart")
     if model.sampled and model.system_loop is not None and spec.stress.ripple is not None:
         notes.append(
             "the ripple response holds the outputs of the sampled blocks "
