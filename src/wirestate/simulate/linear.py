@@ -52,6 +52,9 @@ class LinearModel:
     x0: np.ndarray
     units: dict[str, str] = field(default_factory=dict)
     input_defaults: dict[str, float] = field(default_factory=dict)
+    #: ``(n_states, n_inputs)`` or None: physical state = ``x + state_offset @ u`` (a
+    #: circuit's ``<name>_shifted`` states; see :class:`wirestate.lti.CircuitBlock`)
+    state_offset: np.ndarray | None = None
 
     @property
     def n_states(self) -> int:
@@ -97,6 +100,7 @@ def as_linear_model(system: Any) -> LinearModel:
             np.array(system.x0, dtype=float),
             dict(system.units),
             dict(system.input_defaults),
+            state_offset=np.asarray(system.state_offset, dtype=float),
         )
     if isinstance(system, control.StateSpace):
         if system.isdtime(strict=True):
@@ -315,6 +319,7 @@ def simulate_linear(
         inputs=U,
         units=dict(model.units),
         method=method,
+        state_offset=model.state_offset,
     )
 
 

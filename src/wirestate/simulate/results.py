@@ -13,6 +13,8 @@ import numpy as np
 from wirestate.atomic import write_atomic
 from wirestate.errors import SimulationError
 
+SHIFTED_SUFFIX = "_shifted"
+
 
 @dataclass
 class SimulationResult:
@@ -34,6 +36,9 @@ class SimulationResult:
         Unit of every output, state and input name (``""`` when unknown).
     method
         One line naming how the run was computed (hold, integrator, tolerances).
+    state_offset
+        ``(n_states, n_inputs)`` or None; a circuit's ``<name>_shifted`` state plus
+        ``state_offset @ u`` is the physical quantity (see :meth:`physical_states`).
     """
 
     name: str
@@ -46,6 +51,21 @@ class SimulationResult:
     inputs: np.ndarray | None = None
     units: dict[str, str] = field(default_factory=dict)
     method: str = ""
+    state_offset: np.ndarray | None = None
+
+    def physical_states(self) -> tuple[list[str], np.ndarray]:
+        """Capacitor voltages and inductor currents: every state plus ``state_offset @ u``,
+        named without the ``_shifted`` suffix (the states themselves where no offset)."""
+        names = [n.removesuffix(SHIFTED_SUFFIX) for n in self.state_names]
+        if self.state_offset is None or self.inputs is None or not np.any(self.state_offset):
+            return names, self.states.copy()
+        return names, self.states + self.state_offset @ self.inputs
+
+    def physical_state(self, name: str) -> np.ndarray:
+        """The samples of one capacitor voltage or inductor current, by its physical name
+        (``v_C1`` for a state ``v_C1_shifted``) or by the state's own name."""
+        names, values = self.physical_states()
+        return self._row(name.removesuffix(SHIFTED_SUFFIX), names, values, "state")
 
     def output(self, name: str) -> np.ndarray:
         """The samples of one output, by name."""

@@ -135,6 +135,24 @@ class Stepper:
         self._z[: self._n] = self._checked_state(x)
 
     @property
+    def physical_state(self) -> np.ndarray:
+        """Capacitor voltages and inductor currents: the state plus ``state_offset @ u``
+        with the held inputs (equal to :attr:`state` unless the block has
+        ``<name>_shifted`` states)."""
+        x, u = self._z[: self._n], self._z[self._n :]
+        offset = self.model.state_offset
+        return x.copy() if offset is None else x + offset @ u
+
+    @physical_state.setter
+    def physical_state(self, values: Sequence[float]) -> None:
+        """Set the state from capacitor voltages and inductor currents, with the inputs
+        held now (apply the inputs first when they change)."""
+        p = self._checked_state(values)
+        offset = self.model.state_offset
+        u = self._z[self._n :]
+        self._z[: self._n] = p if offset is None else p - offset @ u
+
+    @property
     def inputs(self) -> np.ndarray:
         """The inputs last applied (held)."""
         return self._z[self._n :].copy()
