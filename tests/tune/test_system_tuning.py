@@ -10,6 +10,7 @@ delay and a sensor filter).
 from __future__ import annotations
 
 import json
+import tomllib
 from pathlib import Path
 
 import numpy as np
@@ -468,3 +469,50 @@ def test_a_sampled_pole_limit_is_imposed_and_verified(write, capsys):
             assert "poles" in captured.err
         else:
             assert "sampled loop poles" in captured.out
+
+
+def test_a_system_composed_in_python_tunes_like_its_file(write):
+    # the same loop as the file case (sampled PI, sensor filter), built with compose():
+    # the sensor is a plain python-control StateSpace; both optima agree to IPOPT's
+    # tolerance (1e-6 relative)
+    import control
+
+    from wirestate.blocks import PIDController
+    from wirestate.compose import compose
+    from wirestate.reduce import load_block
+    from wirestate.spec.tuning import parse_tuning
+    from wirestate.tune.solve import solve
+
+    sensor = control.ss(
+        [[-1 / 5e-6]], [[1 / 5e-6]], [[1.0]], [[0.0]], name="current_sensor",
+        inputs=["signal"], outputs=["measured"], states=["measured"],
+    )  # fmt: skip
+    system = compose(
+        {
+            "bus": load_block(BUS),
+            "current_sensor": sensor,
+            "current_loop": PIDController(
+                name="current_loop", kp=0.63, ki=157.0, sample_time=20e-6, unit="V"
+            ),
+        },
+        {
+            "bus.Vm": "current_loop.command",
+            "current_sensor.signal": "bus.i_motor",
+            "current_loop.measurement": "current_sensor.measured",
+        },
+        {
+            "current_ref": "current_loop.reference",
+            "Vbat": "bus.Vbat",
+            "Iport": "bus.Iport",
+            "Eb": "bus.Eb",
+        },  # fmt: skip
+        {"v_bus": "bus.v_bus", "i_motor": "bus.i_motor", "v_inverter": "current_loop.command"},
+        name="bus_loop",
+    )
+    file_model = _system_case(write, sample_time="20us", sensor=True, step="10us")
+    data = tomllib.loads(Path(file_model.file).read_text())
+    del data["tuning"]["system"]
+    in_python = solve(parse_tuning(data), system=system)
+    from_file = solve(load_tuning(file_model.file))
+    for name, entry in in_python.variables.items():
+        assert entry["optimum"] == pytest.approx(from_file.variables[name]["optimum"], rel=1e-6)

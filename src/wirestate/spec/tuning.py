@@ -167,7 +167,10 @@ class TuningHeader(_Strict):
 
     @model_validator(mode="after")
     def _one_model(self) -> TuningHeader:
-        if (self.circuit is None) == (self.system is None):
+        if self.circuit is not None and self.system is not None:
+            raise ValueError("give exactly one of 'circuit' and 'system'")
+        if self.circuit is None and self.system is None and self.block is None:
+            # (neither, with 'block': the system is given in Python, see TuningModel)
             raise ValueError("give exactly one of 'circuit' and 'system'")
         if self.system is not None and self.block is None:
             raise ValueError("with 'system', 'block' names the circuit block to size")

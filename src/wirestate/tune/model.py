@@ -78,13 +78,30 @@ class Evaluation:
 class TuningModel:
     """A tuning file resolved against its circuit; see the module docstring."""
 
-    def __init__(self, spec: TuningSpec, *, file: str | None = None) -> None:
+    def __init__(
+        self,
+        spec: TuningSpec,
+        *,
+        file: str | None = None,
+        system: ComposedSystem | None = None,
+    ) -> None:
+        """``system``: a composed system built in Python (:func:`wirestate.compose.compose`),
+        used instead of a system file; ``spec.tuning.block`` names its circuit block."""
         self.spec = spec
         self.file = file
         self.system_loop: SystemLoop | None = None
-        system = None
-        if spec.system_path is not None:
+        if system is not None:
+            circuit, self.circuit_file = self._given_system(system)
+        elif spec.system_path is not None:
             circuit, self.circuit_file, system = self._load_system()
+        elif spec.tuning.circuit is None:
+            raise TuningError(
+                "missing_field",
+                "the tuning names no circuit or system file; give 'circuit', 'system', or "
+                "a composed system in Python",
+                file=file,
+                location=("tuning",),
+            )
         else:
             self.circuit_file = spec.circuit_path
             self._check_exists(spec.circuit_path, "circuit")
@@ -190,6 +207,24 @@ class TuningModel:
         except WirestateError as exc:
             raise exc.with_file(str(path)) from None
         return circuit, circuit_file, system
+
+    def _given_system(self, system: ComposedSystem) -> tuple[CircuitSpec, str]:
+        design = self.spec.tuning.block
+        view = system.blocks.get(design) if design else None
+        source = getattr(view, "source", None)
+        if getattr(source, "spec", None) is None or not isinstance(source.spec, CircuitSpec):
+            circuits = [
+                n for n, b in system.blocks.items()
+                if isinstance(getattr(b.source, "spec", None), CircuitSpec)
+            ]  # fmt: skip
+            raise TuningError(
+                "unknown_part",
+                f"block {design!r} is not a circuit block of system {system.name!r} "
+                f"(circuit blocks: {', '.join(circuits) or 'none'})",
+                file=self.file,
+                location=("tuning", "block"),
+            )
+        return source.spec, f"circuit block {design!r} of system {system.name!r}"
 
     def _check_exists(self, path: Path, field_name: str) -> None:
         if not Path(path).is_file():

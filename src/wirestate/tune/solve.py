@@ -295,6 +295,7 @@ def solve(
     progress: Callable[[str], None] | None = None,
     *,
     file: str | None = None,
+    system: Any = None,
 ) -> TuningResult:
     """Size the design variables of ``spec``; see the module docstring.
 
@@ -306,6 +307,9 @@ def solve(
         IEC 60063 series for the preferred values: E6, E12, E24, E48 or E96.
     progress
         Called with one line of text per step (solver iterations, corners checked).
+    system
+        A composed system built in Python (:func:`wirestate.compose.compose`) to tune
+        instead of a file; ``spec.tuning.block`` names its circuit block.
 
     Returns
     -------
@@ -322,7 +326,7 @@ def solve(
     """
     series = _check_series(series)
     say = progress or (lambda _message: None)
-    model = TuningModel(spec, file=file)
+    model = TuningModel(spec, file=file, system=system)
     # the model's spec: a system's limited controllers add their output ranges as limits
     spec = model.spec
     start = start_values(model)
