@@ -24,6 +24,7 @@ from wirestate.simulate import simulate_system
 from wirestate.spec.tuning import load_tuning
 from wirestate.tune.model import TuningModel
 from wirestate.tune.nlp import solve_nlp
+from wirestate.tune.solve import solve
 
 BUS = (MODELS / "tuning" / "drive_bus.toml").as_posix()
 
@@ -288,9 +289,10 @@ def test_controller_table_and_system_agree_between_the_samples(write):
         np.testing.assert_allclose(ys, yt, rtol=1e-9, atol=1e-9 * np.abs(yt).max())
 
 
-def _limited(write, limits: str) -> Path:
-    # the sampled current loop with command limits, tuned with 10 us output steps
-    _system(write, sample_time="20us")
+def _limited(write, limits: str, sample_time: str | None = "20us") -> Path:
+    # the current loop (sampled, or continuous with None) with command limits, tuned with
+    # 10 us output steps
+    _system(write, sample_time=sample_time)
     path = write(
         "system_tuning.toml",
         TUNING.format(
@@ -481,7 +483,6 @@ def test_a_system_composed_in_python_tunes_like_its_file(write):
     from wirestate.compose import compose
     from wirestate.reduce import load_block
     from wirestate.spec.tuning import parse_tuning
-    from wirestate.tune.solve import solve
 
     sensor = control.ss(
         [[-1 / 5e-6]], [[1 / 5e-6]], [[1.0]], [[0.0]], name="current_sensor",
@@ -516,3 +517,15 @@ def test_a_system_composed_in_python_tunes_like_its_file(write):
     from_file = solve(load_tuning(file_model.file))
     for name, entry in in_python.variables.items():
         assert entry["optimum"] == pytest.approx(from_file.variables[name]["optimum"], rel=1e-6)
+
+
+def test_a_continuous_controller_with_limits_is_tuned_with_its_command_kept_inside(write):
+    # a continuous PI with output limits is a nonlinear block for the simulator; the tuning
+    # takes its unsaturated dynamics and keeps its command inside the limits
+    path = _limited(write, '["0V", "45V"]', sample_time=None)
+    model = TuningModel(load_tuning(path), file=str(path))
+    assert not model.sampled and "u__current_loop" in model.outputs
+    result = solve(load_tuning(path))
+    rows = {row["name"]: row for row in result.limits}
+    assert rows["current_loop_command_max"]["margin"] > 0
+    assert result.feasible
