@@ -250,6 +250,8 @@ def solve_nlp(
     formulation: str = "auto",
     hessian: str = "exact",
     robust: bool = False,
+    corner_factors: list[dict[str, float]] | None = None,
+    start: dict[str, float] | None = None,
 ) -> NlpSolution:
     """Build and solve the NLP of ``model``; see the module docstring.
 
@@ -270,6 +272,12 @@ def solve_nlp(
         variables included, times ``1 +- t``); the design variables and the objective
         (taken at the nominal values) are unchanged. Each corner adds the constraints of
         the nominal problem once more (and, in multiple shooting, its own states).
+    corner_factors
+        With ``robust``: impose the limits at these corners only (factor mappings as in
+        :meth:`TuningModel.tolerance_corners`), for an exchange over the corners.
+    start
+        Starting values of the design variables (default :func:`start_values`); the
+        limits are still defined against the nominal start, as everywhere.
     """
     import time
 
@@ -283,18 +291,22 @@ def solve_nlp(
     spec = model.spec
     names = model.variables
     bounds = {n: (float(spec.variables[n].min), float(spec.variables[n].max)) for n in names}
-    start = start_values(model)
-    start_ev = model.numeric(start)
+    nominal_start = start_values(model)
+    start_ev = model.numeric(nominal_start)
+    start = nominal_start if start is None else {**nominal_start, **start}
+    guess_ev = start_ev if start is nominal_start else model.numeric(start)
     # the points at which every limit is imposed: the nominal values (no factors) and,
     # when robust, every tolerance corner (factors 1 +- t on the toleranced parts)
     corners: list[dict[str, float]] = [{}]
     if robust:
         toleranced, factors = model.tolerance_corners()
+        if corner_factors is not None:
+            factors = list(corner_factors)
         # without toleranced parts the one "corner" is the nominal point itself
         corners += factors if toleranced else []
     # numeric starting evaluations at each corner: initial guesses and state scales only;
     # the limits themselves are defined against the nominal start, as in the verification
-    start_evs = [start_ev] + [model.numeric(model.corner_values(start, c)) for c in corners[1:]]
+    start_evs = [guess_ev] + [model.numeric(model.corner_values(start, c)) for c in corners[1:]]
     if formulation == "auto":
         stable = all(is_stable_discrete(np.asarray(e.Phi)) for e in start_evs)
         formulation = "condensed" if stable else "multiple_shooting"
