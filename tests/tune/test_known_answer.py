@@ -14,7 +14,7 @@ import math
 
 import pytest
 
-from wirestate.errors import TuningError
+from wirestate.errors import TuningError, WirestateError
 from wirestate.tune import load_tuning, solve
 
 
@@ -112,3 +112,29 @@ def test_robust_snapping_holds_at_every_tolerance_corner(rc_case):
         0.5 - _v(1e-3, 950.0, 0.9 * 1.8e-6), abs=1e-9
     )
     assert limit["margin_worst_corner"] > 0
+
+
+def test_a_precharged_capacitor_moves_the_optimum_to_its_closed_form(rc_case):
+    # C1 starts at 0.3 V (scenario.initial_values) with Vs = 1 V applied: v(t) = 1 - 0.7
+    # exp(-t / RC) (first-order step response from a non-zero initial value, e.g. Nilsson
+    # and Riedel, Electric Circuits, ch. 7); v(1 ms) <= 0.5 V with the least C gives
+    # C* = 1 ms / (1 kohm ln(1.4)). 1e-6 relative, as for the other RC known answers.
+    path = rc_case()
+    text = path.read_text(encoding="utf-8").replace(
+        'initial = "zero"', 'initial = "zero"\ninitial_values = { v_C1 = "0.3V" }'
+    )
+    path.write_text(text, encoding="utf-8")
+    result = solve(load_tuning(path), series="E24")
+    expected = 1e-3 / (1e3 * math.log(1.4))
+    assert result.variables["C1"]["optimum"] == pytest.approx(expected, rel=1e-6)
+
+
+def test_an_initial_value_for_an_unknown_state_names_the_states(rc_case):
+    path = rc_case()
+    text = path.read_text(encoding="utf-8").replace(
+        'initial = "zero"', 'initial = "zero"\ninitial_values = { v_C9 = "0.3V" }'
+    )
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(WirestateError, match="v_C1") as info:
+        solve(load_tuning(path))
+    assert info.value.location == ("scenario", "initial_values", "v_C9")

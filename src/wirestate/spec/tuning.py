@@ -33,6 +33,7 @@ limits, the objective and the stress conditions. Every quantity is read into SI 
     horizon = "8ms"
     step = "10us"
     initial = "steady_state"    # or "zero"
+    # initial_values = { v_Cf = "42V" }   # states set at t = 0 on top of that
     [scenario.inputs]           # operating point; default: the sources' values
     Vbat = "48V"
     [[scenario.steps]]          # input steps (the PI's "reference" too)
@@ -241,6 +242,11 @@ class Scenario(_Strict):
     initial: Literal["steady_state", "zero"] = Field(
         default="steady_state",
         description="state at t = 0: the steady state at the operating point, or zero",
+    )
+    initial_values: dict[str, Quantity] = Field(
+        default_factory=dict,
+        description="states set at t = 0 on top of 'initial', by state name (SI units), "
+        "e.g. a precharged capacitor { v_Cf = '42V' }",
     )
 
     @model_validator(mode="after")

@@ -177,6 +177,7 @@ class TuningModel:
         self.inputs = loop.inputs
         self.outputs = loop.outputs
         self._check_names()
+        self._initial_rows = self._initial_value_rows()
         self.schedule = self._schedule()
         self.reference = None
 
@@ -457,6 +458,27 @@ class TuningModel:
             return self._close_pi(block.A, block.B, block.C, block.D, _names(block))
         except WirestateError as exc:
             raise exc.with_file(self.file or "") from None
+
+    def _initial_value_rows(self) -> list[tuple[int, float]]:
+        """``(state index, value)`` of ``scenario.initial_values``."""
+        rows = []
+        for name, value in self.spec.scenario.initial_values.items():
+            if name not in self.states:
+                hint = ""
+                if any(s.split(".")[-1] == f"{name.split('.')[-1]}_shifted" for s in self.states):
+                    hint = (
+                        f"; {name} is a shifted state (physical value = state + offset x "
+                        "inputs): set the shifted state"
+                    )
+                raise TuningError(
+                    "unknown_signal",
+                    f"initial value for {name!r}, which is not a state (states: "
+                    f"{', '.join(self.states)}){hint}",
+                    file=self.file,
+                    location=("scenario", "initial_values", name),
+                )
+            rows.append((self.states.index(name), float(value)))
+        return rows
 
     @property
     def user_outputs(self) -> list[str]:
@@ -755,8 +777,12 @@ class TuningModel:
         """Steady state of the loop at the first input sample, or zero (scenario.initial)."""
         n = Phi.shape[0]
         if self.spec.scenario.initial == "zero":
-            return np.zeros(n)
-        return steady_state(Phi, Gamma, self.schedule[:, 0])
+            x = np.zeros(n)
+        else:
+            x = np.array(steady_state(Phi, Gamma, self.schedule[:, 0]), dtype=float)
+        for index, value in self._initial_rows:
+            x[index] = value
+        return x
 
     def symbolic_loop(self, values: dict[str, Any]) -> dict[str, Any]:
         """The continuous part of :meth:`symbolic`: the circuit's state space with part
@@ -821,6 +847,9 @@ class TuningModel:
         Xss = casadi.solve(casadi.DM.eye(n) - Phi, casadi.mtimes(Gamma, V))
         Yss = casadi.mtimes(C, Xss) + casadi.mtimes(D, V)
         x0 = Xss[:, 0] if self.spec.scenario.initial == "steady_state" else casadi.DM.zeros(n, 1)
+        if self._initial_rows:
+            given = dict(self._initial_rows)
+            x0 = casadi.vertcat(*[given[i] if i in given else x0[i] for i in range(n)])
         return {
             "Phi": Phi,
             "Gamma": Gamma,
