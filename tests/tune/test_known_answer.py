@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 import pytest
 
 from wirestate.errors import TuningError, WirestateError
@@ -138,3 +139,44 @@ def test_an_initial_value_for_an_unknown_state_names_the_states(rc_case):
     with pytest.raises(WirestateError, match="v_C1") as info:
         solve(load_tuning(path))
     assert info.value.location == ("scenario", "initial_values", "v_C9")
+
+
+def test_a_waveform_input_is_sampled_and_held_like_scipy_lsim(rc_case):
+    # Vs ramps from 0 to 1 V over 1 ms (scenario.waveforms, the syntax of simulate --input)
+    # with C1 at rest. Reference 1: scipy.signal.lsim of the same RC with the input held
+    # between samples (interp=False), to 1e-9. Reference 2: the ramp response's closed form
+    # v = t/T - (RC/T)(1 - exp(-t/RC)), t <= T (e.g. Nilsson and Riedel, Electric Circuits,
+    # ch. 7); the held staircase lags the ramp by half a step, so within h/(2T) = 0.5 %
+    # of the final value, T = 1 ms, h = 10 us.
+    from scipy.signal import lsim
+
+    from wirestate.tune.model import TuningModel
+
+    path = rc_case()
+    text = path.read_text(encoding="utf-8").replace(
+        'initial = "zero"', 'initial = "zero"\n[scenario.waveforms]\nVs = "ramp:1V@1ms"'
+    )
+    path.write_text(text, encoding="utf-8")
+    model = TuningModel(load_tuning(path))
+    C = 1e-6
+    ev = model.numeric({"C1": C})
+    t = model.times
+    v = ev.Y[model.outputs.index("v_out")]
+    rc = 1e3 * C
+    _, reference, _ = lsim(([1.0], [rc, 1.0]), model.schedule[0], t, interp=False)
+    assert v == pytest.approx(reference, abs=1e-9)
+    inside = t <= 1e-3 + 1e-12
+    closed = t / 1e-3 - rc / 1e-3 * (1 - np.exp(-t / rc))
+    assert np.max(np.abs(v[inside] - closed[inside])) <= 0.005 + 1e-9
+
+
+def test_a_waveform_and_a_step_on_one_input_are_refused(rc_case):
+    path = rc_case()
+    text = path.read_text(encoding="utf-8").replace(
+        'initial = "zero"',
+        'initial = "zero"\n[[scenario.steps]]\ninput = "Vs"\nat = "1ms"\nto = "2V"\n'
+        '[scenario.waveforms]\nVs = "ramp:1V@1ms"',
+    )
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(WirestateError, match="both a step and a waveform"):
+        solve(load_tuning(path))

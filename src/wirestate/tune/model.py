@@ -28,6 +28,7 @@ from wirestate.compose import ComposedSystem, block_circuit, system_from_spec
 from wirestate.errors import TuningError, WirestateError
 from wirestate.reduce import compile_circuit, symbolic_state_space
 from wirestate.simulate.discretize import zoh as numeric_zoh
+from wirestate.simulate.inputs import parse_waveform
 from wirestate.spec import CircuitSpec, load_circuit
 from wirestate.spec.system import load_system_spec
 from wirestate.spec.tuning import TuningSpec
@@ -571,7 +572,40 @@ class TuningModel:
                 )
             k = int(round(step.at / self.step))
             rows[self.inputs.index(step.input), k:] = float(step.to)
+        self._apply_waveforms(rows)
         return rows
+
+    def _apply_waveforms(self, rows: np.ndarray) -> None:
+        """``scenario.waveforms``: each input's row sampled from its waveform at the step
+        times (held over each step, as every input of the scenario)."""
+        scenario = self.spec.scenario
+        stepped = {step.input for step in scenario.steps}
+        times = np.arange(self.n_steps + 1) * self.step
+        for name, text in scenario.waveforms.items():
+            where = ("scenario", "waveforms", name)
+            if name not in self.inputs:
+                raise TuningError(
+                    "unknown_signal",
+                    f"the waveform drives {name!r}, which is not a free input (inputs: "
+                    f"{', '.join(self.inputs)})",
+                    file=self.file,
+                    location=where,
+                )
+            if name in stepped:
+                raise TuningError(
+                    "invalid_field",
+                    f"input {name!r} has both a step and a waveform; put the step into the "
+                    "waveform (pwl or step:...@time)",
+                    file=self.file,
+                    location=where,
+                )
+            try:
+                waveform = parse_waveform(
+                    text, self.units.get(name), name=name, base=Path(self.spec.base_dir)
+                )
+            except WirestateError as exc:
+                raise TuningError(exc.code, exc.message, file=self.file, location=where) from None
+            rows[self.inputs.index(name)] = waveform.values(times)
 
     def _open_loop_operating_output(self, level: dict[str, float]) -> float:
         # the reference defaults to the measured output at the circuit's own operating point
