@@ -24,8 +24,9 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.compose import ComposedSystem, block_circuit, system_from_spec
+from wirestate.compose import ComposedSystem, system_from_spec
 from wirestate.errors import TuningError, WirestateError
+from wirestate.lti import CircuitBlock
 from wirestate.reduce import compile_circuit, symbolic_state_space
 from wirestate.simulate.discretize import zoh as numeric_zoh
 from wirestate.simulate.inputs import parse_waveform
@@ -41,7 +42,7 @@ from wirestate.tune.loop import (
     hold_powers,
     open_loop,
 )
-from wirestate.tune.wiring import SystemLoop
+from wirestate.tune.wiring import SystemLoop, not_a_circuit_block
 
 CURRENT_PREFIX = "i__"
 VOLTAGE_PREFIX = "v__"
@@ -193,39 +194,19 @@ class TuningModel:
             system = system_from_spec(system_spec, file=path)
         except WirestateError as exc:
             raise exc.with_file(str(path)) from None
-        design = self.spec.tuning.block
-        block_spec = system_spec.blocks.get(design)
-        if block_spec is None or block_spec.kind != "circuit":
-            circuits = [n for n, b in system_spec.blocks.items() if b.kind == "circuit"]
-            raise TuningError(
-                "unknown_part",
-                f"block {design!r} is not a circuit block of system {system.name!r} "
-                f"(circuit blocks: {', '.join(circuits) or 'none'})",
-                file=self.file,
-                location=("tuning", "block"),
-            )
-        try:
-            circuit, circuit_file = block_circuit(design, block_spec, Path(path).parent)
-        except WirestateError as exc:
-            raise exc.with_file(str(path)) from None
+        circuit, _ = self._given_system(system)
+        # the design block's own file, for messages (the circuit has its values applied)
+        circuit_file = Path(system_spec.blocks[self.spec.tuning.block].file)
+        if not circuit_file.is_absolute():
+            circuit_file = Path(path).parent / circuit_file
         return circuit, circuit_file, system
 
     def _given_system(self, system: ComposedSystem) -> tuple[CircuitSpec, str]:
         design = self.spec.tuning.block
         view = system.blocks.get(design) if design else None
         source = getattr(view, "source", None)
-        if getattr(source, "spec", None) is None or not isinstance(source.spec, CircuitSpec):
-            circuits = [
-                n for n, b in system.blocks.items()
-                if isinstance(getattr(b.source, "spec", None), CircuitSpec)
-            ]  # fmt: skip
-            raise TuningError(
-                "unknown_part",
-                f"block {design!r} is not a circuit block of system {system.name!r} "
-                f"(circuit blocks: {', '.join(circuits) or 'none'})",
-                file=self.file,
-                location=("tuning", "block"),
-            )
+        if not isinstance(source, CircuitBlock) or not isinstance(source.spec, CircuitSpec):
+            raise not_a_circuit_block(system, design, self.file)
         return source.spec, f"circuit block {design!r} of system {system.name!r}"
 
     def _check_exists(self, path: Path, field_name: str) -> None:

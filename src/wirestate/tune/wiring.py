@@ -71,14 +71,7 @@ class SystemLoop:
         self.design = design
         blocks = system.blocks
         if design not in blocks or not isinstance(blocks[design].source, CircuitBlock):
-            circuits = [n for n, b in blocks.items() if isinstance(b.source, CircuitBlock)]
-            raise TuningError(
-                "unknown_part",
-                f"block {design!r} is not a circuit block of system {system.name!r} "
-                f"(circuit blocks: {', '.join(circuits) or 'none'})",
-                file=file,
-                location=("tuning", "block"),
-            )
+            raise not_a_circuit_block(system, design, file)
         #: ``block.output -> (low, high)`` of every controller with output limits; the loop
         #: uses its unsaturated dynamics, exact while the command stays inside the limits
         self.output_ranges: dict[str, tuple[float, float]] = {}
@@ -241,6 +234,18 @@ class SystemLoop:
             D_j = casadi.vertcat(mt(Cy, Gw_j) + Dyw + mt(via_held, Yw), Yw)
             maps.append((_back(C_j, numeric), _back(D_j, numeric)))
         return _back(Phi_cl, numeric), _back(Gamma_cl, numeric), maps
+
+
+def not_a_circuit_block(system: ComposedSystem, design: Any, file: str | None) -> TuningError:
+    """The error for a ``block`` that names no circuit block of ``system``."""
+    circuits = [n for n, b in system.blocks.items() if isinstance(b.source, CircuitBlock)]
+    return TuningError(
+        "unknown_part",
+        f"block {design!r} is not a circuit block of system {system.name!r} "
+        f"(circuit blocks: {', '.join(circuits) or 'none'})",
+        file=file,
+        location=("tuning", "block"),
+    )
 
 
 def _numeric(*items: Any) -> bool:
