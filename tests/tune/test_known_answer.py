@@ -118,8 +118,9 @@ def test_robust_snapping_holds_at_every_tolerance_corner(rc_case):
 def test_a_precharged_capacitor_moves_the_optimum_to_its_closed_form(rc_case):
     # C1 starts at 0.3 V (scenario.initial_values) with Vs = 1 V applied: v(t) = 1 - 0.7
     # exp(-t / RC) (first-order step response from a non-zero initial value, e.g. Nilsson
-    # and Riedel, Electric Circuits, ch. 7); v(1 ms) <= 0.5 V with the least C gives
-    # C* = 1 ms / (1 kohm ln(1.4)). 1e-6 relative, as for the other RC known answers.
+    # and Riedel, Electric Circuits, ch. 7, chapter from memory); v(1 ms) <= 0.5 V with
+    # the least C gives C* = 1 ms / (1 kohm ln(1.4)). 1e-6 relative, as for the other RC
+    # known answers.
     path = rc_case()
     text = path.read_text(encoding="utf-8").replace(
         'initial = "zero"', 'initial = "zero"\ninitial_values = { v_C1 = "0.3V" }'
@@ -146,8 +147,8 @@ def test_a_waveform_input_is_sampled_and_held_like_scipy_lsim(rc_case):
     # with C1 at rest. Reference 1: scipy.signal.lsim of the same RC with the input held
     # between samples (interp=False), to 1e-9. Reference 2: the ramp response's closed form
     # v = t/T - (RC/T)(1 - exp(-t/RC)), t <= T (e.g. Nilsson and Riedel, Electric Circuits,
-    # ch. 7); the held staircase lags the ramp by half a step, so within h/(2T) = 0.5 %
-    # of the final value, T = 1 ms, h = 10 us.
+    # ch. 7, chapter from memory); the held staircase lags the ramp by half a step, so
+    # within h/(2T) = 0.5 % of the final value, T = 1 ms, h = 10 us.
     from scipy.signal import lsim
 
     from wirestate.tune.model import TuningModel

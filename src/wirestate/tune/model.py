@@ -340,31 +340,34 @@ class TuningModel:
         """Unit of every output (and input) the limits can name."""
         if self.system_loop is None:
             return dict(self.block.units)
-        watch = {o: u for o, u in self.block.units.items() if o.startswith(_WATCH)}
         blocks = self.system_loop.system.blocks
-        commands = {
-            COMMAND_PREFIX + s.split(".")[0]: blocks[s.split(".")[0]].units.get(s.split(".")[1], "")
-            for s in self.system_loop.output_ranges
-        }
-        return {**self.system_loop.system.units, **watch, **commands}
+        units = dict(self.system_loop.system.units)
+        for output, signal in self._system_signals():
+            block, sig = signal.split(".")
+            # the design block as compiled here carries the watch outputs' units
+            own = self.block.units if block == self.system_loop.design else blocks[block].units
+            units.setdefault(output, own.get(sig, ""))
+        return units
+
+    def _system_signals(self) -> list[tuple[str, str]]:
+        """``(output, block.signal)`` of a system case: the system's external outputs, the
+        design block's watch outputs, then the commands of limited controllers."""
+        loop = self.system_loop
+        pairs = list(loop.system.external_outputs.items())
+        pairs += [(o, f"{loop.design}.{o}") for o in self.block.outputs if o.startswith(_WATCH)]
+        pairs += [(COMMAND_PREFIX + s.split(".")[0], s) for s in loop.output_ranges]
+        return pairs
 
     def _system_outputs(self) -> list[str]:
-        """The outputs of a system case: the system's external outputs, then the design
-        block's watch outputs; each is a row of :attr:`SystemLoop.signals`."""
-        loop = self.system_loop
-        watch = [o for o in self.block.outputs if o.startswith(_WATCH)]
-        commands = [COMMAND_PREFIX + s.split(".")[0] for s in loop.output_ranges]
-        return list(loop.system.external_outputs) + watch + commands
+        """The outputs of a system case (see :meth:`_system_signals`)."""
+        return [output for output, _ in self._system_signals()]
 
     def _system_rows(self, signals: list[str]) -> np.ndarray:
         """0/1 matrix picking :meth:`_system_outputs` out of ``signals`` (a missing one,
         such as a sampled output in the continuous part, gives a zero row)."""
-        loop = self.system_loop
-        names = [loop.system.external_outputs[o] for o in loop.system.external_outputs]
-        names += [f"{loop.design}.{o}" for o in self.block.outputs if o.startswith(_WATCH)]
-        names += list(loop.output_ranges)
-        S = np.zeros((len(names), len(signals)))
-        for row, name in enumerate(names):
+        pairs = self._system_signals()
+        S = np.zeros((len(pairs), len(signals)))
+        for row, (_, name) in enumerate(pairs):
             if name in signals:
                 S[row, signals.index(name)] = 1.0
         return S
@@ -657,13 +660,9 @@ class TuningModel:
         block = self._compile({**self.nominal, **values})
         A, B = self._continuous_for_zoh(block)
         M = np.block([[A, B], [np.zeros((B.shape[1], A.shape[0] + B.shape[1]))]])
-        return float(np.abs(M * self.zoh_step).sum(axis=0).max())
-
-    @property
-    def zoh_step(self) -> float:
-        """The step over which the matrix exponential is taken (see :meth:`step_norm`): the
-        output step; a sampled loop's period is made of powers of that hold."""
-        return self.output_step
+        # the exponential is taken over the output step (a sampled loop's period is made
+        # of powers of that hold)
+        return float(np.abs(M * self.output_step).sum(axis=0).max())
 
     def _continuous_for_zoh(self, block) -> tuple[np.ndarray, np.ndarray]:
         if self.system_loop is not None:
@@ -710,13 +709,13 @@ class TuningModel:
         block = self._compile(all_values)
         if self.system_loop is not None:
             m = self._system_matrices(
-                block.A, block.B, block.C, block.D, lambda A, B: numeric_zoh(A, B, self.zoh_step)
+                block.A, block.B, block.C, block.D, lambda A, B: numeric_zoh(A, B, self.output_step)
             )
             Phi, Gamma, C, D = m["Phi"], m["Gamma"], m["C"], m["D"]
             output_maps = m["outputs"]
             loop_c = Loop(m["A"], m["B"], m["Cc"], m["Dc"], [], [], [])
         elif self.sampled:
-            powers = hold_powers(*numeric_zoh(block.A, block.B, self.zoh_step), self.substeps)
+            powers = hold_powers(*numeric_zoh(block.A, block.B, self.output_step), self.substeps)
             Ad, Bd = powers[-1]
             loop_d = self._close_pi(Ad, Bd, block.C, block.D, _names(block), self.step)
             loop_c = self._loop_numeric(block)
@@ -837,13 +836,13 @@ class TuningModel:
         ss, loop_c, names = loop["ss"], loop["loop"], loop["names"]
         if self.system_loop is not None:
             m = self._system_matrices(
-                ss.A, ss.B, ss.C, ss.D, lambda A, B: cexpm.zoh(A, B, self.zoh_step, squarings)
+                ss.A, ss.B, ss.C, ss.D, lambda A, B: cexpm.zoh(A, B, self.output_step, squarings)
             )
             Phi, Gamma, C, D = m["Phi"], m["Gamma"], m["C"], m["D"]
             output_maps = m["outputs"]
             loop_c = Loop(m["A"], m["B"], m["Cc"], m["Dc"], [], [], [])
         elif self.sampled:
-            powers = hold_powers(*cexpm.zoh(ss.A, ss.B, self.zoh_step, squarings), self.substeps)
+            powers = hold_powers(*cexpm.zoh(ss.A, ss.B, self.output_step, squarings), self.substeps)
             Ad, Bd = powers[-1]
             loop_d = self._close_pi(Ad, Bd, ss.C, ss.D, names, self.step)
             Phi, Gamma, C, D = loop_d.A, loop_d.B, loop_d.C, loop_d.D

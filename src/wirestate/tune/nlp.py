@@ -187,7 +187,7 @@ def _squarings(model: TuningModel, q_sx: Any, zoh_pair: tuple[Any, Any], q_point
     import casadi
 
     A, B = zoh_pair
-    norm = model.zoh_step * casadi.fmax(
+    norm = model.output_step * casadi.fmax(
         casadi.mmax(casadi.sum1(casadi.fabs(A))), casadi.mmax(casadi.sum1(casadi.fabs(B)))
     )
     fn = casadi.Function("step_norm", [q_sx], [norm])

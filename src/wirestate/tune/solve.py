@@ -210,12 +210,11 @@ def _worst_over_corners(
     # tolerance corner, with that corner (a corner that cannot be compiled is skipped)
     worst = [dict(r, worst_corner={}) for r in nominal_rows]
     toleranced, corners = _corners(model, values)
-    for corner in corners if toleranced else []:
-        try:
-            rows = limit_margins(model, model.numeric({**values, **corner}), start)
-        except WirestateError:
-            continue
-        for index, row in enumerate(rows):
+    if not toleranced:
+        return worst
+    factors = model.tolerance_corners()[1]
+    for corner, rows in zip(corners, _corner_rows(model, values, factors, start), strict=True):
+        for index, row in enumerate(rows or []):
             if row["relative_margin"] < worst[index]["relative_margin"]:
                 worst[index] = dict(row, worst_corner=dict(corner))
     return worst
@@ -228,16 +227,16 @@ _EXCHANGE_TOLERANCE = 1e-5
 _EXCHANGE_ROUNDS = 8
 
 
-def _corner_margins(
+def _corner_rows(
     model: TuningModel, values: dict[str, float], factors: list[dict], start: Evaluation
-) -> list[list[float] | None]:
-    # per corner (factor mapping), the relative margin of every limit; None where the
+) -> list[list[dict[str, Any]] | None]:
+    # per corner (factor mapping), the margin rows of every limit; None where the
     # circuit cannot be compiled at that corner
-    out: list[list[float] | None] = []
+    out: list[list[dict[str, Any]] | None] = []
     for factor in factors:
         try:
             ev = model.numeric(model.corner_values(values, factor))
-            out.append([row["relative_margin"] for row in limit_margins(model, ev, start)])
+            out.append(limit_margins(model, ev, start))
         except WirestateError:
             out.append(None)
     return out
@@ -261,27 +260,27 @@ def _solve_robust(
         return solve_nlp(model, robust=True, **options)
     start = start_values(model)
 
-    def worst_per_limit(values: dict[str, float]) -> tuple[list[int], int]:
-        # indices of the worst corner of each violated limit, and the count of violated
-        # corners; at the start (values = start) every limit's worst corner is taken
-        margins = _corner_margins(model, values, factors, start_ev)
+    def worst_per_limit(values: dict[str, float], every: bool) -> tuple[list[int], int]:
+        # indices of the worst corner of each violated limit (of every limit when
+        # ``every``), and the count of corners that break some limit
+        per_corner = _corner_rows(model, values, factors, start_ev)
         picked: list[int] = []
         violated = set()
-        n_limits = len(model.spec.limits)
-        for lim in range(n_limits):
-            rows = [(m[lim], k) for k, m in enumerate(margins) if m is not None]
-            if not rows:
+        for lim in range(len(model.spec.limits)):
+            margins = [(r[lim]["relative_margin"], k) for k, r in enumerate(per_corner) if r]
+            if not margins:
                 continue
-            margin, k = min(rows)
-            violated |= {j for m_j, j in rows if m_j < -_EXCHANGE_TOLERANCE}
-            if values is start or margin < -_EXCHANGE_TOLERANCE:
+            margin, k = min(margins)
+            violated |= {j for m_j, j in margins if m_j < -_EXCHANGE_TOLERANCE}
+            if every or margin < -_EXCHANGE_TOLERANCE:
                 picked.append(k)
         return picked, len(violated)
 
-    initial, _ = worst_per_limit(start)
+    initial, _ = worst_per_limit(start, every=True)
     active = sorted(set(initial))
     point: dict[str, float] | None = None
     seconds, iterations = 0.0, 0
+    settled = False
     for round_index in range(1, _EXCHANGE_ROUNDS + 1):
         say(
             f"robust: round {round_index}, limits imposed at {len(active)} of "
@@ -295,10 +294,13 @@ def _solve_robust(
         iterations += nlp.iterations
         if nlp.status not in _CONVERGED:
             break
-        picked, count = worst_per_limit(nlp.values)
+        picked, count = worst_per_limit(nlp.values, every=False)
         new = sorted(set(picked) - set(active))
-        if count == 0 or not new:
+        if count == 0:
+            settled = True
             say(f"robust: every one of the {len(factors)} corners meets every limit")
+            break
+        if not new:  # the violated corners are imposed already: IPOPT's tolerance
             break
         say(f"robust: {count} corner(s) break a limit at this optimum; adding {len(new)}")
         active = sorted(set(active) | set(new))
@@ -308,6 +310,7 @@ def _solve_robust(
     nlp.stats["tolerance_corners_in_optimiser"] = len(active)
     nlp.stats["tolerance_corners"] = len(factors)
     nlp.stats["exchange_rounds"] = round_index
+    nlp.stats["exchange_settled"] = settled
     return nlp
 
 
@@ -482,11 +485,16 @@ def solve(
         count = nlp.stats.get("tolerance_corners_in_optimiser", 0)
         total = nlp.stats.get("tolerance_corners", count)
         rounds = nlp.stats.get("exchange_rounds", 1)
+        outcome = (
+            f"at the optimum every limit holds at all {total} of them"
+            if nlp.stats.get("exchange_settled", True)
+            else "the exchange stopped before every corner met every limit"
+        )
+        parts = ", ".join(toleranced_nlp) or "no toleranced parts"
         notes.append(
-            f"robust: every limit holds at the nominal values and at all {total} tolerance "
-            f"corners ({', '.join(toleranced_nlp) or 'no toleranced parts'}); the optimiser "
-            f"imposed them at the {count} that bind, found in {rounds} round(s) of a "
-            "corner exchange"
+            f"robust: limits imposed in the optimiser at the nominal values and at {count} "
+            f"of {total} tolerance corners ({parts}), chosen by a corner exchange in "
+            f"{rounds} round(s); {outcome}"
         )
     if spec.solver.robust and nlp.status not in _CONVERGED:
         check_rows = _worst_over_corners(model, nlp.values, optimum_rows, start_ev)
