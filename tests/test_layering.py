@@ -20,6 +20,7 @@ LAYERS = [
     {"compose"},
     {"simulate"},
     {"tune"},
+    {"explore"},
     {"report"},
     {"commands", "cli"},
 ]
