@@ -27,7 +27,7 @@ from wirestate.blocks import NonlinearBlock, PIDController
 from wirestate.blocks import controllers as _controllers
 from wirestate.blocks import mechanical as _mechanical
 from wirestate.errors import CompositionError, WirestateError
-from wirestate.lti import CircuitBlock
+from wirestate.lti import CircuitBlock, named_state_space
 from wirestate.reduce import compile_circuit
 from wirestate.spec import load_circuit
 from wirestate.spec.system import SystemSpec, load_system_spec
@@ -220,20 +220,28 @@ class ComposedSystem:
         sys = part.system
         rows_in = [part.inputs.index(n) for n in self.inputs]
         rows_out = [part.outputs.index(self.external_outputs[n]) for n in self.outputs]
-        return control.ss(
-            sys.A,
-            np.asarray(sys.B)[:, rows_in],
-            np.asarray(sys.C)[rows_out, :],
-            np.asarray(sys.D)[np.ix_(rows_out, rows_in)],
-            name=self.name,
-            inputs=self.inputs,
-            outputs=self.outputs,
-            states=part.states,
+        # named_state_space: a system without external inputs is a valid system too
+        n, m, p = len(part.states), len(part.inputs), len(part.outputs)
+        return named_state_space(
+            _shaped(sys.A, n, n),
+            _shaped(sys.B, n, m)[:, rows_in],
+            _shaped(sys.C, p, n)[rows_out, :],
+            _shaped(sys.D, p, m)[np.ix_(rows_out, rows_in)],
+            self.name,
+            self.inputs,
+            self.outputs,
+            part.states,
         )
 
     def poles(self) -> np.ndarray:
         """Poles of the composed LTI system (rad/s)."""
         return np.asarray(self.state_space().poles())
+
+
+def _shaped(matrix: Any, rows: int, cols: int) -> np.ndarray:
+    # python-control stores an empty (n, 0) matrix as (0, 0)
+    matrix = np.asarray(matrix, dtype=float)
+    return np.zeros((rows, cols)) if matrix.size == 0 else matrix.reshape(rows, cols)
 
 
 @dataclass
@@ -577,7 +585,14 @@ def _with_values(circuit: Any, values: Mapping[str, Any], block: str, file: str)
             )
         unit = unit_of.get(circuit.parts[part].kind, "1")
         si[part] = parse_quantity(value, unit, field=f"values.{part}")
-    return circuit.with_values(si)
+    try:
+        return circuit.with_values(si)
+    except WirestateError as exc:
+        # point at the replacement in the system file, not at the circuit file's field
+        if len(exc.location) >= 2 and exc.location[0] == "parts" and exc.location[1] in si:
+            exc.location = ("blocks", block, "values", exc.location[1])
+            exc.args = (str(exc),)
+        raise
 
 
 def system_from_spec(spec: SystemSpec, *, file: str | Path | None = None) -> ComposedSystem:

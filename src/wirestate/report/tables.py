@@ -88,8 +88,13 @@ def block_summary(block: CircuitBlock) -> str:
     out.append("DC gain (output per input, SI units)")
     gain = _clean(block.dc_gain())
     if block.inputs and block.outputs:
-        rows = [[name, *gain[i]] for i, name in enumerate(block.outputs)]
+        rows = [[name, *map(_gain_cell, gain[i])] for i, name in enumerate(block.outputs)]
         out.append(table(("output \\ input", *block.inputs), rows))
+        if np.isinf(gain).any():
+            out.append(
+                "  unbounded: a pole at s = 0 that this input drives and this output sees "
+                "(the response grows without limit, as a capacitor charged by a current)"
+            )
     else:
         out.append("  (no inputs or no outputs)")
     if block.notes:
@@ -97,6 +102,10 @@ def block_summary(block: CircuitBlock) -> str:
         out.append("notes")
         out.extend(f"  {note}" for note in block.notes)
     return "\n".join(out)
+
+
+def _gain_cell(value: float) -> float | str:
+    return value if math.isfinite(value) else ("unbounded" if value > 0 else "-unbounded")
 
 
 def block_json(block: CircuitBlock) -> dict[str, Any]:
