@@ -482,32 +482,46 @@ def _check_loops(views: dict[str, BlockView], wiring: dict[str, str], file: str 
     for b in views.values():
         for i, o in b.feedthrough():
             edges.setdefault(f"{b.name}.{i}", []).append(f"{b.name}.{o}")
-    colour: dict[str, int] = {}
-    stack: list[str] = []
+    loop = find_cycle(edges)
+    if loop is not None:
+        raise CompositionError(
+            "algebraic_loop",
+            f"algebraic loop through {' -> '.join(loop)}: every block on it passes "
+            "its input straight to its output; add a state (a filter, a sampled "
+            "controller with a computation delay) or remove a direct path",
+            file=file,
+            location=("wiring", loop[-1]),
+        )
 
-    def visit(node: str) -> None:
-        colour[node] = 1
-        stack.append(node)
-        for nxt in edges.get(node, ()):
+
+def find_cycle(edges: Mapping[str, list[str]]) -> list[str] | None:
+    """A directed cycle of ``edges`` as ``[a, b, ..., a]``, or ``None``.
+
+    Depth-first search with an explicit stack (Tarjan's colouring, Cormen et al.,
+    Introduction to Algorithms, 3rd ed., sec. 22.3), so a chain of any length is safe
+    (a recursive search failed at about 500 blocks).
+    """
+    colour: dict[str, int] = {}
+    for root in list(edges):
+        if colour.get(root, 0):
+            continue
+        path: list[str] = [root]
+        iterators = [iter(edges.get(root, ()))]
+        colour[root] = 1
+        while iterators:
+            nxt = next(iterators[-1], None)
+            if nxt is None:
+                colour[path.pop()] = 2
+                iterators.pop()
+                continue
             state = colour.get(nxt, 0)
             if state == 1:
-                loop = stack[stack.index(nxt) :] + [nxt]
-                raise CompositionError(
-                    "algebraic_loop",
-                    f"algebraic loop through {' -> '.join(loop)}: every block on it passes "
-                    "its input straight to its output; add a state (a filter, a sampled "
-                    "controller with a computation delay) or remove a direct path",
-                    file=file,
-                    location=("wiring", nxt),
-                )
+                return path[path.index(nxt) :] + [nxt]
             if state == 0:
-                visit(nxt)
-        stack.pop()
-        colour[node] = 2
-
-    for node in list(edges):
-        if colour.get(node, 0) == 0:
-            visit(node)
+                colour[nxt] = 1
+                path.append(nxt)
+                iterators.append(iter(edges.get(nxt, ())))
+    return None
 
 
 # -- from a system file ------------------------------------------------------------------

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -170,21 +171,25 @@ def dc_gain_limit(A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray) ->
     n = A.shape[0]
     if n == 0 or B.shape[1] == 0 or C.shape[0] == 0:
         return D.copy()
+    regular = _regular_dc_gain(A, B, C, D)
+    if regular is not None:
+        return regular
+    import scipy.linalg
+
+    # a diagonal similarity (powers of 2, exact) evens out rows and columns first
+    A, (T_scale, _) = scipy.linalg.matrix_balance(A, permute=False, separate=True)
+    B, C = B / T_scale[:, None], C * T_scale[None, :]
     scale = float(np.abs(A).sum(axis=0).max())
     if scale == 0.0:
         split = 0  # A = 0: every pole at the origin
         T, Z = A, np.eye(n)
     else:
-        import scipy.linalg
-
         threshold = ZERO_POLE_TOLERANCE * scale
         T, Z, split = scipy.linalg.schur(
             A, output="real", sort=lambda re, im: math.hypot(re, im) > threshold
         )
     if split == n:
         return D - C @ np.linalg.solve(A, B)
-    import scipy.linalg
-
     T11, T12, N = T[:split, :split], T[:split, split:], T[split:, split:].copy()
     # the nilpotent part's diagonal is round-off of the poles at the origin
     N[np.abs(N) <= ZERO_POLE_TOLERANCE * scale] = 0.0
@@ -208,6 +213,39 @@ def dc_gain_limit(A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray) ->
         if not power.any():
             break
     return gain
+
+
+#: a row-and-column equilibrated A whose reciprocal condition number is below this is
+#: taken as singular (common practice, no source)
+SINGULAR_RCOND = 1e-12
+
+
+def _regular_dc_gain(A, B, C, D) -> np.ndarray | None:
+    """``D - C A^-1 B`` when ``A`` is safely invertible, else ``None``.
+
+    ``A`` is equilibrated by row and then column scaling first (``A^-1 B = Dc (Dr A Dc)^-1
+    Dr B``), so a part many decades smaller than the rest (a 1e-300 F capacitor beside
+    a 1 mH inductor) does not make a regular matrix look singular.
+    """
+    import scipy.linalg
+
+    rows = np.abs(A).max(axis=1)
+    if not rows.all():
+        return None
+    scaled = A / rows[:, None]
+    cols = np.abs(scaled).max(axis=0)
+    if not cols.all():
+        return None
+    scaled = scaled / cols[None, :]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", scipy.linalg.LinAlgWarning)  # singular: decided below
+        lu, piv = scipy.linalg.lu_factor(scaled, check_finite=False)
+    rcond, info = scipy.linalg.lapack.dgecon(lu, np.abs(scaled).sum(axis=0).max(), norm="1")
+    if info != 0 or not rcond > SINGULAR_RCOND:
+        return None
+    X = scipy.linalg.lu_solve((lu, piv), B / rows[:, None], check_finite=False) / cols[:, None]
+    gain = D - C @ X
+    return gain if np.all(np.isfinite(gain)) else None
 
 
 def modes(poles: np.ndarray) -> list[dict[str, float]]:
