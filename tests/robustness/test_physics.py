@@ -101,3 +101,20 @@ def test_system_values_name_the_replacement(tmp_path):
     with pytest.raises(WirestateError) as err:
         load_system(tmp_path / "s.toml")
     assert err.value.location == ("blocks", "c", "values", "R1")
+
+
+def test_singular_equations_name_the_part_in_the_loop():
+    # a vcvs of gain 1 whose control is its own output node: v_b = 1 * v_b holds for every
+    # v_b, so the equations have no unique solution (issue 10.14)
+    parts = {
+        "V1": part("voltage_source", ["in", "gnd"]),
+        "R0": part("resistor", ["in", "a"], value="1k"),
+        "R1": part("resistor", ["a", "gnd"], value="1k"),
+        "E1": part("vcvs", ["b", "gnd"], control="b", gain=1.0),
+        "R2": part("resistor", ["b", "gnd"], value="1k"),
+    }
+    with pytest.raises(WirestateError) as err:
+        compile_circuit(parse_circuit(circuit("self", parts, {"v": {"voltage": "b"}})))
+    assert err.value.code == "singular_equations"
+    assert err.value.location == ("parts", "E1")
+    assert "E1" in err.value.message and "R0" not in err.value.message
