@@ -8,7 +8,7 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.lti import CircuitBlock, modes
+from wirestate.lti import LARGE_BLOCK_STATES, CircuitBlock, extreme_poles, modes
 
 
 def table(headers: Sequence[str], rows: Sequence[Sequence[Any]], *, indent: str = "  ") -> str:
@@ -48,7 +48,10 @@ def block_summary(block: CircuitBlock) -> str:
     out[0] += f"{len(block.outputs)} outputs"
     out.append("")
     out.append("signals")
-    rows = [("state", name, block.units.get(name, "")) for name in block.states]
+    listed = block.states if block.n_states <= 40 else block.states[:20]
+    rows = [("state", name, block.units.get(name, "")) for name in listed]
+    if len(listed) < block.n_states:
+        rows.append(("state", f"... {block.n_states - len(listed)} more", ""))
     rows += [
         (
             "input",
@@ -60,9 +63,19 @@ def block_summary(block: CircuitBlock) -> str:
     rows += [("output", name, block.units.get(name, "")) for name in block.outputs]
     out.append(table(("role", "name", "unit"), rows))
     out.append("")
-    out.append("modes (poles of A)")
+    large = block.n_states > LARGE_BLOCK_STATES
+    if large:
+        slowest, fastest = extreme_poles(block.A, 10)
+        out.append(
+            f"modes (poles of A): {block.n_states} states; the 10 slowest, then the 10 "
+            "fastest (sparse Arnoldi; the full list with --json)"
+        )
+        shown = np.concatenate([slowest, fastest])
+    else:
+        out.append("modes (poles of A)")
+        shown = block.poles()
     mode_rows = []
-    for m in modes(block.poles()):
+    for m in modes(shown):
         if m["imag"] < 0:
             continue  # one line per conjugate pair
         mode_rows.append(
