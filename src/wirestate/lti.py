@@ -121,7 +121,7 @@ def named_state_space(
     B = np.asarray(B, dtype=float).reshape(n, m)
     C = np.asarray(C, dtype=float).reshape(p, n)
     D = np.asarray(D, dtype=float).reshape(p, m)
-    if m > 0 or n == 0:
+    if m > 0:
         return control.ss(
             A, B, C, D, name=name, inputs=list(inputs), outputs=list(outputs),
             states=list(states),

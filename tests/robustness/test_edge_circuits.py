@@ -185,3 +185,13 @@ def test_regress_update_takes_zero_state_and_no_input_blocks(tmp_path):
     (models / "rc.toml").write_text(toml_text(circuit("rc", RC, {"v": {"voltage": "a"}})))
     assert main(["regress", str(models / "divider.toml"), str(models / "rc.toml"), "--update"]) == 0
     assert main(["regress", str(models / "divider.toml"), str(models / "rc.toml")]) == 0
+
+
+def test_no_states_and_no_inputs_converts():
+    # found by make fuzz: a vcvs of gain 0 measured by its current, nothing else
+    block = _compile(
+        {"P0": part("vcvs", ["gnd", "a"], control=["gnd", "gnd"], gain=0.0)},
+        {"y0": {"current": "P0"}},
+    )
+    sys = block.state_space()
+    assert (sys.nstates, sys.ninputs, sys.noutputs) == (0, 0, 1)
