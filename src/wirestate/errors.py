@@ -62,6 +62,14 @@ ERROR_CODES: dict[str, str] = {
     "golden_missing": "no golden file for a model",
     "invalid_golden": "a golden file that cannot be read",
     "invalid_benchmark_file": "a benchmark result file that cannot be read",
+    # robustness: physical checks, run-size limits, non-finite results (issue 10)
+    "indefinite_inductance": "couplings that make the inductance matrix not positive definite",
+    "duplicate_coupling": "two couplings between the same pair of inductors",
+    "non_finite_value": "a NaN or infinite number where a finite value is needed",
+    "non_finite_result": "a result that left the floating-point range (an unstable mode)",
+    "run_too_large": "a run whose arrays or output file would not fit in memory or on disk",
+    "unwritable_output": "an output file path whose folder is missing or not writable",
+    "nesting_too_deep": "a file nested deeper than the reader accepts",
 }
 
 
