@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import control
 import numpy as np
+
+if TYPE_CHECKING:  # python-control costs about 1.5 s to import: only where it is used
+    import control
 
 
 @dataclass
@@ -70,6 +72,8 @@ class CircuitBlock:
 
     def state_space(self) -> control.StateSpace:
         """The block as a named ``control.StateSpace`` (continuous time)."""
+        import control
+
         return control.ss(
             self.A,
             self.B,
@@ -95,6 +99,8 @@ class CircuitBlock:
         try:
             return self.D - self.C @ np.linalg.solve(self.A, self.B)
         except np.linalg.LinAlgError:
+            import control
+
             with np.errstate(all="ignore"):
                 return np.asarray(
                     control.ss(self.A, self.B, self.C, self.D).dcgain(), dtype=float
