@@ -5,10 +5,12 @@ from __future__ import annotations
 import math
 import warnings
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import control
 import numpy as np
+
+if TYPE_CHECKING:  # python-control costs about 1.5 s to import: only where it is used
+    import control
 
 
 @dataclass
@@ -116,6 +118,8 @@ def named_state_space(
     then removed, which leaves a consistent object (checked by simulation and
     ``interconnect`` in the tests).
     """
+    import control
+
     n, m, p = len(states), len(inputs), len(outputs)
     A = np.asarray(A, dtype=float).reshape(n, n)
     B = np.asarray(B, dtype=float).reshape(n, m)

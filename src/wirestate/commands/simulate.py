@@ -6,14 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from wirestate.compose import is_system_file, system_from_spec
 from wirestate.errors import SimulationError
-from wirestate.reduce import compile_circuit
-from wirestate.simulate import simulate
-from wirestate.simulate.inputs import parse_assignment
-from wirestate.spec import parse_circuit
-from wirestate.spec.load import read_toml
-from wirestate.spec.system import parse_system
 from wirestate.units import format_quantity, parse_quantity
 
 #: runs with more steps than this report progress on stderr
@@ -58,6 +51,16 @@ def _progress(fraction: float) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    # imported here, not at module level: the CLI imports this module to configure the
+    # parser, and `wirestate simulate --help` should not pay for control/scipy
+    from wirestate.compose import is_system_file, system_from_spec
+    from wirestate.reduce import compile_circuit
+    from wirestate.simulate import simulate
+    from wirestate.simulate.inputs import parse_assignment
+    from wirestate.spec import parse_circuit
+    from wirestate.spec.load import read_toml
+    from wirestate.spec.system import parse_system
+
     path = Path(args.model)
     until = _time(args.until, "until")
     step = _time(args.step, "step")
