@@ -58,6 +58,8 @@ ERROR_CODES: dict[str, str] = {
     "golden_missing": "no golden file for a model",
     "invalid_golden": "a golden file that cannot be read",
     "invalid_benchmark_file": "a benchmark result file that cannot be read",
+    # order reduction and sensitivities (issue 15)
+    "reduction_not_converged": "the Gramian iteration of a large block did not converge",
 }
 
 
