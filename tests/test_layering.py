@@ -16,6 +16,7 @@ LAYERS = [
     {"equations"},
     {"lti"},
     {"reduce"},
+    {"balanced"},
     {"blocks"},
     {"compose"},
     {"simulate"},
