@@ -58,6 +58,11 @@ ERROR_CODES: dict[str, str] = {
     "golden_missing": "no golden file for a model",
     "invalid_golden": "a golden file that cannot be read",
     "invalid_benchmark_file": "a benchmark result file that cannot be read",
+    # FMU export (wirestate export)
+    "not_exportable": "a model with blocks an FMU cannot reproduce (non-linear blocks)",
+    "no_c_compiler": "no C compiler to build the FMU binary ($CC, then cc)",
+    "build_failed": "the C compiler failed to build the FMU binary",
+    "unwritable_output": "the output file cannot be written (missing folder, no permission)",
 }
 
 
