@@ -19,6 +19,7 @@ LAYERS = [
     {"blocks"},
     {"compose"},
     {"simulate"},
+    {"export"},
     {"tune"},
     {"report"},
     {"commands", "cli"},

@@ -24,6 +24,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "tune": ("wirestate.commands.tune", "size damping parts in closed loop"),
     "regress": ("wirestate.commands.regress", "compare responses with golden files"),
     "bench-compare": ("wirestate.commands.bench_compare", "compare benchmark results"),
+    "export": ("wirestate.commands.export", "write an FMI 2.0 co-simulation FMU in native C"),
 }
 
 EXIT_USER_ERROR = 2

@@ -170,6 +170,4 @@ def export_fmu(
             f"cannot write the FMU: {exc.strerror or exc}",
             file=str(target),
         ) from None
-    return ExportResult(
-        target, plan, guid, list(members), not sources_only, header_folder()[1]
-    )
+    return ExportResult(target, plan, guid, list(members), not sources_only, header_folder()[1])

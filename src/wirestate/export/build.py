@@ -90,9 +90,7 @@ def shipped_headers() -> dict[str, bytes]:
     return {name: (folder / name).read_bytes() for name in names}
 
 
-def compile_shared(
-    identifier: str, model_header: str, compiler: list[str] | None = None
-) -> bytes:
+def compile_shared(identifier: str, model_header: str, compiler: list[str] | None = None) -> bytes:
     """Compile the runtime with ``model_header`` into a shared object; return its bytes.
 
     Raises
@@ -118,7 +116,9 @@ def compile_shared(
             ) from None
         if done.returncode != 0 or not target.is_file():
             message = (done.stderr or done.stdout).strip().splitlines()
-            first = next((line for line in message if "error" in line), message[0] if message else "")
+            first = next(
+                (line for line in message if "error" in line), message[0] if message else ""
+            )
             raise ExportError(
                 "build_failed",
                 f"{command[0]} failed to build {identifier}.so: {first.strip()}",

@@ -20,10 +20,10 @@ CACHE_SIZE = 8
 EVENT_TOLERANCE = 1e-7
 
 HEADER_TYPES = """\
-enum { WS_PID = 1, WS_LTI = 2 };
-enum { WS_NO_ANTI_WINDUP = %d, WS_BACK_CALCULATION = %d, WS_CONDITIONAL = %d };
+enum {{ WS_PID = 1, WS_LTI = 2 }};
+enum {{ WS_NO_ANTI_WINDUP = {}, WS_BACK_CALCULATION = {}, WS_CONDITIONAL = {} }};
 
-typedef struct {
+typedef struct {{
     int type;                            /* WS_PID or WS_LTI */
     int nx, x_off;                       /* states, offset in the sampled-state array */
     int ny, y_off;                       /* outputs, offset in the held-output array */
@@ -33,8 +33,8 @@ typedef struct {
     double kp, ki_ts, a, b, low, high, track;   /* PID constants (see wirestate_fmu.c) */
     int has_derivative, limited, anti_windup, delay;
     int pool_off;                        /* LTI: A, B, C, D row-major in ws_pool */
-} ws_block;
-""" % (
+}} ws_block;
+""".format(
     ANTI_WINDUP_CODES["none"],
     ANTI_WINDUP_CODES["back_calculation"],
     ANTI_WINDUP_CODES["conditional"],
@@ -104,7 +104,8 @@ def _blocks(plan: ExportPlan) -> tuple[str, list[float], int, int, int]:
         in_off += b.n_inputs
     if not rows:
         rows.append("    { .type = WS_LTI },")
-    text = "static const ws_block ws_blocks[%d] = {\n%s\n};\n" % (len(rows), "\n".join(rows))
+    joined = "\n".join(rows)
+    text = f"static const ws_block ws_blocks[{len(rows)}] = {{\n{joined}\n}};\n"
     return text, pool, x_off, y_off, in_off
 
 

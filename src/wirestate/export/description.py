@@ -148,4 +148,8 @@ def model_description(plan: ExportPlan, guid: str, sources: list[str]) -> bytes:
         structure.remove(outputs)
         structure.remove(initial)
     ET.indent(root)
-    return b'<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(root, encoding="unicode").encode("utf-8") + b"\n"
+    return (
+        b'<?xml version="1.0" encoding="UTF-8"?>\n'
+        + ET.tostring(root, encoding="unicode").encode("utf-8")
+        + b"\n"
+    )

@@ -246,12 +246,16 @@ def plan_system(cs: ComposedSystem, step: float, description: str | None = None)
             linear_sources.append((FROM_INPUT, cs.inputs.index(name)))
         else:
             block, sig = name.split(".")
-            linear_sources.append((FROM_HELD, held_offset[block] + cs.blocks[block].outputs.index(sig)))
+            linear_sources.append(
+                (FROM_HELD, held_offset[block] + cs.blocks[block].outputs.index(sig))
+            )
     output_sources, outputs = [], []
     for out, src in cs.external_outputs.items():
         block, sig = src.split(".")
         if cs.blocks[block].category == SAMPLED:
-            output_sources.append((FROM_HELD, held_offset[block] + cs.blocks[block].outputs.index(sig)))
+            output_sources.append(
+                (FROM_HELD, held_offset[block] + cs.blocks[block].outputs.index(sig))
+            )
             variability = "discrete"
         else:
             output_sources.append((FROM_LINEAR, part.outputs.index(src)))
@@ -260,7 +264,8 @@ def plan_system(cs: ComposedSystem, step: float, description: str | None = None)
     inputs = [
         Variable(
             name, "input", "continuous", cs.units.get(name, ""),
-            float(cs.input_defaults.get(name, 0.0)), "drives " + ", ".join(cs.external_inputs[name]),
+            float(cs.input_defaults.get(name, 0.0)),
+            "drives " + ", ".join(cs.external_inputs[name]),
         )
         for name in cs.inputs
     ]  # fmt: skip
@@ -294,4 +299,3 @@ def check_names(plan: ExportPlan) -> None:
                 f"(a {seen[v.name]} and a {v.causality}); rename one",
             )
         seen[v.name] = v.causality
-
