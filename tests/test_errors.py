@@ -237,3 +237,32 @@ def test_every_code_is_documented_and_unknown_codes_are_refused():
         assert code == code.lower() and " " not in code and text
     with pytest.raises(ValueError):
         WirestateError("no_such_code", "x")
+
+
+# tolerance Monte Carlo and design sweeps (wirestate yield / sweep)
+@pytest.mark.parametrize(
+    ("call", "code", "location"),
+    [
+        (lambda m: dict(parts=["Rs"]), "no_tolerance", ("parts", "Rs")),
+        (lambda m: dict(values={"Rz": 1.0}), "unknown_part", ("values", "Rz")),
+        (lambda m: dict(scheduler="tcp://127.0.0.1:9", samples=5), "scheduler_unreachable",
+         ("scheduler",)),
+    ],
+)  # fmt: skip
+def test_yield_errors_name_the_part_or_option(call, code, location):
+    from tests.conftest import MODELS
+    from wirestate.explore import tolerance_yield
+    from wirestate.tune import load_tuning
+
+    spec = load_tuning(MODELS / "tuning" / "drive_bus_damping.toml")
+    with pytest.raises(WirestateError) as info:
+        tolerance_yield(spec, **call(None))
+    assert info.value.code == code and info.value.location == location
+
+
+def test_sweep_grid_errors():
+    from wirestate.explore import parse_grid
+
+    with pytest.raises(WirestateError) as info:
+        parse_grid("Rd=1ohm")
+    assert info.value.code == "invalid_grid" and info.value.location == ("grid",)

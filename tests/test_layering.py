@@ -21,6 +21,7 @@ LAYERS = [
     {"simulate"},
     {"export"},
     {"tune"},
+    {"explore"},
     {"report"},
     {"commands", "cli"},
 ]

@@ -22,6 +22,8 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "schema": ("wirestate.commands.schema", "print the JSON Schema of a file format"),
     "simulate": ("wirestate.commands.simulate", "simulate a circuit or system file"),
     "tune": ("wirestate.commands.tune", "size damping parts in closed loop"),
+    "yield": ("wirestate.commands.yield_", "tolerance Monte Carlo yield of a tuning's limits"),
+    "sweep": ("wirestate.commands.sweep", "every limit's margin over a grid of part values"),
     "regress": ("wirestate.commands.regress", "compare responses with golden files"),
     "bench-compare": ("wirestate.commands.bench_compare", "compare benchmark results"),
     "export": ("wirestate.commands.export", "write an FMI 2.0 co-simulation FMU in native C"),

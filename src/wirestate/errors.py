@@ -54,6 +54,10 @@ ERROR_CODES: dict[str, str] = {
     "invalid_limit": "a limit that names an unknown output or has inconsistent bounds",
     "infeasible_limits": "the optimiser found no point inside every limit",
     "solver_failed": "the optimiser stopped without converging",
+    # tolerance Monte Carlo and design sweeps (wirestate yield, wirestate sweep)
+    "no_tolerance": "a part asked to vary within its tolerance has none",
+    "invalid_grid": "a sweep grid that cannot be read or has no points",
+    "scheduler_unreachable": "no Dask scheduler answers at the given address",
     # regression and benchmarks
     "golden_missing": "no golden file for a model",
     "invalid_golden": "a golden file that cannot be read",
