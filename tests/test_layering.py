@@ -20,6 +20,7 @@ LAYERS = [
     {"blocks"},
     {"compose"},
     {"simulate"},
+    {"export"},
     {"tune"},
     {"explore"},
     {"report"},

@@ -27,6 +27,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "sweep": ("wirestate.commands.sweep", "every limit's margin over a grid of part values"),
     "regress": ("wirestate.commands.regress", "compare responses with golden files"),
     "bench-compare": ("wirestate.commands.bench_compare", "compare benchmark results"),
+    "export": ("wirestate.commands.export", "write an FMI 2.0 co-simulation FMU in native C"),
 }
 
 EXIT_USER_ERROR = 2

@@ -72,6 +72,11 @@ ERROR_CODES: dict[str, str] = {
     "nesting_too_deep": "a file nested deeper than the reader accepts",
     # order reduction and sensitivities (issue 15)
     "reduction_not_converged": "the Gramian iteration of a large block did not converge",
+    # FMU export (wirestate export)
+    "not_exportable": "a model with blocks an FMU cannot reproduce (non-linear blocks)",
+    "no_c_compiler": "no C compiler to build the FMU binary ($CC, then cc)",
+    "build_failed": "the C compiler failed to build the FMU binary",
+    "unwritable_output": "the output file cannot be written (missing folder, no permission)",
 }
 
 
