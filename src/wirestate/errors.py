@@ -76,7 +76,6 @@ ERROR_CODES: dict[str, str] = {
     "not_exportable": "a model with blocks an FMU cannot reproduce (non-linear blocks)",
     "no_c_compiler": "no C compiler to build the FMU binary ($CC, then cc)",
     "build_failed": "the C compiler failed to build the FMU binary",
-    "unwritable_output": "the output file cannot be written (missing folder, no permission)",
 }
 
 
