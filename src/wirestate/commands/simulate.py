@@ -35,7 +35,8 @@ def configure(parser: argparse.ArgumentParser) -> None:
         default=[],
         metavar="NAME=WAVEFORM",
         help="drive an input, e.g. Vs=step:48V,at=1ms, Vs=ramp:48V,end=5ms, "
-        "Vs=sinusoid:10V,50Hz,mean=48V, Vs=points:0s=0V,1ms=48V, Vs=csv:drive.csv (repeatable); sources with a 'value' "
+        "Vs=sinusoid:10V,50Hz,mean=48V, Vs=points:0s=0V,1ms=48V, Vs=csv:drive.csv "
+        "(repeatable); sources with a 'value' "
         "default are driven by it otherwise",
     )
     parser.add_argument("--csv", metavar="FILE", help="write time and every output (SI units)")
