@@ -140,7 +140,7 @@ def bench_batch(steps: int = 100_000, repeats: int = 5) -> dict:
     }
 
 
-# continuous speed loop: CTMS DC motor (J=0.01, b=0.1, K=0.01, R=1, L=0.5, from memory),
+# continuous speed loop: textbook DC motor (J=0.01, b=0.1, K=0.01, R=1, L=0.5, from memory),
 # tachometer filter 20 ms, PI kp=60 ki=150 limited to +-8 V with back-calculation Tt = kp/ki
 J, b, K, R, L = 0.01, 0.1, 0.01, 1.0, 0.5
 TAU, KP, KI, LIM = 0.02, 60.0, 150.0, 8.0

@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from tests.conftest import MODELS
-from tests.simulate.test_linear import ctms_motor
+from tests.simulate.test_linear import dc_motor
 from wirestate.blocks import PIDController, rotary_inertia, sensor_filter, static_gain
 from wirestate.compose import compose, load_system
 from wirestate.errors import WirestateError
@@ -20,8 +20,8 @@ SYSTEM_FILES = [p for p in SYSTEM_FILES if "[system]" in p.read_text("utf-8")]
 
 
 def test_composed_state_names_and_matrices():
-    # hand-derived DC motor matrices (armature + rotor, angle last) for the CTMS values
-    system = ctms_motor()
+    # hand-derived DC motor matrices (armature + rotor, angle last) for the textbook values
+    system = dc_motor()
     ss = system.state_space()
     assert ss.state_labels == ["armature.i_La", "rotor.speed", "rotor.angle"]
     np.testing.assert_allclose(ss.A, [[-2, -0.02, 0], [1, -10, 0], [0, 1, 0]], rtol=1e-14)

@@ -332,3 +332,19 @@ def test_robustness_codes(code, location):
     error = _robustness_error(code)
     assert error.code == code and code in ERROR_CODES
     assert error.location == location
+
+
+def test_mistyped_key_is_named_with_a_suggestion(tmp_path):
+    # a misspelt required field is reported as the unknown key it is, with the close match
+    from wirestate.spec import load_circuit
+
+    path = tmp_path / "typo.toml"
+    path.write_text(
+        '[circuit]\nname = "x"\n[parts.R1]\nkind = "resistor"\nnodes = ["a", "gnd"]\n'
+        'vaule = "1k"\n[parts.V1]\nkind = "voltage_source"\nnodes = ["a", "gnd"]\n'
+    )
+    with pytest.raises(WirestateError) as info:
+        load_circuit(path)
+    assert info.value.code == "unknown_field"
+    assert "'vaule'" in info.value.message and "did you mean 'value'" in info.value.message
+    assert info.value.location == ("parts", "R1", "vaule")

@@ -41,7 +41,7 @@ def test_quantities(text, unit, expected):
     [
         ("100uF", "H", "wrong_unit"),
         ("4.7 kV", "ohm", "wrong_unit"),
-        ("k47", "ohm", "invalid_quantity"),
+        ("kx47", "ohm", "invalid_quantity"),
         ("", "V", "invalid_quantity"),
         (True, "V", "invalid_quantity"),
         ("1e999", "V", "invalid_quantity"),
@@ -68,3 +68,59 @@ def test_format_round_trip():
     assert parse_quantity(format_quantity(2.2e-9, "F").replace(" ", ""), "F") == pytest.approx(
         2.2e-9
     )
+
+
+# IEC 60062, letter-and-digit code for resistance and capacitance (rule from memory): the
+# letter takes the place of the decimal point and carries the multiplier. Examples worked
+# by that rule; exact decimal parsing, so equality to the double of the decimal literal.
+@pytest.mark.parametrize(
+    ("text", "unit", "expected"),
+    [
+        ("4k7", "ohm", 4.7e3),
+        ("2R2", "ohm", 2.2),
+        ("0R1", "ohm", 0.1),
+        ("R47", "ohm", 0.47),
+        ("1M5", "ohm", 1.5e6),
+        ("4K7", "ohm", 4.7e3),
+        ("4u7", "F", 4.7e-6),
+        ("4µ7F", "F", 4.7e-6),
+        ("4n7", "F", 4.7e-9),
+        ("p68", "F", 0.68e-12),
+        ("2m2", "F", 2.2e-3),
+        ("1F5", "F", 1.5),
+        ("k47", "ohm", 470.0),
+    ],
+)
+def test_iec_60062_letter_and_digit_code(text, unit, expected):
+    assert parse_quantity(text, unit) == expected
+
+
+def test_letter_code_follows_the_rule_for_every_letter_and_digit_split():
+    from hypothesis import given
+    from hypothesis import strategies as st
+
+    from wirestate.units import LETTER_CODES
+
+    digits = st.text(alphabet="0123456789", min_size=0, max_size=3)
+
+    @given(digits, st.text(alphabet="0123456789", min_size=1, max_size=3), st.data())
+    def check(whole, fraction, data):
+        unit = data.draw(st.sampled_from(["ohm", "F"]))
+        letter = data.draw(st.sampled_from(sorted(LETTER_CODES[unit])))
+        exponent = LETTER_CODES[unit][letter]
+        expected = float(f"{whole or '0'}.{fraction}") * 10.0**exponent
+        # the standard's rule: decimal point at the letter, times its multiplier; 1e-15
+        # relative covers the one rounding of the product above
+        assert parse_quantity(f"{whole}{letter}{fraction}", unit) == pytest.approx(
+            expected, rel=1e-15, abs=0
+        )
+
+    check()
+
+
+@pytest.mark.parametrize(
+    ("text", "unit"), [("4k7", "H"), ("2R2", "F"), ("4u7", "ohm"), ("4k7V", "ohm")]
+)
+def test_letter_code_only_where_the_standard_has_it(text, unit):
+    with pytest.raises(WirestateError):
+        parse_quantity(text, unit)

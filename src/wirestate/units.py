@@ -5,6 +5,13 @@ are accepted. The unit, when given, must belong to the field's dimension; a bare
 (or a number with only a prefix, as in ``"100u"``) is taken in SI base units. Prefixes are
 the SI ones from femto to tera (BIPM, The International System of Units, 9th ed., 2019,
 table 7); ``u``, ``µ`` (micro sign) and ``μ`` (Greek mu) all mean 1e-6.
+
+Resistances and capacitances are also read in the letter-and-digit code of IEC 60062
+(marking codes for resistors and capacitors, clause on the letter and digit code; rule
+recalled from memory): the letter stands where the decimal point would be and gives the
+multiplier, ``R`` = 1, ``k``/``K`` = 1e3, ``M`` = 1e6, ``G`` = 1e9, ``T`` = 1e12 for
+resistance and ``p``, ``n``, ``u``/``µ``, ``m`` and ``F`` = 1 for capacitance, so ``4k7``
+is 4.7 kΩ, ``2R2`` 2.2 Ω, ``0R1`` and ``R1`` 0.1 Ω, ``4u7`` 4.7 µF and ``4n7`` 4.7 nF.
 """
 
 from __future__ import annotations
@@ -61,6 +68,41 @@ UNITS: dict[str, tuple[str, ...]] = {
 
 _NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
 
+#: IEC 60062 letter-and-digit code: decimal exponent of each multiplier letter per dimension
+LETTER_CODES: dict[str, dict[str, int]] = {
+    "ohm": {"R": 0, "k": 3, "K": 3, "M": 6, "G": 9, "T": 12},
+    "F": {"p": -12, "n": -9, "u": -6, "µ": -6, "μ": -6, "m": -3, "F": 0},
+}
+# digits, one letter in place of the decimal point, at least one digit after it (a letter
+# at the end is an SI prefix, read by the usual rule), then optionally the unit
+_LETTER_CODE = re.compile(r"^\s*(\d*)([A-Za-zµμ])(\d+)\s*(\S*)\s*$")
+
+
+def letter_code(text: str, unit: str) -> float | None:
+    """Value of an IEC 60062 letter-and-digit code such as ``"4k7"`` (None if it is none).
+
+    Parameters
+    ----------
+    text
+        The code, optionally followed by the unit (``"4u7F"``).
+    unit
+        ``"ohm"`` or ``"F"`` (other dimensions have no letter code).
+
+    Returns
+    -------
+    float or None
+        The value in SI base units, or None when ``text`` is not such a code.
+    """
+    letters = LETTER_CODES.get("ohm" if unit == "ohm_gain" else unit)
+    match = _LETTER_CODE.match(text) if letters else None
+    if match is None or match.group(2) not in letters:
+        return None
+    whole, letter, fraction, tail = match.groups()
+    if tail and tail not in _spellings(unit):
+        return None
+    # one decimal literal, so the value is the correctly rounded double of the code
+    return float(f"{whole or '0'}.{fraction}e{letters[letter]}")
+
 
 def parse_quantity(text: str | float | int, unit: str, *, field: str = "value") -> float:
     """Read a quantity in the dimension ``unit`` and return it in SI base units.
@@ -98,6 +140,9 @@ def parse_quantity(text: str | float | int, unit: str, *, field: str = "value") 
             f"{_lead(field)}expected a number or a string like '4.7k{_display(unit)}', "
             f"got {type(text).__name__}",
         )
+    coded = letter_code(text, unit)
+    if coded is not None:
+        return coded
     match = _NUMBER.match(text)
     if match is None:
         raise QuantityError(

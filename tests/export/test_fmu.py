@@ -101,7 +101,7 @@ def test_changing_inputs_with_feedthrough_match_wirestate_on_the_system(exported
     waves = {
         "Vbat": "ramp:44V@10ms,from=48V,start=2ms",
         "speed_ref": "step:120rad/s@1ms",
-        "load_torque": "step:0.05@12ms",
+        "load_torque": "step:0.05,at=12ms",
     }
     ours = simulate(system, steps * step, step, waves)
     got = master_loop(exported(SYSTEM, step), system, ours.inputs, [step] * steps)

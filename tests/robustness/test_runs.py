@@ -154,7 +154,7 @@ def test_an_unstable_circuit_stops_naming_the_mode(tmp_path, capsys):
 
 def test_a_nan_phase_is_refused(rc_file, capsys):
     args = ["simulate", str(rc_file), "--until", "1ms", "--step", "10us"]
-    assert main([*args, "--input", "V1=sine:1V,1kHz,phase=nan"]) == 2
+    assert main([*args, "--input", "V1=sinusoid:1V,1kHz,phase=nan"]) == 2
     assert "inputs.V1" in _error(capsys)
 
 

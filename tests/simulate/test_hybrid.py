@@ -34,7 +34,7 @@ def motor_loop(controller):
     )
 
 
-# plant states [i, w] of the CTMS motor (angle left out: it feeds nothing)
+# plant states [i, w] of the DC motor of test_linear.py (angle left out: it feeds nothing)
 A_PLANT = np.array([[-R / L, -K / L], [K / J, -b / J]])
 B_PLANT = np.array([[1 / L], [0.0]])
 

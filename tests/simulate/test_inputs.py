@@ -21,13 +21,13 @@ T = np.array([0.0, 0.5e-3, 1e-3, 2e-3, 3e-3, 6e-3])
         ("48V", [48, 48, 48, 48, 48, 48]),
         ("const:12V", [12] * 6),
         ("step:48V", [48] * 6),
-        ("step:48V@2ms,from=12V", [12, 12, 12, 48, 48, 48]),
-        ("ramp:40V@4ms", [0, 5, 10, 20, 30, 40]),
-        ("ramp:40V@5ms,from=10V,start=1ms", [10, 10, 10, 17.5, 25, 40]),
-        ("pwl:0V@0,48V@1ms,24V@5ms", [0, 24, 48, 42, 36, 24]),
-        ("sine:10V,250Hz,offset=48V", [48 + 10 * math.sin(2 * math.pi * 250 * t) for t in T]),
+        ("step:48V,at=2ms,from=12V", [12, 12, 12, 48, 48, 48]),
+        ("ramp:40V,end=4ms", [0, 5, 10, 20, 30, 40]),
+        ("ramp:40V,from=10V,start=1ms,end=5ms", [10, 10, 10, 17.5, 25, 40]),
+        ("points:0s=0V,1ms=48V,5ms=24V", [0, 24, 48, 42, 36, 24]),
+        ("sinusoid:10V,250Hz,mean=48V", [48 + 10 * math.sin(2 * math.pi * 250 * t) for t in T]),
         (
-            "sine:1V,250Hz,phase=90,start=1ms",
+            "sinusoid:1V,250Hz,phase=90deg,start=1ms",
             [0, 0] + [math.cos(2 * math.pi * 250 * (t - 1e-3)) for t in T[2:]],
         ),  # noqa: E501
     ],
@@ -42,7 +42,7 @@ def test_waveform_expression_matches_values():
     import casadi as ca
 
     t = ca.SX.sym("t")
-    for text in ("step:48V@2ms", "pwl:0V@0,48V@1ms,24V@5ms", "sine:10V,50Hz,offset=1V"):
+    for text in ("step:48V,at=2ms", "points:0s=0V,1ms=48V,5ms=24V", "sinusoid:10V,50Hz,mean=1V"):
         wave = parse_waveform(text, "V")
         f = ca.Function("f", [t], [wave.expression(t)])
         np.testing.assert_allclose([float(f(v)) for v in T], wave.values(T), atol=1e-12)
@@ -63,8 +63,9 @@ def test_csv_waveform(tmp_path):
 
 @pytest.mark.parametrize(
     "text",
-    ["square:1V", "step:", "step:48A", "ramp:48V", "ramp:1V@1ms,start=2ms", "pwl:1V@2ms,2V@1ms",
-     "sine:1V", "sine:1V,50Hz,colour=red", "step:1V,from=2V,3V"],
+    ["square:1V", "step:", "step:48A", "ramp:48V", "ramp:1V,end=1ms,start=2ms",
+     "points:2ms=1V,1ms=2V", "points:1V", "points:", "sinusoid:1V", "sinusoid:1V,50Hz,colour=red",
+     "step:1V,from=2V,3V", "step:48V@2ms", "step:1V,at=1ms,at=2ms"],
 )  # fmt: skip
 def test_bad_waveforms_name_the_input(text):
     with pytest.raises(WirestateError) as info:
@@ -83,10 +84,23 @@ def test_assignment_and_defaults():
 
 
 @settings(max_examples=200, deadline=None)
-@given(st.text(alphabet="steprampinwlcov:@,=0123456789.-mVHzk ", max_size=30))
+@given(st.text(alphabet="steprampoinsuidcv:@,=0123456789.-mVHzk ", max_size=30))
 def test_random_text_gives_waveform_or_our_error(text):
     try:
         wave = parse_waveform(text, "V")
     except WirestateError:
         return
     assert np.all(np.isfinite(wave.values(T)))
+
+
+def test_the_old_time_marker_gets_a_hint():
+    # the value-then-time form is not ours; the message says how times are written now
+    with pytest.raises(WirestateError) as info:
+        parse_waveform("step:48V@2ms", "V", name="Vs")
+    assert "at=TIME" in info.value.message
+
+
+def test_each_waveform_kind_is_one_table_entry():
+    from wirestate.simulate.inputs import WAVEFORM_KINDS
+
+    assert set(WAVEFORM_KINDS) == {"const", "step", "ramp", "sinusoid", "points", "csv"}

@@ -1,4 +1,4 @@
-"""Batch LTI simulation: published DC motor, energy conservation, closed forms."""
+"""Batch LTI simulation: textbook DC motor, energy conservation, closed forms."""
 
 from __future__ import annotations
 
@@ -17,13 +17,18 @@ from wirestate.lti import CircuitBlock
 from wirestate.reduce import load_block
 from wirestate.simulate import propagate, simulate, simulate_linear, zoh
 
-# DC motor speed example of the University of Michigan "Control Tutorials for MATLAB and
-# Simulink" (CTMS), parameters from memory: J = 0.01 kg m^2, b = 0.1 N m s, K = 0.01 V s/rad
-# (= N m/A), R = 1 ohm, L = 0.5 H.
+# Separately excited DC motor with armature inductance: the armature loop and the rotor
+# (Franklin, Powell and Emami-Naeini, Feedback Control of Dynamic Systems, ch. 2, models of
+# electromechanical systems; derived again here from Kirchhoff's voltage law and Newton's
+# second law for rotation):
+#     L di/dt = v - R i - K w        J dw/dt = K i - b w
+# with one constant K for back-EMF (V s/rad) and torque (N m/A), equal in SI units by power
+# balance. Parameter values are a small laboratory motor, from memory: J = 0.01 kg m^2,
+# b = 0.1 N m s, K = 0.01 V s/rad, R = 1 ohm, L = 0.5 H.
 J, b, K, R, L = 0.01, 0.1, 0.01, 1.0, 0.5
 
 
-def ctms_motor():
+def dc_motor():
     armature = CircuitBlock(
         "armature", [[-R / L]], [[1 / L, -K / L]], [[K], [1.0]], np.zeros((2, 2)),
         ["i_La"], ["Va", "M1"], ["torque_M1", "i_arm"],
@@ -35,14 +40,14 @@ def ctms_motor():
         {"rotor.torque": "armature.torque_M1", "armature.M1": "rotor.speed"},
         {"Va": "armature.Va", "TL": "rotor.load_torque"},
         {"speed": "rotor.speed", "current": "armature.i_arm"},
-        name="ctms_motor",
+        name="dc_motor",
     )
 
 
-def test_ctms_motor_poles_and_steady_speed():
-    system = ctms_motor()
+def test_dc_motor_poles_and_steady_speed():
+    system = dc_motor()
     # characteristic polynomial s^2 + (b/J + R/L) s + (b R + K^2)/(J L) = s^2 + 12 s + 20.02
-    # (CTMS transfer function K / ((J s + b)(L s + R) + K^2)); roots by the quadratic
+    # (from the two equations: w/v = K / ((J s + b)(L s + R) + K^2)); roots by the quadratic
     # formula -6 +- sqrt(15.98): -2.00250, -9.99750. Eigenvalues, 1e-10 relative.
     expected = np.sort([-6 + math.sqrt(15.98), -6 - math.sqrt(15.98)])
     poles = np.sort(system.poles().real)
@@ -53,7 +58,7 @@ def test_ctms_motor_poles_and_steady_speed():
     t = result.time
     # closed-form step response of the two-pole, zero-free speed transfer function:
     # w(t) = w_ss (1 - (p2 e^(p1 t) - p1 e^(p2 t)) / (p2 - p1)), w_ss = K / (b R + K^2)
-    # = 0.0999 rad/s (CTMS quotes about 0.1 rad/s). Matrix exponential, 1e-9 relative.
+    # = 0.0999 rad/s. Matrix exponential, 1e-9 relative.
     w_ss = K / (b * R + K * K)
     closed = w_ss * (1 - (p2 * np.exp(p1 * t) - p1 * np.exp(p2 * t)) / (p2 - p1))
     np.testing.assert_allclose(result.output("speed"), closed, rtol=1e-9, atol=1e-15)
@@ -106,7 +111,7 @@ def test_series_rlc_against_tight_solve_ivp():
     sys = control.ss(A, B, np.eye(2), np.zeros((2, 1)), inputs=["Vs"], outputs=["i", "v"])
     until, step = 4e-3, 1e-5
     ramp = lambda t: np.interp(t, [0, 1e-3], [0, 10.0])  # noqa: E731
-    foh = simulate_linear(sys, until, step, {"Vs": "ramp:10V@1ms"}, hold="foh")
+    foh = simulate_linear(sys, until, step, {"Vs": "ramp:10V,end=1ms"}, hold="foh")
     sol = solve_ivp(lambda t, x: A @ x + B[:, 0] * ramp(t), (0, until), [0, 0],
                     t_eval=foh.time, method="DOP853", rtol=1e-12, atol=1e-12,
                     max_step=2e-5)  # fmt: skip
@@ -128,7 +133,7 @@ def test_bundled_bus_filter_settles_at_battery_voltage():
 
 
 def test_grid_and_initial_state_errors():
-    block = ctms_motor()
+    block = dc_motor()
     with pytest.raises(SimulationError) as info:
         simulate(block, 1.0, 0.3)
     assert info.value.code == "invalid_step"
@@ -141,7 +146,7 @@ def test_grid_and_initial_state_errors():
 
 
 def test_response_data_keeps_labels():
-    result = simulate(ctms_motor(), 0.1, 0.01, {"Va": 1.0})
+    result = simulate(dc_motor(), 0.1, 0.01, {"Va": 1.0})
     data = result.to_response_data()
     assert list(data.output_labels) == ["speed", "current"]
     assert list(data.state_labels) == ["armature.i_La", "rotor.speed", "rotor.angle"]

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from scipy.signal import cont2discrete
 
-from tests.simulate.test_linear import ctms_motor
+from tests.simulate.test_linear import dc_motor
 from wirestate.errors import SimulationError
 from wirestate.lti import CircuitBlock
 from wirestate.simulate import Stepper, simulate
@@ -54,7 +54,7 @@ def test_defaults_drive_inputs_never_given():
 
 
 def test_stepper_equals_batch_run_on_composed_system():
-    system = ctms_motor()
+    system = dc_motor()
     batch = simulate(system, 0.5, 1e-3, {"Va": 1.0})
     s = Stepper(system, dt=1e-3)
     rows = [s.step({"Va": 1.0, "TL": 0.0}) for _ in range(500)]

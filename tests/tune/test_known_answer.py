@@ -155,7 +155,7 @@ def test_a_waveform_input_is_sampled_and_held_like_scipy_lsim(rc_case):
 
     path = rc_case()
     text = path.read_text(encoding="utf-8").replace(
-        'initial = "zero"', 'initial = "zero"\n[scenario.waveforms]\nVs = "ramp:1V@1ms"'
+        'initial = "zero"', 'initial = "zero"\n[scenario.waveforms]\nVs = "ramp:1V,end=1ms"'
     )
     path.write_text(text, encoding="utf-8")
     model = TuningModel(load_tuning(path))
@@ -176,7 +176,7 @@ def test_a_waveform_and_a_step_on_one_input_are_refused(rc_case):
     text = path.read_text(encoding="utf-8").replace(
         'initial = "zero"',
         'initial = "zero"\n[[scenario.steps]]\ninput = "Vs"\nat = "1ms"\nto = "2V"\n'
-        '[scenario.waveforms]\nVs = "ramp:1V@1ms"',
+        '[scenario.waveforms]\nVs = "ramp:1V,end=1ms"',
     )
     path.write_text(text, encoding="utf-8")
     with pytest.raises(WirestateError, match="both a step and a waveform"):

@@ -235,7 +235,7 @@ def test_sampled_loop_with_delay_and_sensor_matches_the_hybrid_simulator(write, 
         model.system_loop.system,
         6e-3,
         model.output_step,
-        {"current_ref": "step:20A@1.01ms,from=15A"},
+        {"current_ref": "step:20A,at=1.01ms,from=15A"},
     )
     np.testing.assert_allclose(result.time, model.times, rtol=0, atol=1e-15)
     for name in ("v_bus", "i_motor", "v_inverter", "probe"):
@@ -335,7 +335,7 @@ def test_limited_controller_commands_become_limits_and_the_result_holds_with_lim
     x0 = np.zeros(ev.X.shape[0])
     ev = model.numeric(preferred, initial=x0)
     result = simulate_system(
-        load_system(system_file), 6e-3, 10e-6, {"current_ref": "step:40A@1.01ms,from=30A"}
+        load_system(system_file), 6e-3, 10e-6, {"current_ref": "step:40A,at=1.01ms,from=30A"}
     )
     for name in ("v_bus", "v_inverter"):
         ours = ev.Y[model.outputs.index(name)]

@@ -27,8 +27,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
         action="append",
         default=[],
         metavar="NAME=WAVEFORM",
-        help="drive an input, e.g. Vs=step:48V, Vs=ramp:48V@5ms, Vs=sine:10V,50Hz,offset=48V, "
-        "Vs=pwl:0V@0,48V@1ms, Vs=csv:drive.csv (repeatable); sources with a 'value' "
+        help="drive an input, e.g. Vs=step:48V,at=1ms, Vs=ramp:48V,end=5ms, "
+        "Vs=sinusoid:10V,50Hz,mean=48V, Vs=points:0s=0V,1ms=48V, Vs=csv:drive.csv "
+        "(repeatable); sources with a 'value' "
         "default are driven by it otherwise",
     )
     parser.add_argument("--csv", metavar="FILE", help="write time and every output (SI units)")

@@ -1,30 +1,36 @@
 """Input waveforms and their one-line text form.
 
-A waveform is written ``KIND:ARGUMENTS`` (on the command line ``NAME=KIND:ARGUMENTS``).
-Values carry the unit of the input they drive (``V`` for a voltage source, ``A`` for a
-current source, ``rad/s`` for a speed input, ``N*m`` for a torque); times carry ``s`` with
-an SI prefix. ``VALUE@TIME`` reads "VALUE at TIME".
+A waveform is written ``KIND:ARGUMENTS`` (on the command line ``NAME=KIND:ARGUMENTS``):
+the main value first, then ``key=value`` options in any order. Values carry the unit of the
+input they drive (``V`` for a voltage source, ``A`` for a current source, ``rad/s`` for a
+speed input, ``N*m`` for a torque); times carry ``s`` with an SI prefix.
 
-=====================================  ===============================================
-text                                   waveform
-=====================================  ===============================================
-``48V``  or ``const:48V``              constant 48 V for all t
-``step:48V``                           0 before t = 0, 48 V from t = 0 on
-``step:48V@2ms,from=12V``              12 V before 2 ms, 48 V from 2 ms on
-``ramp:48V@5ms``                       0 at t = 0 rising linearly to 48 V at 5 ms, then held
-``ramp:48V@5ms,from=12V,start=1ms``    12 V until 1 ms, linear to 48 V at 5 ms, then held
-``sine:10V,50Hz``                      10 V sin(2 pi 50 Hz t)
-``sine:10V,50Hz,offset=48V,phase=90``  48 V + 10 V sin(2 pi 50 Hz t + 90 deg); ``start=T``
-                                       delays the start (value ``offset`` before it)
-``pwl:0V@0,48V@1ms,24V@5ms``           piecewise linear through the points, the first
-                                       value before the first point, the last one after
-``csv:drive.csv``                      piecewise linear through a CSV file with a ``time``
-                                       column and a column named after the input (or
-                                       exactly one other column); ``csv:FILE,column=NAME``
-                                       picks a column. Values in SI units.
-=====================================  ===============================================
+=============================================  =======================================
+text                                           waveform
+=============================================  =======================================
+``48V``  or ``const:48V``                      constant 48 V for all t
+``step:48V``                                   0 before t = 0, 48 V from t = 0 on
+``step:48V,at=2ms,from=12V``                   12 V before 2 ms, 48 V from 2 ms on
+``ramp:48V,end=5ms``                           0 at t = 0 rising linearly to 48 V at
+                                               5 ms, then held
+``ramp:48V,from=12V,start=1ms,end=5ms``        12 V until 1 ms, linear to 48 V at 5 ms
+``sinusoid:10V,50Hz``                          10 V sin(2 pi 50 Hz t)
+``sinusoid:10V,50Hz,mean=48V,phase=90deg``     48 V + 10 V sin(2 pi 50 Hz t + 90 deg);
+                                               ``start=T`` delays the start (value
+                                               ``mean`` before it)
+``points:0s=0V,1ms=48V,5ms=24V``               piecewise linear through TIME=VALUE
+                                               points, the first value before the first
+                                               time, the last one after
+``csv:drive.csv``                              piecewise linear through a CSV file with
+                                               a ``time`` column and a column named
+                                               after the input (or exactly one other
+                                               column); ``csv:FILE,column=NAME`` picks a
+                                               column. Values in SI units.
+=============================================  =======================================
 
-Each waveform evaluates on a numpy time grid (:meth:`Waveform.values`) and, for the CasADi
+Each kind is one entry of :data:`WAVEFORM_KINDS` (a function from the parsed arguments to
+a :class:`Waveform`), so a new waveform is one more function and one more entry. Each
+waveform evaluates on a numpy time grid (:meth:`Waveform.values`) and, for the CasADi
 integrators, as a symbolic expression of time (:meth:`Waveform.expression`).
 """
 
@@ -41,8 +47,6 @@ import numpy as np
 
 from wirestate.errors import SimulationError, WirestateError
 from wirestate.units import PREFIXES, UNITS, parse_quantity
-
-KINDS = ("const", "step", "ramp", "sine", "pwl", "csv")
 
 
 @dataclass(frozen=True)
@@ -211,7 +215,7 @@ def parse_waveform(
     Parameters
     ----------
     text
-        For example ``"step:48V@1ms"``.
+        For example ``"step:48V,at=1ms"``.
     unit
         Unit of the input it drives (a key of :data:`wirestate.units.UNITS`; anything
         else accepts plain numbers only).
@@ -232,58 +236,16 @@ def parse_waveform(
             return Constant(_value(text, unit_key))
         kind, _, rest = text.partition(":")
         kind = kind.strip().lower()
-        if kind not in KINDS:
+        if kind not in WAVEFORM_KINDS:
             raise SimulationError(
                 "invalid_input_signal",
-                f"unknown waveform {kind!r}; expected one of {', '.join(KINDS)}",
+                f"unknown waveform {kind!r}; expected one of {', '.join(WAVEFORM_KINDS)}",
                 location=("inputs", name),
             )
         if kind == "csv":
             return _csv(rest, name, base)
         positional, options = _arguments(rest)
-        if kind == "const":
-            _expect(positional, options, 1, set(), kind)
-            return Constant(_value(positional[0], unit_key))
-        if kind == "step":
-            _expect(positional, options, 1, {"from"}, kind)
-            final, at = _value_at(positional[0], unit_key, default_time=0.0)
-            initial = _value(options.get("from", "0"), unit_key)
-            return Step(final, at, initial)
-        if kind == "ramp":
-            _expect(positional, options, 1, {"from", "start"}, kind)
-            final, end = _value_at(positional[0], unit_key, default_time=None)
-            initial = _value(options.get("from", "0"), unit_key)
-            start = _time(options.get("start", "0"))
-            if not end > start:
-                raise SimulationError(
-                    "invalid_input_signal",
-                    f"a ramp must end after it starts (start {start} s, end {end} s)",
-                    location=("inputs", name),
-                )
-            return PiecewiseLinear((start, end), (initial, final))
-        if kind == "sine":
-            _expect(positional, options, 2, {"offset", "phase", "start"}, kind)
-            amplitude = _value(positional[0], unit_key)
-            frequency = parse_quantity(positional[1], "Hz", field="")
-            return Sine(
-                amplitude,
-                frequency,
-                offset=_value(options.get("offset", "0"), unit_key),
-                phase=math.radians(parse_quantity(options.get("phase", "0"), "1", field="phase")),
-                start=_time(options.get("start", "0")),
-            )
-        # pwl
-        if options:
-            raise SimulationError(
-                "invalid_input_signal", "pwl takes only VALUE@TIME points, no options"
-            )
-        points = [_value_at(p, unit_key, default_time=None) for p in positional]
-        if not points:
-            raise SimulationError("invalid_input_signal", "pwl needs at least one VALUE@TIME")
-        times = [p[1] for p in points]
-        if any(b <= a for a, b in zip(times, times[1:], strict=False)):
-            raise SimulationError("invalid_input_signal", "pwl times must increase strictly")
-        return PiecewiseLinear(tuple(times), tuple(p[0] for p in points))
+        return WAVEFORM_KINDS[kind](_Arguments(kind, positional, options, unit_key))
     except WirestateError as exc:
         code = "file_not_found" if exc.code == "file_not_found" else "invalid_input_signal"
         raise SimulationError(
@@ -296,6 +258,86 @@ def parse_waveform(
         raise SimulationError(
             "invalid_input_signal", f"{text!r}: {exc}", location=("inputs", name)
         ) from None
+
+
+@dataclass(frozen=True)
+class _Arguments:
+    """The parsed ``KIND:ARGUMENTS`` text handed to one entry of :data:`WAVEFORM_KINDS`."""
+
+    kind: str
+    positional: list[str]
+    options: dict[str, str]
+    unit_key: str
+
+    def expect(self, count: int, allowed: set[str]) -> None:
+        _expect(self.positional, self.options, count, allowed, self.kind)
+
+    def value(self, key: str, default: str = "0") -> float:
+        return _value(self.options.get(key, default), self.unit_key)
+
+    def time(self, key: str, default: str | None = "0") -> float:
+        if key not in self.options and default is None:
+            raise ValueError(f"{self.kind} needs {key}=TIME")
+        return _time(self.options.get(key, default or "0"))
+
+
+def _const(a: _Arguments) -> Waveform:
+    a.expect(1, set())
+    return Constant(_value(a.positional[0], a.unit_key))
+
+
+def _step(a: _Arguments) -> Waveform:
+    a.expect(1, {"at", "from"})
+    return Step(_value(a.positional[0], a.unit_key), a.time("at"), a.value("from"))
+
+
+def _ramp(a: _Arguments) -> Waveform:
+    a.expect(1, {"from", "start", "end"})
+    start, end = a.time("start"), a.time("end", default=None)
+    if not end > start:
+        raise ValueError(f"a ramp must end after it starts (start {start:g} s, end {end:g} s)")
+    return PiecewiseLinear((start, end), (a.value("from"), _value(a.positional[0], a.unit_key)))
+
+
+def _sinusoid(a: _Arguments) -> Waveform:
+    a.expect(2, {"mean", "phase", "start"})
+    return Sine(
+        _value(a.positional[0], a.unit_key),
+        parse_quantity(a.positional[1], "Hz", field=""),
+        offset=a.value("mean"),
+        phase=math.radians(_degrees(a.options.get("phase", "0"))),
+        start=a.time("start"),
+    )
+
+
+def _points(a: _Arguments) -> Waveform:
+    if a.positional:
+        raise ValueError(f"points are written TIME=VALUE, such as 1ms=48V, got {a.positional[0]!r}")
+    if not a.options:
+        raise ValueError("points needs at least one TIME=VALUE")
+    # _arguments keeps the option order (dict insertion order): the points as written
+    times = [_time(t) for t in a.options]
+    if any(b <= c for c, b in zip(times, times[1:], strict=False)):
+        raise ValueError("the times of points must increase strictly")
+    levels = [_value(v, a.unit_key) for v in a.options.values()]
+    return PiecewiseLinear(tuple(times), tuple(levels))
+
+
+def _degrees(text: str) -> float:
+    text = text.strip()
+    # parse_quantity refuses NaN and infinity, naming the field
+    return parse_quantity(text[:-3] if text.endswith("deg") else text, "1", field="phase")
+
+
+#: waveform kind -> parser of its arguments (``csv`` reads a file and is handled apart)
+WAVEFORM_KINDS = {
+    "const": _const,
+    "step": _step,
+    "ramp": _ramp,
+    "sinusoid": _sinusoid,
+    "points": _points,
+    "csv": None,
+}
 
 
 def parse_assignment(text: str) -> tuple[str, str]:
@@ -351,13 +393,21 @@ def build_inputs(
 def _arguments(rest: str) -> tuple[list[str], dict[str, str]]:
     positional: list[str] = []
     options: dict[str, str] = {}
+    if "@" in rest:
+        raise ValueError(
+            "times are written as options: at=TIME (step), start=/end=TIME (ramp), "
+            "TIME=VALUE (points)"
+        )
     for item in rest.split(","):
         item = item.strip()
         if not item:
             raise ValueError("empty argument")
         key, sep, value = item.partition("=")
         if sep:
-            options[key.strip().lower()] = value.strip()
+            key = key.strip()
+            if key in options:
+                raise ValueError(f"{key!r} is given twice")
+            options[key] = value.strip()
         elif options:
             raise ValueError(f"positional argument {item!r} after a key=value option")
         else:
@@ -399,15 +449,6 @@ def _value(text: str, unit_key: str) -> float:
 
 def _time(text: str) -> float:
     return parse_quantity(text, "s", field="")
-
-
-def _value_at(text: str, unit_key: str, *, default_time: float | None) -> tuple[float, float]:
-    value, sep, when = text.partition("@")
-    if not sep:
-        if default_time is None:
-            raise ValueError(f"expected VALUE@TIME, got {text!r}")
-        return _value(value, unit_key), default_time
-    return _value(value, unit_key), _time(when)
 
 
 def _csv(rest: str, name: str, base: Path | None) -> PiecewiseLinear:

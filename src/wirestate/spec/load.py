@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+import difflib
 import json
 import math
 import tomllib
+import types
+import typing
 from pathlib import Path
 from typing import Any, TypeVar
 
@@ -86,15 +89,24 @@ def validate(model: type[Model], data: Any, *, file: str | None = None) -> Model
     try:
         return model.model_validate(data)
     except ValidationError as exc:
-        raise error_from_validation(exc, file=file) from None
+        raise error_from_validation(exc, file=file, model=model) from None
     except WirestateError as exc:
         # whole-model checks (couplings) raise our error directly, with its location
         raise exc.with_file(file) if file else exc from None
 
 
-def error_from_validation(exc: ValidationError, *, file: str | None = None) -> WirestateError:
-    """Convert the first entry of a pydantic ``ValidationError`` to a wirestate error."""
+def error_from_validation(
+    exc: ValidationError, *, file: str | None = None, model: type[BaseModel] | None = None
+) -> WirestateError:
+    """Convert the first entry of a pydantic ``ValidationError`` to a wirestate error.
+
+    An unknown key is reported before a missing one (a mistyped key causes both), with the
+    closest accepted key (``difflib``) as a suggestion; ``model`` gives the accepted keys.
+    """
     details = exc.errors(include_url=False)
+    extra = [d for d in details if d["type"] == "extra_forbidden"]
+    if extra:
+        return _unknown_key(extra[0], details, file=file, model=model)
     first = _most_specific(details)
     location = tuple(_clean_location(first["loc"]))
     original = (first.get("ctx") or {}).get("error")
@@ -117,6 +129,94 @@ def error_from_validation(exc: ValidationError, *, file: str | None = None) -> W
     elif first["type"] == "extra_forbidden":
         message = f"unknown field {location[-1]!r}" if location else "unknown field"
     return ModelFileError(code, message, file=file, location=location)
+
+
+def _unknown_key(
+    entry: dict[str, Any],
+    details: list[dict[str, Any]],
+    *,
+    file: str | None,
+    model: type[BaseModel] | None,
+) -> WirestateError:
+    location = tuple(_clean_location(entry["loc"]))
+    key = str(entry["loc"][-1])
+    parent = entry["loc"][:-1]
+    # the keys that were expected here: missing siblings first, then every field
+    missing = [str(d["loc"][-1]) for d in details if d["type"] == "missing"]
+    missing = [m for m, d in zip(missing, details, strict=False) if d["loc"][:-1] == parent]
+    known = [m for m in missing if m != key] + [
+        f for f in (accepted_keys(model, parent) if model else []) if f not in missing
+    ]
+    close = difflib.get_close_matches(key, missing, n=1, cutoff=0.6) or difflib.get_close_matches(
+        key, known, n=1, cutoff=0.6
+    )
+    message = f"unknown field {key!r}"
+    if close:
+        message += f"; did you mean {close[0]!r}?"
+    elif known:
+        message += f" (fields here: {', '.join(known)})"
+    return ModelFileError("unknown_field", message, file=file, location=location)
+
+
+def accepted_keys(model: type[BaseModel], loc: tuple[Any, ...]) -> list[str]:
+    """The field names (TOML keys) a model accepts at the location ``loc`` of a file.
+
+    Follows pydantic locations through nested models, ``dict``/``list`` members and tagged
+    unions (whose tag pydantic puts into the location); best effort, ``[]`` if lost.
+    """
+    current: Any = model
+    steps = list(loc)
+    while steps:
+        current = _strip(current)
+        step = steps.pop(0)
+        if isinstance(current, type) and issubclass(current, BaseModel):
+            field = _field_by_key(current, step)
+            if field is None:
+                return []
+            current = field.annotation
+            continue
+        origin, args = typing.get_origin(current), typing.get_args(current)
+        if origin in (dict, list, tuple) and args:
+            current = args[-1] if origin is dict else args[0]
+            continue
+        if origin in (typing.Union, types.UnionType):
+            current = _union_member(args, step)
+            if current is None:
+                return []
+            continue
+        return []
+    current = _strip(current)
+    if isinstance(current, type) and issubclass(current, BaseModel):
+        return [f.alias or name for name, f in current.model_fields.items()]
+    return []
+
+
+def _strip(annotation: Any) -> Any:
+    # Annotated[X, ...] -> X; Optional[X] -> X
+    while typing.get_origin(annotation) is typing.Annotated:
+        annotation = typing.get_args(annotation)[0]
+    args = [a for a in typing.get_args(annotation) if a is not type(None)]
+    if typing.get_origin(annotation) in (typing.Union, types.UnionType) and len(args) == 1:
+        return _strip(args[0])
+    return annotation
+
+
+def _field_by_key(model: type[BaseModel], key: Any):
+    for name, field in model.model_fields.items():
+        if key in (name, field.alias):
+            return field
+    return None
+
+
+def _union_member(args: tuple[Any, ...], tag: Any) -> Any:
+    for member in args:
+        member = _strip(member)
+        if not (isinstance(member, type) and issubclass(member, BaseModel)):
+            continue
+        kind = member.model_fields.get("kind")
+        if kind is not None and tag in typing.get_args(kind.annotation):
+            return member
+    return None
 
 
 def _most_specific(details: list[dict[str, Any]]) -> dict[str, Any]:

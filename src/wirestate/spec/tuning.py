@@ -35,7 +35,7 @@ limits, the objective and the stress conditions. Every quantity is read into SI 
     initial = "steady_state"    # or "zero"
     # initial_values = { v_Cf = "42V" }   # states set at t = 0 on top of that
     # [scenario.waveforms]      # disturbances in the syntax of `simulate --input`
-    # Iport = "sine:2A,2kHz,start=2ms"
+    # Iport = "sinusoid:2A,2kHz,start=2ms"
     [scenario.inputs]           # operating point; default: the sources' values
     Vbat = "48V"
     [[scenario.steps]]          # input steps (the PI's "reference" too)
@@ -248,7 +248,7 @@ class Scenario(_Strict):
     waveforms: dict[str, str] = Field(
         default_factory=dict,
         description="inputs driven by a waveform in the text form of 'wirestate simulate "
-        "--input' (e.g. 'sine:2A,2kHz,offset=30A,start=1ms'), sampled at the scenario "
+        "--input' (e.g. 'sinusoid:2A,2kHz,mean=30A,start=1ms'), sampled at the scenario "
         "steps and held; replaces the input's level",
     )
     initial_values: dict[str, Quantity] = Field(

@@ -580,7 +580,7 @@ class TuningModel:
                 raise TuningError(
                     "invalid_field",
                     f"input {name!r} has both a step and a waveform; put the step into the "
-                    "waveform (pwl or step:...@time)",
+                    "waveform (points:... or step:...,at=TIME)",
                     file=self.file,
                     location=where,
                 )
