@@ -16,6 +16,7 @@ LAYERS = [
     {"equations"},
     {"lti"},
     {"reduce"},
+    {"switching"},
     {"blocks"},
     {"compose"},
     {"simulate"},

@@ -22,6 +22,8 @@ text                                   waveform
                                        column and a column named after the input (or
                                        exactly one other column); ``csv:FILE,column=NAME``
                                        picks a column. Values in SI units.
+``pwm:100kHz,duty=0.42``               gate pulses 1/0 (options ``dead``, ``phase``,
+                                       ``side``, ``carrier``: :mod:`.pwm`)
 =====================================  ===============================================
 
 Each waveform evaluates on a numpy time grid (:meth:`Waveform.values`) and, for the CasADi
@@ -42,7 +44,7 @@ import numpy as np
 from wirestate.errors import SimulationError, WirestateError
 from wirestate.units import PREFIXES, UNITS, parse_quantity
 
-KINDS = ("const", "step", "ramp", "sine", "pwl", "csv")
+KINDS = ("const", "step", "ramp", "sine", "pwl", "csv", "pwm")
 
 
 @dataclass(frozen=True)
@@ -240,6 +242,10 @@ def parse_waveform(
             )
         if kind == "csv":
             return _csv(rest, name, base)
+        if kind == "pwm":  # gate waveform with closed-form edges (its own parser)
+            from wirestate.simulate.pwm import parse_pwm
+
+            return parse_pwm(rest)
         positional, options = _arguments(rest)
         if kind == "const":
             _expect(positional, options, 1, set(), kind)
