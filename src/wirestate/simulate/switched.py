@@ -121,7 +121,7 @@ class SwitchedEngine:
         self.on = list(circuit.off)
         self.time = 0.0
         self.events: list[SwitchEvent] = []
-        self.max_changes = max_changes or 4 * len(circuit.devices) + 4
+        self.max_changes = 4 * len(circuit.devices) + 4 if max_changes is None else max_changes
         devices = circuit.devices
         self.diodes = [k for k, d in enumerate(devices) if d.kind == "diode"]
         self.switches = [k for k, d in enumerate(devices) if d.kind == "switch"]
