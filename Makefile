@@ -5,7 +5,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.wirestate-installed
 
-.PHONY: demo test lint format bench bench-compare bench-baseline regress regress-update clean
+.PHONY: demo test lint format bench bench-compare bench-baseline regress regress-update clean fuzz
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -30,6 +30,11 @@ format: $(STAMP)
 test: $(STAMP) lint
 	$(BIN)/python -m pytest
 	$(BIN)/wirestate regress
+
+# the long fuzz run (issue 10): >= 10,000 generated circuit, system and tuning files each;
+# the normal suite runs the same tests with a small sample
+fuzz: $(STAMP)
+	WIRESTATE_FUZZ_EXAMPLES=10000 $(BIN)/python -m pytest tests/robustness/test_fuzz.py -q
 
 regress: $(STAMP)
 	$(BIN)/wirestate regress --junit build/regress-junit.xml

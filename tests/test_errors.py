@@ -237,3 +237,98 @@ def test_every_code_is_documented_and_unknown_codes_are_refused():
         assert code == code.lower() and " " not in code and text
     with pytest.raises(ValueError):
         WirestateError("no_such_code", "x")
+
+
+# tolerance Monte Carlo and design sweeps (wirestate yield / sweep)
+@pytest.mark.parametrize(
+    ("call", "code", "location"),
+    [
+        (lambda m: dict(parts=["Rs"]), "no_tolerance", ("parts", "Rs")),
+        (lambda m: dict(values={"Rz": 1.0}), "unknown_part", ("values", "Rz")),
+        (lambda m: dict(scheduler="tcp://127.0.0.1:9", samples=5), "scheduler_unreachable",
+         ("scheduler",)),
+    ],
+)  # fmt: skip
+def test_yield_errors_name_the_part_or_option(call, code, location):
+    from tests.conftest import MODELS
+    from wirestate.explore import tolerance_yield
+    from wirestate.tune import load_tuning
+
+    spec = load_tuning(MODELS / "tuning" / "drive_bus_damping.toml")
+    with pytest.raises(WirestateError) as info:
+        tolerance_yield(spec, **call(None))
+    assert info.value.code == code and info.value.location == location
+
+
+def test_sweep_grid_errors():
+    from wirestate.explore import parse_grid
+
+    with pytest.raises(WirestateError) as info:
+        parse_grid("Rd=1ohm")
+    assert info.value.code == "invalid_grid" and info.value.location == ("grid",)
+
+
+# -- robustness codes (issue 10): each raised once here, asserting on code and location ----
+def _robustness_error(code: str) -> WirestateError:
+    import numpy as np
+
+    from wirestate.simulate import guards
+    from wirestate.spec import parse_circuit
+
+    L = {f"L{k}": {"kind": "inductor", "nodes": [f"n{k}", "gnd"], "value": 1e-3} for k in (1, 2, 3)}
+    R = {f"R{k}": {"kind": "resistor", "nodes": [f"n{k}", "gnd"], "value": 1} for k in (1, 2, 3)}
+    K = lambda a, b, k: {"kind": "coupling", "inductors": [a, b], "coefficient": k}  # noqa: E731
+    cases = {
+        "duplicate_coupling": lambda: parse_circuit(
+            {"circuit": {"name": "c"}, "parts": {**L, **R, "K1": K("L1", "L2", 0.7),
+                                                 "K2": K("L2", "L1", 0.7)}}),
+        "indefinite_inductance": lambda: parse_circuit(
+            {"circuit": {"name": "c"}, "parts": {**L, **R, "K1": K("L1", "L2", 0.99),
+                                                 "K2": K("L1", "L3", 0.99),
+                                                 "K3": K("L2", "L3", 0.5)}}),
+        "non_finite_value": lambda: parse_circuit(
+            {"circuit": {"name": "c"}, "parts": {"R1": {"kind": "resistor", "nodes": ["a", "gnd"],
+                                                       "value": float("nan")}}}),
+        "nesting_too_deep": lambda: guards_nesting(),
+        "non_finite_result": lambda: guards.check_finite_result(
+            "b", np.array([0.0, 1.0]), [np.array([[1.0, np.inf]])], np.array([2.0 + 0j]), 1.0),
+        "run_too_large": lambda: guards.check_run_size(
+            types_model(), 1e6, 1e-9),
+        "unwritable_output": lambda: guards.check_output_path("/no/such/folder/x.csv", "--csv"),
+    }  # fmt: skip
+    with pytest.raises(WirestateError) as err:
+        cases[code]()
+    return err.value
+
+
+def guards_nesting():
+    from wirestate.spec.load import check_plain_data
+
+    data: dict = {}
+    for _ in range(100):
+        data = {"a": data}
+    check_plain_data(data)
+
+
+def types_model():
+    import types
+
+    return types.SimpleNamespace(states=["x"], inputs=["u"], outputs=["y"])
+
+
+@pytest.mark.parametrize(
+    ("code", "location"),
+    [
+        ("duplicate_coupling", ("parts", "K2")),
+        ("indefinite_inductance", ("parts", "K1")),
+        ("non_finite_value", ("parts", "R1", "value")),
+        ("nesting_too_deep", ("a",) * 64),
+        ("non_finite_result", ()),
+        ("run_too_large", ()),
+        ("unwritable_output", ()),
+    ],
+)
+def test_robustness_codes(code, location):
+    error = _robustness_error(code)
+    assert error.code == code and code in ERROR_CODES
+    assert error.location == location

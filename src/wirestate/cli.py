@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import importlib.util
 import sys
 from collections.abc import Sequence
 
@@ -22,14 +23,25 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "schema": ("wirestate.commands.schema", "print the JSON Schema of a file format"),
     "simulate": ("wirestate.commands.simulate", "simulate a circuit or system file"),
     "tune": ("wirestate.commands.tune", "size damping parts in closed loop"),
+    "yield": ("wirestate.commands.yield_", "tolerance Monte Carlo yield of a tuning's limits"),
+    "sweep": ("wirestate.commands.sweep", "every limit's margin over a grid of part values"),
     "regress": ("wirestate.commands.regress", "compare responses with golden files"),
     "bench-compare": ("wirestate.commands.bench_compare", "compare benchmark results"),
+    "export": ("wirestate.commands.export", "write an FMI 2.0 co-simulation FMU in native C"),
 }
 
 EXIT_USER_ERROR = 2
 
 
-def build_parser(available: dict[str, object]) -> argparse.ArgumentParser:
+def build_parser(
+    available: dict[str, object], selected: str | None = None
+) -> argparse.ArgumentParser:
+    """The argument parser; only the ``selected`` command's options are configured.
+
+    ``available`` maps command names to their module, or to ``None`` when the module has
+    not been imported: ``wirestate --help`` lists every command from ``COMMANDS`` without
+    importing any of them (start-up time), and ``wirestate CMD ...`` imports only CMD.
+    """
     parser = argparse.ArgumentParser(
         prog="wirestate",
         description="Circuit model files as named state-space blocks: inspect, simulate, "
@@ -40,26 +52,43 @@ def build_parser(available: dict[str, object]) -> argparse.ArgumentParser:
     for name, module in available.items():
         _, help_text = COMMANDS[name]
         command_parser = sub.add_parser(name, help=help_text, description=help_text)
-        module.configure(command_parser)  # type: ignore[attr-defined]
+        if module is not None and (selected is None or name == selected):
+            module.configure(command_parser)  # type: ignore[attr-defined]
     return parser
 
 
 def _available_commands() -> dict[str, object]:
-    available = {}
+    """Command name -> ``None`` for every command whose module is part of this build.
+
+    ``find_spec`` locates a module without running it, so listing the commands imports
+    none of their (possibly heavy) dependencies.
+    """
+    available: dict[str, object] = {}
     for name, (module_name, _) in COMMANDS.items():
-        try:
-            available[name] = importlib.import_module(module_name)
-        except ModuleNotFoundError as exc:
-            # a command whose module is not part of this build is simply not offered
-            if exc.name != module_name:
-                raise
+        if importlib.util.find_spec(module_name) is not None:
+            available[name] = None
     return available
 
 
+def _selected_command(argv: Sequence[str], available: dict[str, object]) -> str | None:
+    # the top-level parser has only flags without values, so the first word that is not
+    # an option is the command
+    for word in argv:
+        if word == "--":
+            return None
+        if not word.startswith("-"):
+            return word if word in available else None
+    return None
+
+
 def main(argv: Sequence[str] | None = None) -> int:
+    words = list(sys.argv[1:] if argv is None else argv)
     available = _available_commands()
-    parser = build_parser(available)
-    args = parser.parse_args(argv)
+    selected = _selected_command(words, available)
+    if selected is not None:
+        available[selected] = importlib.import_module(COMMANDS[selected][0])
+    parser = build_parser(available, selected)
+    args = parser.parse_args(words)
     if args.command is None:
         parser.print_help()
         return EXIT_USER_ERROR

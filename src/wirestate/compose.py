@@ -27,7 +27,7 @@ from wirestate.blocks import NonlinearBlock, PIDController
 from wirestate.blocks import controllers as _controllers
 from wirestate.blocks import mechanical as _mechanical
 from wirestate.errors import CompositionError, WirestateError
-from wirestate.lti import CircuitBlock
+from wirestate.lti import CircuitBlock, named_state_space
 from wirestate.reduce import compile_circuit
 from wirestate.spec import load_circuit
 from wirestate.spec.system import SystemSpec, load_system_spec
@@ -220,20 +220,28 @@ class ComposedSystem:
         sys = part.system
         rows_in = [part.inputs.index(n) for n in self.inputs]
         rows_out = [part.outputs.index(self.external_outputs[n]) for n in self.outputs]
-        return control.ss(
-            sys.A,
-            np.asarray(sys.B)[:, rows_in],
-            np.asarray(sys.C)[rows_out, :],
-            np.asarray(sys.D)[np.ix_(rows_out, rows_in)],
-            name=self.name,
-            inputs=self.inputs,
-            outputs=self.outputs,
-            states=part.states,
+        # named_state_space: a system without external inputs is a valid system too
+        n, m, p = len(part.states), len(part.inputs), len(part.outputs)
+        return named_state_space(
+            _shaped(sys.A, n, n),
+            _shaped(sys.B, n, m)[:, rows_in],
+            _shaped(sys.C, p, n)[rows_out, :],
+            _shaped(sys.D, p, m)[np.ix_(rows_out, rows_in)],
+            self.name,
+            self.inputs,
+            self.outputs,
+            part.states,
         )
 
     def poles(self) -> np.ndarray:
         """Poles of the composed LTI system (rad/s)."""
         return np.asarray(self.state_space().poles())
+
+
+def _shaped(matrix: Any, rows: int, cols: int) -> np.ndarray:
+    # python-control stores an empty (n, 0) matrix as (0, 0)
+    matrix = np.asarray(matrix, dtype=float)
+    return np.zeros((rows, cols)) if matrix.size == 0 else matrix.reshape(rows, cols)
 
 
 @dataclass
@@ -474,32 +482,46 @@ def _check_loops(views: dict[str, BlockView], wiring: dict[str, str], file: str 
     for b in views.values():
         for i, o in b.feedthrough():
             edges.setdefault(f"{b.name}.{i}", []).append(f"{b.name}.{o}")
-    colour: dict[str, int] = {}
-    stack: list[str] = []
+    loop = find_cycle(edges)
+    if loop is not None:
+        raise CompositionError(
+            "algebraic_loop",
+            f"algebraic loop through {' -> '.join(loop)}: every block on it passes "
+            "its input straight to its output; add a state (a filter, a sampled "
+            "controller with a computation delay) or remove a direct path",
+            file=file,
+            location=("wiring", loop[-1]),
+        )
 
-    def visit(node: str) -> None:
-        colour[node] = 1
-        stack.append(node)
-        for nxt in edges.get(node, ()):
+
+def find_cycle(edges: Mapping[str, list[str]]) -> list[str] | None:
+    """A directed cycle of ``edges`` as ``[a, b, ..., a]``, or ``None``.
+
+    Depth-first search with an explicit stack (Tarjan's colouring, Cormen et al.,
+    Introduction to Algorithms, 3rd ed., sec. 22.3), so a chain of any length is safe
+    (a recursive search failed at about 500 blocks).
+    """
+    colour: dict[str, int] = {}
+    for root in list(edges):
+        if colour.get(root, 0):
+            continue
+        path: list[str] = [root]
+        iterators = [iter(edges.get(root, ()))]
+        colour[root] = 1
+        while iterators:
+            nxt = next(iterators[-1], None)
+            if nxt is None:
+                colour[path.pop()] = 2
+                iterators.pop()
+                continue
             state = colour.get(nxt, 0)
             if state == 1:
-                loop = stack[stack.index(nxt) :] + [nxt]
-                raise CompositionError(
-                    "algebraic_loop",
-                    f"algebraic loop through {' -> '.join(loop)}: every block on it passes "
-                    "its input straight to its output; add a state (a filter, a sampled "
-                    "controller with a computation delay) or remove a direct path",
-                    file=file,
-                    location=("wiring", nxt),
-                )
+                return path[path.index(nxt) :] + [nxt]
             if state == 0:
-                visit(nxt)
-        stack.pop()
-        colour[node] = 2
-
-    for node in list(edges):
-        if colour.get(node, 0) == 0:
-            visit(node)
+                colour[nxt] = 1
+                path.append(nxt)
+                iterators.append(iter(edges.get(nxt, ())))
+    return None
 
 
 # -- from a system file ------------------------------------------------------------------
@@ -577,7 +599,14 @@ def _with_values(circuit: Any, values: Mapping[str, Any], block: str, file: str)
             )
         unit = unit_of.get(circuit.parts[part].kind, "1")
         si[part] = parse_quantity(value, unit, field=f"values.{part}")
-    return circuit.with_values(si)
+    try:
+        return circuit.with_values(si)
+    except WirestateError as exc:
+        # point at the replacement in the system file, not at the circuit file's field
+        if len(exc.location) >= 2 and exc.location[0] == "parts" and exc.location[1] in si:
+            exc.location = ("blocks", block, "values", exc.location[1])
+            exc.args = (str(exc),)
+        raise
 
 
 def system_from_spec(spec: SystemSpec, *, file: str | Path | None = None) -> ComposedSystem:

@@ -58,10 +58,28 @@ ERROR_CODES: dict[str, str] = {
     "invalid_limit": "a limit that names an unknown output or has inconsistent bounds",
     "infeasible_limits": "the optimiser found no point inside every limit",
     "solver_failed": "the optimiser stopped without converging",
+    # tolerance Monte Carlo and design sweeps (wirestate yield, wirestate sweep)
+    "no_tolerance": "a part asked to vary within its tolerance has none",
+    "invalid_grid": "a sweep grid that cannot be read or has no points",
+    "scheduler_unreachable": "no Dask scheduler answers at the given address",
     # regression and benchmarks
     "golden_missing": "no golden file for a model",
     "invalid_golden": "a golden file that cannot be read",
     "invalid_benchmark_file": "a benchmark result file that cannot be read",
+    # robustness: physical checks, run-size limits, non-finite results (issue 10)
+    "indefinite_inductance": "couplings that make the inductance matrix not positive definite",
+    "duplicate_coupling": "two couplings between the same pair of inductors",
+    "non_finite_value": "a NaN or infinite number where a finite value is needed",
+    "non_finite_result": "a result that left the floating-point range (an unstable mode)",
+    "run_too_large": "a run whose arrays or output file would not fit in memory or on disk",
+    "unwritable_output": "an output file path whose folder is missing or not writable",
+    "nesting_too_deep": "a file nested deeper than the reader accepts",
+    # order reduction and sensitivities (issue 15)
+    "reduction_not_converged": "the Gramian iteration of a large block did not converge",
+    # FMU export (wirestate export)
+    "not_exportable": "a model with blocks an FMU cannot reproduce (non-linear blocks)",
+    "no_c_compiler": "no C compiler to build the FMU binary ($CC, then cc)",
+    "build_failed": "the C compiler failed to build the FMU binary",
 }
 
 

@@ -2,11 +2,15 @@
 
 from __future__ import annotations
 
+import math
+import warnings
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import control
 import numpy as np
+
+if TYPE_CHECKING:  # python-control costs about 1.5 s to import: only where it is used
+    import control
 
 
 @dataclass
@@ -69,16 +73,14 @@ class CircuitBlock:
         return len(self.states)
 
     def state_space(self) -> control.StateSpace:
-        """The block as a named ``control.StateSpace`` (continuous time)."""
-        return control.ss(
-            self.A,
-            self.B,
-            self.C,
-            self.D,
-            name=self.name,
-            inputs=list(self.inputs),
-            outputs=list(self.outputs),
-            states=list(self.states),
+        """The block as a named ``control.StateSpace`` (continuous time).
+
+        A block without inputs (an RC discharge) is a valid system too; python-control
+        cannot build one from empty matrices, so it is built with one input that is then
+        removed (see :func:`named_state_space`).
+        """
+        return named_state_space(
+            self.A, self.B, self.C, self.D, self.name, self.inputs, self.outputs, self.states
         )
 
     def poles(self) -> np.ndarray:
@@ -89,20 +91,195 @@ class CircuitBlock:
         return p[np.lexsort((p.real, p.imag))]
 
     def dc_gain(self) -> np.ndarray:
-        """``D - C A^-1 B``; entries are ``inf`` / ``nan`` where a pole sits at s = 0."""
-        if self.n_states == 0:
-            return self.D.copy()
-        try:
-            return self.D - self.C @ np.linalg.solve(self.A, self.B)
-        except np.linalg.LinAlgError:
-            with np.errstate(all="ignore"):
-                return np.asarray(
-                    control.ss(self.A, self.B, self.C, self.D).dcgain(), dtype=float
-                ).reshape(self.D.shape)
+        """The limit of ``C (sI - A)^-1 B + D`` as ``s -> 0`` (see :func:`dc_gain_limit`):
+        finite wherever the limit exists (also for a singular ``A``), ``+inf`` / ``-inf``
+        where it does not (the sign of the approach from ``s -> 0+``)."""
+        return dc_gain_limit(self.A, self.B, self.C, self.D)
 
     def physical_state(self, x: np.ndarray, u: np.ndarray) -> np.ndarray:
         """Capacitor voltages and inductor currents from the block state and inputs."""
         return np.asarray(x) + self.state_offset @ np.asarray(u)
+
+
+def named_state_space(
+    A: np.ndarray,
+    B: np.ndarray,
+    C: np.ndarray,
+    D: np.ndarray,
+    name: str,
+    inputs: list[str],
+    outputs: list[str],
+    states: list[str],
+) -> control.StateSpace:
+    """A named continuous ``control.StateSpace``, also with no inputs, outputs or states.
+
+    python-control collapses an empty ``(n, 0)`` matrix to ``(0, 0)`` and then refuses the
+    shapes; a system without inputs is built with one placeholder input whose column is
+    then removed, which leaves a consistent object (checked by simulation and
+    ``interconnect`` in the tests).
+    """
+    import control
+
+    n, m, p = len(states), len(inputs), len(outputs)
+    A = np.asarray(A, dtype=float).reshape(n, n)
+    B = np.asarray(B, dtype=float).reshape(n, m)
+    C = np.asarray(C, dtype=float).reshape(p, n)
+    D = np.asarray(D, dtype=float).reshape(p, m)
+    if m > 0:
+        return control.ss(
+            A, B, C, D, name=name, inputs=list(inputs), outputs=list(outputs),
+            states=list(states),
+        )  # fmt: skip
+    sys = control.ss(
+        A, np.zeros((n, 1)), C, np.zeros((p, 1)), name=name, inputs=["_placeholder"],
+        outputs=list(outputs), states=list(states),
+    )  # fmt: skip
+    sys.B = np.zeros((n, 0))
+    sys.D = np.zeros((p, 0))
+    sys.ninputs = 0
+    sys.input_index = {}
+    return sys
+
+
+#: an eigenvalue with |lambda| below this times the norm of A is taken as s = 0 (round-off
+#: of a structural pole at the origin; common practice, no source)
+ZERO_POLE_TOLERANCE = 1e-10
+#: a Laurent coefficient below this times the terms that formed it is round-off
+LAURENT_TOLERANCE = 1e-9
+
+
+def dc_gain_limit(A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray) -> np.ndarray:
+    """The DC gain ``lim_{s->0} C (sI - A)^-1 B + D``, also when ``A`` is singular.
+
+    Method: a real Schur form ``A = Z T Z^T`` ordered with the eigenvalues at the origin
+    last, block-diagonalised by a Sylvester equation (Golub and Van Loan, Matrix
+    Computations, 4th ed., sec. 7.6.3) into an invertible part ``T11`` and a nilpotent
+    part ``N``. Then ``C (sI - A)^-1 B = C1 (sI - T11)^-1 B1 + sum_j C2 N^j B2 / s^(j+1)``
+    (the Laurent expansion at a pole of the resolvent, e.g. Kato, Perturbation Theory for
+    Linear Operators, ch. I sec. 5.3; the regular part at s = 0 is ``-C A^D B`` with the
+    Drazin inverse ``A^D``). An entry is finite exactly when all its coefficients
+    ``C2 N^j B2`` vanish; it is then ``D - C1 T11^-1 B1``. Otherwise it is unbounded,
+    returned as ``inf`` with the sign of its leading term as ``s -> 0+``.
+
+    Parameters
+    ----------
+    A, B, C, D
+        State-space matrices ``(n, n), (n, m), (p, n), (p, m)``, any units.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``(p, m)`` DC gains, ``+inf`` / ``-inf`` where the limit does not exist.
+    """
+    A, B, C, D = (np.asarray(M, dtype=float) for M in (A, B, C, D))
+    n = A.shape[0]
+    if n == 0 or B.shape[1] == 0 or C.shape[0] == 0:
+        return D.copy()
+    regular = _regular_dc_gain(A, B, C, D)
+    if regular is not None:
+        return regular
+    import scipy.linalg
+
+    # a diagonal similarity (powers of 2, exact) evens out rows and columns first
+    A, (T_scale, _) = scipy.linalg.matrix_balance(A, permute=False, separate=True)
+    B, C = B / T_scale[:, None], C * T_scale[None, :]
+    scale = float(np.abs(A).sum(axis=0).max())
+    if scale == 0.0:
+        split = 0  # A = 0: every pole at the origin
+        T, Z = A, np.eye(n)
+    else:
+        threshold = ZERO_POLE_TOLERANCE * scale
+        T, Z, split = scipy.linalg.schur(
+            A, output="real", sort=lambda re, im: math.hypot(re, im) > threshold
+        )
+    if split == n:
+        return D - C @ np.linalg.solve(A, B)
+    T11, T12, N = T[:split, :split], T[:split, split:], T[split:, split:].copy()
+    # the nilpotent part's diagonal is round-off of the poles at the origin
+    N[np.abs(N) <= ZERO_POLE_TOLERANCE * scale] = 0.0
+    X = scipy.linalg.solve_sylvester(T11, -N, -T12) if split else np.zeros((0, n - split))
+    Bt, Ct = Z.T @ B, C @ Z
+    B1, B2 = Bt[:split] - X @ Bt[split:], Bt[split:]
+    C1, C2 = Ct[:, :split], Ct[:, :split] @ X + Ct[:, split:]
+    # sizes of the terms that formed B2 and C2: a coefficient far below them is round-off
+    Ct_size = np.abs(C) @ np.abs(Z)
+    B2_size = (np.abs(Z.T) @ np.abs(B))[split:]
+    C2_size = Ct_size[:, :split] @ np.abs(X) + Ct_size[:, split:]
+    gain = D - (C1 @ np.linalg.solve(T11, B1) if split else 0.0)
+    power, magnitude = np.eye(n - split), np.eye(n - split)
+    for _ in range(n - split):
+        term = C2 @ power @ B2
+        size = C2_size @ magnitude @ B2_size
+        real = (np.abs(term) > LAURENT_TOLERANCE * size) & (size > 0)
+        # a later (higher) power dominates as s -> 0, so it overwrites the sign
+        gain = np.where(real, np.copysign(np.inf, term), gain)
+        power, magnitude = N @ power, np.abs(N) @ magnitude
+        if not power.any():
+            break
+    return gain
+
+
+#: a row-and-column equilibrated A whose reciprocal condition number is below this is
+#: taken as singular (common practice, no source)
+SINGULAR_RCOND = 1e-12
+
+
+def _regular_dc_gain(A, B, C, D) -> np.ndarray | None:
+    """``D - C A^-1 B`` when ``A`` is safely invertible, else ``None``.
+
+    ``A`` is equilibrated by row and then column scaling first (``A^-1 B = Dc (Dr A Dc)^-1
+    Dr B``), so a part many decades smaller than the rest (a 1e-300 F capacitor beside
+    a 1 mH inductor) does not make a regular matrix look singular.
+    """
+    import scipy.linalg
+
+    rows = np.abs(A).max(axis=1)
+    if not rows.all():
+        return None
+    scaled = A / rows[:, None]
+    cols = np.abs(scaled).max(axis=0)
+    if not cols.all():
+        return None
+    scaled = scaled / cols[None, :]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", scipy.linalg.LinAlgWarning)  # singular: decided below
+        lu, piv = scipy.linalg.lu_factor(scaled, check_finite=False)
+    rcond, info = scipy.linalg.lapack.dgecon(lu, np.abs(scaled).sum(axis=0).max(), norm="1")
+    if info != 0 or not rcond > SINGULAR_RCOND:
+        return None
+    X = scipy.linalg.lu_solve((lu, piv), B / rows[:, None], check_finite=False) / cols[:, None]
+    gain = D - C @ X
+    return gain if np.all(np.isfinite(gain)) else None
+
+
+#: blocks with more states than this get a mode summary instead of every pole
+LARGE_BLOCK_STATES = 400
+
+
+def extreme_poles(A: np.ndarray, count: int = 10) -> tuple[np.ndarray, np.ndarray]:
+    """The ``count`` slowest and ``count`` fastest poles of a large ``A`` (rad/s).
+
+    Implicitly restarted Arnoldi (ARPACK via SciPy; Lehoucq, Sorensen and Yang, ARPACK
+    Users' Guide, 1998): the fastest by largest magnitude, the slowest by shift-invert
+    about a point just left of the origin (a sparse LU of ``A - sigma I``), so a
+    several-thousand-state ladder costs a fraction of a second where the full
+    eigenvalue problem takes minutes. Dense eigenvalues when ``A`` is small.
+    """
+    import scipy.sparse as sparse
+    from scipy.sparse.linalg import eigs
+
+    n = A.shape[0]
+    if n <= max(LARGE_BLOCK_STATES, 4 * count + 2):
+        p = np.linalg.eigvals(A) if n else np.zeros(0, dtype=complex)
+        order = np.argsort(np.abs(p))
+        return p[order[:count]], p[order[::-1][:count]]
+    As = sparse.csc_matrix(A)
+    fastest = eigs(As, k=count, which="LM", return_eigenvectors=False, tol=1e-10)
+    # sigma below zero by a hair of the fastest mode: A - sigma I is regular even when A
+    # has a pole at the origin (common practice, no source)
+    sigma = -1e-9 * float(np.abs(fastest).max())
+    slowest = eigs(As, k=count, sigma=sigma, which="LM", return_eigenvectors=False, tol=1e-10)
+    return slowest[np.argsort(np.abs(slowest))], fastest[np.argsort(-np.abs(fastest))]
 
 
 def modes(poles: np.ndarray) -> list[dict[str, float]]:

@@ -113,18 +113,9 @@ def _solve_numeric(eq: Equations, layout: _Layout) -> _Solution:
     try:
         W = _solve_rows(M, -N, needed)
     except RuntimeError:
-        raise CompileError(
-            "singular_equations",
-            "the circuit equations are singular: no unique solution for the node voltages "
-            "and branch currents (check controlled-source gains and loops through them)",
-            location=("parts",),
-        ) from None
+        raise _singular_error(eq, M) from None
     if not np.all(np.isfinite(W)):
-        raise CompileError(
-            "singular_equations",
-            "the circuit equations are singular at the given part values",
-            location=("parts",),
-        )
+        raise _singular_error(eq, M)
     Wd, Wy = W[: layout.n_x], W[layout.n_x :]
     Yw_used = Yw[:, output_rows]
     Y = Yw_used @ Wy + Yk
@@ -140,6 +131,40 @@ def _solve_numeric(eq: Equations, layout: _Layout) -> _Solution:
         D0=Y[:, u_cols],
         D1=Y[:, du_cols],
         D1_magnitude=magnitude,
+    )
+
+
+#: above this many unknowns the singular-equation message names no parts (an SVD would
+#: cost more than the compile; common practice, no source)
+_NAME_PARTS_MAX = 3000
+
+
+def _singular_error(eq: Equations, M: sp.csc_matrix) -> CompileError:
+    """``singular_equations`` naming the parts whose equations depend on each other.
+
+    The left null vector of ``M`` (from its SVD) weights the equations that combine to
+    zero; the parts whose branch equations carry weight form the loop (a vcvs driving its
+    own control nodes, two ccvs each controlled by the other's current).
+    """
+    location: tuple[str, ...] = ("parts",)
+    named = ""
+    if M.shape[0] <= _NAME_PARTS_MAX and eq.row_labels:
+        U, sigma, _ = np.linalg.svd(M.toarray())
+        weights = np.abs(U[:, -1])
+        involved = [eq.row_labels[k] for k in np.flatnonzero(weights > 1e-6 * weights.max())]
+        parts = [label.split()[-1] for label in involved if not label.startswith("KCL at")]
+        nodes = [label.removeprefix("KCL at ") for label in involved if label.startswith("KCL at")]
+        if parts:
+            named = f" through {', '.join(dict.fromkeys(parts))}"
+            location = ("parts", parts[0])
+        elif nodes:
+            named = f" at nodes {', '.join(nodes)}"
+    return CompileError(
+        "singular_equations",
+        f"the circuit equations are singular{named}: no unique solution for the node "
+        "voltages and branch currents (check controlled-source gains and loops through "
+        "them)",
+        location=location,
     )
 
 

@@ -7,7 +7,9 @@ new run, or one disappeared; 2 for an unreadable file.
 from __future__ import annotations
 
 import argparse
+import math
 
+from wirestate.errors import RegressionError
 from wirestate.report.bench_compare import (
     DEFAULT_THRESHOLD,
     compare_results,
@@ -30,6 +32,14 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    threshold = args.threshold
+    if not (math.isfinite(threshold) and threshold >= 0):
+        # nan lets every regression pass and a negative one flags identical files
+        raise RegressionError(
+            "out_of_range",
+            f"must be a finite fraction of 0 or more (0.25 = 25 %), got {threshold!r}",
+            location=("--threshold",),
+        )
     old, new = load_results(args.old), load_results(args.new)
     rows = compare_results(old, new, args.threshold)
     header = ["benchmark", "old ratio", "new ratio", "change", "better", "target", "status"]

@@ -6,9 +6,6 @@ import argparse
 import json
 import sys
 
-from wirestate.reduce import load_block
-from wirestate.report.tables import block_json, block_summary
-
 
 def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("model", help="circuit model file (TOML)")
@@ -28,6 +25,11 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    # imported here, not at module level: the CLI imports this module to configure the
+    # parser, and `wirestate inspect --help` should not pay for numpy/scipy
+    from wirestate.reduce import load_block
+    from wirestate.report.tables import block_json, block_summary
+
     if args.plot:
         from wirestate.report.figure import figure_format
 

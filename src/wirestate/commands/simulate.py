@@ -6,14 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from wirestate.compose import is_system_file, system_from_spec
 from wirestate.errors import SimulationError
-from wirestate.reduce import compile_circuit
-from wirestate.simulate import simulate
-from wirestate.simulate.inputs import parse_assignment
-from wirestate.spec import parse_circuit
-from wirestate.spec.load import read_toml
-from wirestate.spec.system import parse_system
 from wirestate.units import format_quantity, parse_quantity
 
 #: runs with more steps than this report progress on stderr
@@ -58,10 +51,21 @@ def _progress(fraction: float) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    # imported here, not at module level: the CLI imports this module to configure the
+    # parser, and `wirestate simulate --help` should not pay for control/scipy
+    from wirestate.compose import is_system_file, system_from_spec
+    from wirestate.reduce import compile_circuit
+    from wirestate.simulate import simulate
+    from wirestate.simulate.inputs import parse_assignment
+    from wirestate.spec import parse_circuit
+    from wirestate.spec.load import read_toml
+    from wirestate.spec.system import parse_system
+
     path = Path(args.model)
-    data = read_toml(path)
     until = _time(args.until, "until")
     step = _time(args.step, "step")
+    _check_before_work(args)
+    data = read_toml(path)
     assignments = dict(parse_assignment(text) for text in args.input)
     if is_system_file(data):
         model = system_from_spec(parse_system(data, file=str(path)), file=path)
@@ -71,6 +75,8 @@ def run(args: argparse.Namespace) -> int:
         options = {}
     steps = until / step
     progress = _progress if steps > PROGRESS_STEPS else None
+    if args.csv and not args.plot and _streams(model, until, step):
+        return _run_streamed(model, until, step, assignments, args, progress, path)
     try:
         result = simulate(
             model,
@@ -86,12 +92,8 @@ def run(args: argparse.Namespace) -> int:
         raise exc.with_file(str(path)) from None
     print(f"{result.name}: {len(result.time) - 1} steps of {format_quantity(step, 's')} "
           f"to {format_quantity(until, 's')}; {result.method}")  # fmt: skip
-    width = max([len(n) for n in result.output_names] + [6])
-    print(f"  {'output':<{width}}  {'final':>14}  {'min':>14}  {'max':>14}")
-    for name, row in zip(result.output_names, result.outputs, strict=True):
-        unit = result.units.get(name, "")
-        cells = [format_quantity(float(v), unit) for v in (row[-1], row.min(), row.max())]
-        print(f"  {name:<{width}}  {cells[0]:>14}  {cells[1]:>14}  {cells[2]:>14}")
+    rows = [(row[-1], row.min(), row.max()) for row in result.outputs]
+    _print_summary(result.output_names, result.units, rows)
     if args.csv:
         written = result.write_csv(args.csv)
         print(f"wrote {written}")
@@ -102,6 +104,59 @@ def run(args: argparse.Namespace) -> int:
         print(f"wrote {written}")
     print(CAUTION)
     return 0
+
+
+def _check_before_work(args: argparse.Namespace) -> None:
+    # every check that needs no model runs before the model is read or any step taken
+    from wirestate.simulate.guards import check_output_path, check_tolerances
+
+    check_tolerances({"rtol": args.rtol, "atol": args.atol})
+    if args.csv:
+        check_output_path(args.csv, "--csv")
+    if args.plot:
+        from wirestate.report.figure import figure_format
+
+        check_output_path(args.plot, "--plot")
+        figure_format(args.plot)
+
+
+def _streams(model, until: float, step: float) -> bool:
+    """True for an LTI run too large for memory: it is streamed to the CSV instead."""
+    from wirestate.simulate import guards
+
+    linear = not hasattr(model, "is_linear") or model.is_linear
+    n = guards.step_count(until, step)
+    return linear and guards.run_bytes(n + 1, *guards.signal_counts(model)) > (
+        guards.memory_budget()
+    )
+
+
+def _run_streamed(model, until, step, assignments, args, progress, path) -> int:
+    from wirestate.simulate.streaming import stream_linear_to_csv
+
+    try:
+        summary = stream_linear_to_csv(
+            model, until, step, args.csv, assignments, hold=args.hold, base=Path.cwd(),
+            progress=progress,
+        )  # fmt: skip
+    except SimulationError as exc:
+        raise exc.with_file(str(path)) if exc.file is None else exc from None
+    print(f"{summary.name}: {summary.samples - 1} steps of {format_quantity(step, 's')} "
+          f"to {format_quantity(until, 's')}; {summary.method}")  # fmt: skip
+    rows = list(zip(summary.final, summary.minimum, summary.maximum, strict=True))
+    _print_summary(summary.output_names, summary.units, rows)
+    print(f"wrote {args.csv}")
+    print(CAUTION)
+    return 0
+
+
+def _print_summary(names: list[str], units: dict[str, str], rows: list[tuple]) -> None:
+    width = max([len(n) for n in names] + [6])
+    print(f"  {'output':<{width}}  {'final':>14}  {'min':>14}  {'max':>14}")
+    for name, values in zip(names, rows, strict=True):
+        unit = units.get(name, "")
+        cells = [format_quantity(float(v), unit) for v in values]
+        print(f"  {name:<{width}}  {cells[0]:>14}  {cells[1]:>14}  {cells[2]:>14}")
 
 
 def _time(text: str, field: str) -> float:

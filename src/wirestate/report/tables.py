@@ -8,7 +8,7 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.lti import CircuitBlock, modes
+from wirestate.lti import LARGE_BLOCK_STATES, CircuitBlock, extreme_poles, modes
 
 
 def table(headers: Sequence[str], rows: Sequence[Sequence[Any]], *, indent: str = "  ") -> str:
@@ -48,7 +48,10 @@ def block_summary(block: CircuitBlock) -> str:
     out[0] += f"{len(block.outputs)} outputs"
     out.append("")
     out.append("signals")
-    rows = [("state", name, block.units.get(name, "")) for name in block.states]
+    listed = block.states if block.n_states <= 40 else block.states[:20]
+    rows = [("state", name, block.units.get(name, "")) for name in listed]
+    if len(listed) < block.n_states:
+        rows.append(("state", f"... {block.n_states - len(listed)} more", ""))
     rows += [
         (
             "input",
@@ -60,9 +63,19 @@ def block_summary(block: CircuitBlock) -> str:
     rows += [("output", name, block.units.get(name, "")) for name in block.outputs]
     out.append(table(("role", "name", "unit"), rows))
     out.append("")
-    out.append("modes (poles of A)")
+    large = block.n_states > LARGE_BLOCK_STATES
+    if large:
+        slowest, fastest = extreme_poles(block.A, 10)
+        out.append(
+            f"modes (poles of A): {block.n_states} states; the 10 slowest, then the 10 "
+            "fastest (sparse Arnoldi; the full list with --json)"
+        )
+        shown = np.concatenate([slowest, fastest])
+    else:
+        out.append("modes (poles of A)")
+        shown = block.poles()
     mode_rows = []
-    for m in modes(block.poles()):
+    for m in modes(shown):
         if m["imag"] < 0:
             continue  # one line per conjugate pair
         mode_rows.append(
@@ -88,8 +101,13 @@ def block_summary(block: CircuitBlock) -> str:
     out.append("DC gain (output per input, SI units)")
     gain = _clean(block.dc_gain())
     if block.inputs and block.outputs:
-        rows = [[name, *gain[i]] for i, name in enumerate(block.outputs)]
+        rows = [[name, *map(_gain_cell, gain[i])] for i, name in enumerate(block.outputs)]
         out.append(table(("output \\ input", *block.inputs), rows))
+        if np.isinf(gain).any():
+            out.append(
+                "  unbounded: a pole at s = 0 that this input drives and this output sees "
+                "(the response grows without limit, as a capacitor charged by a current)"
+            )
     else:
         out.append("  (no inputs or no outputs)")
     if block.notes:
@@ -97,6 +115,10 @@ def block_summary(block: CircuitBlock) -> str:
         out.append("notes")
         out.extend(f"  {note}" for note in block.notes)
     return "\n".join(out)
+
+
+def _gain_cell(value: float) -> float | str:
+    return value if math.isfinite(value) else ("unbounded" if value > 0 else "-unbounded")
 
 
 def block_json(block: CircuitBlock) -> dict[str, Any]:

@@ -7,8 +7,11 @@ from collections.abc import Callable, Mapping
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from wirestate.compose import ComposedSystem
 from wirestate.errors import SimulationError
+from wirestate.simulate import guards
 from wirestate.simulate.discretize import Discretization, foh, zoh
 from wirestate.simulate.hybrid import simulate_system
 from wirestate.simulate.inputs import InputSet, Waveform, build_inputs, parse_waveform
@@ -54,6 +57,19 @@ def simulate(
     blocks by :func:`~wirestate.simulate.hybrid.simulate_system` (``options``: ``rtol``,
     ``atol``).
     """
+    guards.check_tolerances(options)
+    # a run that cannot fit is refused before any array is made (issue 10.10)
+    nonlinear = isinstance(model, ComposedSystem) and not model.is_linear
+    guards.check_run_size(model, until, step, streamable=not nonlinear)
+    with np.errstate(over="ignore", invalid="ignore"):  # a non-finite run is reported below
+        result = _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, options)
+    guards.check_finite_result(
+        result.name, result.time, [result.states, result.outputs], guards.model_poles(model), step
+    )
+    return result
+
+
+def _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, options):
     if isinstance(model, ComposedSystem) and not model.is_linear:
         if hold != "zoh":
             # the hybrid engines hold the sampled outputs by construction and take the

@@ -40,7 +40,11 @@ def _check(A: np.ndarray, B: np.ndarray, dt: float) -> tuple[np.ndarray, np.ndar
     n = A.shape[0]
     if A.shape != (n, n):
         raise SimulationError("state_size_mismatch", f"A must be square, got shape {A.shape}")
-    B = np.asarray(B, dtype=float).reshape(n, -1) if n else np.zeros((0, np.size(B)))
+    B = np.asarray(B, dtype=float)
+    if n:
+        B = B.reshape(n, -1)
+    else:  # a block without states (a resistive divider) keeps its input count
+        B = B.reshape(0, B.shape[1] if B.ndim == 2 else 0)
     dt = float(dt)
     if not (math.isfinite(dt) and dt > 0):
         raise SimulationError("invalid_step", f"the step must be a positive time, got {dt!r} s")

@@ -275,7 +275,7 @@ def parse_waveform(
                 amplitude,
                 frequency,
                 offset=_value(options.get("offset", "0"), unit_key),
-                phase=math.radians(float(options.get("phase", "0"))),
+                phase=math.radians(parse_quantity(options.get("phase", "0"), "1", field="phase")),
                 start=_time(options.get("start", "0")),
             )
         # pwl

@@ -28,6 +28,7 @@ from wirestate.compose import ComposedSystem
 from wirestate.errors import SimulationError
 from wirestate.lti import CircuitBlock
 from wirestate.simulate.discretize import Discretization
+from wirestate.simulate.guards import step_count
 from wirestate.simulate.inputs import InputSet, Waveform, build_inputs
 from wirestate.simulate.results import SimulationResult
 
@@ -133,18 +134,7 @@ def as_linear_model(system: Any) -> LinearModel:
 def time_grid(until: float, step: float) -> np.ndarray:
     """``0, step, 2 step, ...`` up to ``until`` (s); ``until`` must be a whole number of steps
     to within 1e-9 relative (common practice, no source: guards against rounding only)."""
-    for label, value in (("until", until), ("step", step)):
-        if not (math.isfinite(value) and value > 0):
-            raise SimulationError(
-                "invalid_step", f"{label} must be a positive time, got {value!r} s"
-            )
-    count = until / step
-    n = round(count)
-    if n < 1 or abs(count - n) > 1e-9 * max(1.0, count):
-        raise SimulationError(
-            "invalid_step",
-            f"until ({until:g} s) must be a whole number of steps ({step:g} s)",
-        )
+    n = step_count(until, step)
     return np.arange(n + 1) * step
 
 

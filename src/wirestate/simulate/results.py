@@ -3,14 +3,14 @@
 from __future__ import annotations
 
 import csv
-import io
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import control
 import numpy as np
 
-from wirestate.atomic import write_atomic
+from wirestate.atomic import open_atomic
 from wirestate.errors import SimulationError
 
 SHIFTED_SUFFIX = "_shifted"
@@ -110,13 +110,10 @@ class SimulationResult:
         (``os.replace``), so a reader never sees half a file.
         """
         path = Path(path)
-        data = np.vstack([self.time[np.newaxis, :], self.outputs]).T
-        text = io.StringIO(newline="")
-        writer = csv.writer(text, lineterminator="\n")
-        writer.writerow(["time", *self.output_names])
-        writer.writerows([repr(float(v)) for v in row] for row in data)
         try:
-            write_atomic(path, text.getvalue())
+            with open_atomic(path) as handle:
+                write_csv_header(handle, self.output_names)
+                write_csv_rows(handle, self.time, self.outputs)
         except OSError as exc:
             raise SimulationError(
                 "file_not_found",
@@ -124,3 +121,21 @@ class SimulationResult:
                 file=str(path),
             ) from None
         return path
+
+
+#: rows formatted per piece when writing a CSV, so the text never holds the whole run
+_CSV_ROWS = 20_000
+
+
+def write_csv_header(handle: Any, output_names: list[str]) -> None:
+    """The CSV header ``time,<outputs>``."""
+    csv.writer(handle, lineterminator="\n").writerow(["time", *output_names])
+
+
+def write_csv_rows(handle: Any, time: np.ndarray, outputs: np.ndarray) -> None:
+    """Rows ``time, outputs...`` (``repr`` of each float, so values read back exactly)."""
+    writer = csv.writer(handle, lineterminator="\n")
+    for start in range(0, len(time), _CSV_ROWS):
+        data = np.vstack([time[np.newaxis, start : start + _CSV_ROWS],
+                          outputs[:, start : start + _CSV_ROWS]]).T  # fmt: skip
+        writer.writerows([repr(float(v)) for v in row] for row in data)

@@ -64,9 +64,10 @@ class _Strict(BaseModel):
 class Ratings(_Strict):
     """Ratings shared by every two-terminal part (all optional, SI units)."""
 
-    rated_voltage: Volts | None = None
-    rated_current: Amperes | None = None
-    rated_power: Watts | None = None
+    # a rating of zero or below describes no real part (issue 10.2)
+    rated_voltage: Volts | None = Field(default=None, gt=0)
+    rated_current: Amperes | None = Field(default=None, gt=0)
+    rated_power: Watts | None = Field(default=None, gt=0)
 
 
 class _TwoTerminal(Ratings):
@@ -288,6 +289,61 @@ PRIMARY_FIELD: dict[str, str] = {
 }
 
 
+def check_couplings(parts: dict[str, Any]) -> None:
+    """Refuse couplings that describe no passive magnetic structure.
+
+    Two couplings on one pair of inductors are refused (``duplicate_coupling``). Every group
+    of coupled inductors must have a positive definite inductance matrix ``L`` (stored
+    magnetic energy ``i^T L i / 2 > 0`` for every current vector i != 0, e.g. Hayt and
+    Kemmerly, Engineering Circuit Analysis, ch. 13, "the energy stored in coupled
+    inductors"); ``0 < k < 1`` per pair is necessary but not sufficient for three or more
+    inductors. Tested by a Cholesky factorisation; ``indefinite_inductance`` names the
+    couplings of the group. Couplings naming unknown parts are left to the topology check.
+    """
+    import numpy as np
+
+    seen: dict[frozenset[str], str] = {}
+    groups: dict[str, set[str]] = {}
+    for name, part in parts.items():
+        if getattr(part, "kind", None) != "coupling":
+            continue
+        a, b = part.inductors
+        if any(getattr(parts.get(x), "kind", None) != "inductor" for x in (a, b)) or a == b:
+            continue
+        pair = frozenset((a, b))
+        if pair in seen:
+            raise ModelFileError(
+                "duplicate_coupling",
+                f"{name} couples {a} and {b}, which {seen[pair]} already couples; give one "
+                "coupling per pair of inductors",
+                location=("parts", name),
+            )
+        seen[pair] = name
+        merged = groups.get(a, {a}) | groups.get(b, {b})
+        for inductor in merged:
+            groups[inductor] = merged
+    for group in {id(g): g for g in groups.values()}.values():
+        names = sorted(group)
+        index = {n: k for k, n in enumerate(names)}
+        # scale by sqrt(L): the matrix of coefficients has unit diagonal, so the test does
+        # not depend on how far the inductances spread
+        K = np.eye(len(names))
+        couplings = []
+        for pair, coupling in seen.items():
+            if pair <= group:
+                a, b = sorted(pair)
+                K[index[a], index[b]] = K[index[b], index[a]] = parts[coupling].coefficient
+                couplings.append(coupling)
+        if np.linalg.eigvalsh(K).min() <= 1e-12:  # common practice, no source: round-off
+            raise ModelFileError(
+                "indefinite_inductance",
+                f"couplings {', '.join(sorted(couplings))} make the inductance matrix of "
+                f"{', '.join(names)} not positive definite (the coefficients cannot all hold "
+                "at once: some current pattern would store negative energy); lower them",
+                location=("parts", sorted(couplings)[0]),
+            )
+
+
 def part_parameter(kind: str) -> str | None:
     """Name of the field that holds a part's primary value (``None`` for sources)."""
     return PRIMARY_FIELD.get(kind)
@@ -350,6 +406,11 @@ class CircuitSpec(_Strict):
             _check_name(name, "output name")
         return outputs
 
+    @model_validator(mode="after")
+    def _physical_couplings(self) -> CircuitSpec:
+        check_couplings(self.parts)
+        return self
+
     @property
     def name(self) -> str:
         return self.circuit.name
@@ -376,4 +437,7 @@ class CircuitSpec(_Strict):
                     location=("parts", part),
                 )
             data["parts"][part][field] = float(value)
-        return CircuitSpec.model_validate(data)
+        from wirestate.spec.load import validate
+
+        # the same one-line errors as a file (issue 10.6), not pydantic's report
+        return validate(CircuitSpec, data)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 import tomllib
 from pathlib import Path
 from typing import Any, TypeVar
@@ -39,14 +40,56 @@ def read_toml(path: str | Path) -> dict[str, Any]:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ModelFileError("malformed_toml", f"not valid TOML: {exc}", file=str(path)) from None
+    except RecursionError:
+        # the standard library's TOML reader recurses once per nesting level
+        raise ModelFileError(
+            "nesting_too_deep",
+            "arrays or inline tables are nested too deeply to read (no wirestate file "
+            f"needs more than {MAX_DEPTH} levels)",
+            file=str(path),
+        ) from None
+
+
+#: deepest nesting of tables and arrays a wirestate file may have (none needs more than 5)
+MAX_DEPTH = 64
+
+
+def check_plain_data(data: Any, *, file: str | None = None) -> None:
+    """Refuse NaN or infinite numbers anywhere in parsed file data, and nesting deeper
+    than :data:`MAX_DEPTH`, naming the location. Iterative, so any depth is safe."""
+    stack: list[tuple[Any, tuple[str | int, ...]]] = [(data, ())]
+    while stack:
+        value, where = stack.pop()
+        if len(where) > MAX_DEPTH:
+            raise ModelFileError(
+                "nesting_too_deep",
+                f"nested more than {MAX_DEPTH} levels deep",
+                file=file,
+                location=where[:MAX_DEPTH],
+            )
+        if isinstance(value, float) and not math.isfinite(value):
+            raise ModelFileError(
+                "non_finite_value",
+                f"{value!r} is not a finite number; give a finite value",
+                file=file,
+                location=where,
+            )
+        if isinstance(value, dict):
+            stack.extend((v, (*where, str(k))) for k, v in value.items())
+        elif isinstance(value, list | tuple):
+            stack.extend((v, (*where, i)) for i, v in enumerate(value))
 
 
 def validate(model: type[Model], data: Any, *, file: str | None = None) -> Model:
     """Validate ``data`` against ``model``; the first problem becomes a :class:`WirestateError`."""
+    check_plain_data(data, file=file)
     try:
         return model.model_validate(data)
     except ValidationError as exc:
         raise error_from_validation(exc, file=file) from None
+    except WirestateError as exc:
+        # whole-model checks (couplings) raise our error directly, with its location
+        raise exc.with_file(file) if file else exc from None
 
 
 def error_from_validation(exc: ValidationError, *, file: str | None = None) -> WirestateError:

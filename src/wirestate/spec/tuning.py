@@ -261,6 +261,15 @@ class Scenario(_Strict):
     def _steps_inside(self) -> Scenario:
         if self.step >= self.horizon:
             raise ValueError("the sample step must be shorter than the horizon")
+        count = self.horizon / self.step
+        # a horizon between two grid points would be rounded silently (issue 10.7); the
+        # 1e-9 relative slack only absorbs the rounding of decimal prefixes
+        if abs(count - round(count)) > 1e-9 * count:
+            raise ValueError(
+                f"the horizon ({self.horizon:g} s) is not a whole number of steps "
+                f"({self.step:g} s; {count:.4f} steps): make it {round(count) * self.step:g} s "
+                "or choose a step that divides it"
+            )
         for s in self.steps:
             if s.at >= self.horizon:
                 raise ValueError(f"step of {s.input!r} at {s.at:g} s lies beyond the horizon")

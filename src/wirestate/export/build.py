@@ -1,0 +1,139 @@
+"""Compiling the C runtime and packing the FMU archive.
+
+The compiler is found as users expect: the ``CC`` environment variable (which may carry
+options, e.g. ``"ccache gcc"``), then ``cc`` on the ``PATH``.
+
+The FMI 2.0 headers: when the fmpy package is installed its ``c-code`` folder is used;
+otherwise the copies shipped in this package (``wirestate/export/fmi2/``, unmodified
+FMI 2.0.1 headers under the 2-clause BSD licence printed in each of them, see
+``fmi2/LICENSE.txt``). Both are the standard's own files; shipping them means that
+``wirestate export`` needs nothing beyond a C compiler.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import io
+import os
+import shlex
+import shutil
+import subprocess
+import tempfile
+import zipfile
+from importlib import resources
+from pathlib import Path
+
+from wirestate.export.plan import ExportError
+
+HEADER_NAMES = ("fmi2Functions.h", "fmi2FunctionTypes.h", "fmi2TypesPlatform.h")
+RUNTIME_NAME = "wirestate_fmu.c"
+MODEL_HEADER_NAME = "wirestate_model.h"
+#: ISO C, no fused multiply-adds (the controller arithmetic must round like Python's),
+#: position-independent shared object
+CFLAGS = ("-std=c99", "-O2", "-fPIC", "-shared", "-ffp-contract=off")
+#: a fixed time stamp for the archive members, so the same model gives the same bytes
+ZIP_TIME = (2020, 1, 1, 0, 0, 0)
+
+
+def find_compiler(environ: dict[str, str] | None = None) -> list[str]:
+    """The C compiler command: ``$CC`` (split like a shell word list), then ``cc``.
+
+    Raises
+    ------
+    ExportError
+        ``no_c_compiler`` when ``CC`` names no program or neither exists.
+    """
+    env = os.environ if environ is None else environ
+    path = env.get("PATH", os.defpath)
+    given = env.get("CC", "").strip()
+    if given:
+        words = shlex.split(given)
+        if shutil.which(words[0], path=path) is None:
+            raise ExportError(
+                "no_c_compiler",
+                f"CC={given!r} names no program on the PATH; set CC to a C compiler or use "
+                "--sources-only to write the FMU without binaries",
+                location=("CC",),
+            )
+        return words
+    found = shutil.which("cc", path=path)
+    if found is None:
+        raise ExportError(
+            "no_c_compiler",
+            "no C compiler found (neither $CC nor cc); install one, set CC, or use "
+            "--sources-only to write the FMU without binaries",
+            location=("CC",),
+        )
+    return [found]
+
+
+def header_folder() -> tuple[Path, str]:
+    """The folder holding the FMI 2.0 headers and where it comes from (``"fmpy"`` or
+    ``"wirestate"``)."""
+    spec = importlib.util.find_spec("fmpy")
+    if spec is not None and spec.origin is not None:
+        folder = Path(spec.origin).parent / "c-code"
+        if all((folder / name).is_file() for name in HEADER_NAMES):
+            return folder, "fmpy"
+    return Path(str(resources.files("wirestate.export") / "fmi2")), "wirestate"
+
+
+def runtime_source() -> str:
+    """The text of the C runtime (the same for every model)."""
+    return (resources.files("wirestate.export") / "templates" / RUNTIME_NAME).read_text("utf-8")
+
+
+def shipped_headers() -> dict[str, bytes]:
+    """The FMI 2.0 headers and their licence note, as put into ``sources/``."""
+    folder = resources.files("wirestate.export") / "fmi2"
+    names = (*HEADER_NAMES, "LICENSE.txt")
+    return {name: (folder / name).read_bytes() for name in names}
+
+
+def compile_shared(identifier: str, model_header: str, compiler: list[str] | None = None) -> bytes:
+    """Compile the runtime with ``model_header`` into a shared object; return its bytes.
+
+    Raises
+    ------
+    ExportError
+        ``no_c_compiler`` (see :func:`find_compiler`) or ``build_failed`` with the first
+        line the compiler printed.
+    """
+    command = compiler or find_compiler()
+    headers, _ = header_folder()
+    with tempfile.TemporaryDirectory(prefix="wirestate-fmu-") as work:
+        folder = Path(work)
+        (folder / RUNTIME_NAME).write_text(runtime_source(), encoding="utf-8")
+        (folder / MODEL_HEADER_NAME).write_text(model_header, encoding="utf-8")
+        target = folder / f"{identifier}.so"
+        args = [*command, *CFLAGS, "-I", str(folder), "-I", str(headers),
+                str(folder / RUNTIME_NAME), "-o", str(target), "-lm"]  # fmt: skip
+        try:
+            done = subprocess.run(args, capture_output=True, text=True, timeout=300)
+        except OSError as exc:
+            raise ExportError(
+                "no_c_compiler", f"cannot run {command[0]}: {exc}", location=("CC",)
+            ) from None
+        if done.returncode != 0 or not target.is_file():
+            message = (done.stderr or done.stdout).strip().splitlines()
+            first = next(
+                (line for line in message if "error" in line), message[0] if message else ""
+            )
+            raise ExportError(
+                "build_failed",
+                f"{command[0]} failed to build {identifier}.so: {first.strip()}",
+                location=("binaries",),
+            )
+        return target.read_bytes()
+
+
+def pack(members: dict[str, bytes]) -> bytes:
+    """The FMU archive (deflated zip, forward slashes, fixed time stamps) in memory."""
+    buffer = io.BytesIO()
+    with zipfile.ZipFile(buffer, "w", zipfile.ZIP_DEFLATED) as archive:
+        for name, data in members.items():
+            info = zipfile.ZipInfo(name, ZIP_TIME)
+            info.compress_type = zipfile.ZIP_DEFLATED
+            info.external_attr = (0o755 if name.endswith(".so") else 0o644) << 16
+            archive.writestr(info, data)
+    return buffer.getvalue()
