@@ -17,6 +17,7 @@ LAYERS = [
     {"lti"},
     {"reduce"},
     {"balanced"},
+    {"switching"},
     {"blocks"},
     {"compose"},
     {"simulate"},

@@ -26,8 +26,11 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from wirestate.spec.circuit import part_parameter
-from wirestate.topology import Branch, Topology
+from wirestate.spec.circuit import SWITCHING_KINDS, part_parameter
+from wirestate.topology import CONSTANT_BRANCH, SECONDARY, Branch, Topology
+
+#: key of a switched part's mode-dependent source term in the values mapping
+FORWARD = ".forward_voltage"
 
 Key = tuple[str, int]  # ("w"|"x"|"u"|"du", index)
 LinearForm = dict[Key, Any]
@@ -141,7 +144,7 @@ class _Stamper:
         raise AssertionError(f"internal: {b.kind} in an inductor cutset")  # topology rejects it
 
     # -- assembly ---------------------------------------------------------------------------
-    def assemble(self) -> Equations:
+    def assemble(self, probes: tuple[tuple[str, str], ...] = ()) -> Equations:
         t = self.t
         n_nodes = len(t.nodes)
         rows: list[LinearForm] = [{} for _ in range(n_nodes - 1)]
@@ -161,6 +164,14 @@ class _Stamper:
                 rows.append(row)
                 labels.append(f"{b.kind} {b.name}")
         outputs, names, units = self.output_forms()
+        for what, part in probes:
+            branch = self.t.branch_index[part]
+            if what == "current":
+                outputs.append(self.current(branch))
+            else:
+                outputs.append(self.voltage(self.t.branches[branch]))
+            names.append(f"{what}:{part}")
+            units.append("A" if what == "current" else "V")
         return Equations(
             topology=t,
             n_w=self.n_w,
@@ -234,6 +245,22 @@ def _cccs_current(s: _Stamper, i: int, b: Branch) -> LinearForm:
     return scale(s.current(control), s.values[b.name])
 
 
+def _diode_current(s: _Stamper, i: int, b: Branch) -> LinearForm:
+    # on: i = (v - V0) / R with the source term V0 as a constant input of the mode; off or
+    # without forward voltage the diode is a plain resistor
+    form = _resistor_current(s, i, b)
+    offset = s.values.get(b.name + FORWARD, 0.0)
+    if isinstance(offset, float) and offset == 0.0:
+        return form
+    return add(form, {("u", s.input_of[CONSTANT_BRANCH]): -offset / s.values[b.name]})
+
+
+def _secondary_current(s: _Stamper, i: int, b: Branch) -> LinearForm:
+    # ideal transformer: i2 = -ratio * i1
+    primary = b.name.removesuffix(SECONDARY)
+    return scale(s.current(s.t.branch_index[primary]), -s.values[primary])
+
+
 CURRENT_STAMPS: dict[str, Callable[[_Stamper, int, Branch], LinearForm]] = {
     "resistor": _resistor_current,
     "capacitor": _capacitor_current,
@@ -245,6 +272,10 @@ CURRENT_STAMPS: dict[str, Callable[[_Stamper, int, Branch], LinearForm]] = {
     "current_source": _current_source_current,
     "vccs": _vccs_current,
     "cccs": _cccs_current,
+    "switch": _resistor_current,
+    "diode": _diode_current,
+    "transformer_primary": _unknown_current,
+    "transformer_secondary": _secondary_current,
 }
 
 # Branch equations (one row each) for the kinds whose current is not enough.
@@ -283,7 +314,14 @@ def _inductor_row(s: _Stamper, i: int, b: Branch) -> LinearForm:
     return add(s.voltage(b), scale(flux_rate, -1.0))
 
 
+def _transformer_row(s: _Stamper, i: int, b: Branch) -> LinearForm:
+    # ideal transformer: v1 = ratio * v2
+    secondary = s.t.branches[s.t.branch_index[b.name + SECONDARY]]
+    return add(s.voltage(b), scale(s.voltage(secondary), -s.values[b.name]))
+
+
 BRANCH_STAMPS: dict[str, Callable[[_Stamper, int, Branch], LinearForm | None]] = {
+    "transformer_primary": _transformer_row,
     "voltage_source": _voltage_source_row,
     "vcvs": _vcvs_row,
     "ccvs": _ccvs_row,
@@ -294,10 +332,18 @@ BRANCH_STAMPS: dict[str, Callable[[_Stamper, int, Branch], LinearForm | None]] =
 
 
 def assemble(
-    topology: Topology, values: Mapping[str, Any], backend: Backend = NUMERIC
+    topology: Topology,
+    values: Mapping[str, Any],
+    backend: Backend = NUMERIC,
+    probes: tuple[tuple[str, str], ...] = (),
 ) -> Equations:
-    """Stamp every part of ``topology`` with the given part values (floats or CasADi)."""
-    return _Stamper(topology, values, backend).assemble()
+    """Stamp every part of ``topology`` with the given part values (floats or CasADi).
+
+    ``probes`` adds outputs after the file's: ``("current", part)`` or ``("voltage",
+    part)``, named ``current:PART`` / ``voltage:PART`` (the switched-circuit compiler
+    watches its switches and diodes through them).
+    """
+    return _Stamper(topology, values, backend).assemble(tuple(probes))
 
 
 def nominal_values(topology: Topology) -> dict[str, float]:
@@ -307,6 +353,8 @@ def nominal_values(topology: Topology) -> dict[str, float]:
         field_name = part_parameter(part.kind)
         if field_name is not None:
             values[name] = getattr(part, field_name)
+        elif part.kind in SWITCHING_KINDS:
+            values[name] = part.off_resistance  # the mode with everything off
     return values
 
 

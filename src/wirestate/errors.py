@@ -49,6 +49,10 @@ ERROR_CODES: dict[str, str] = {
     "invalid_input_signal": "an input waveform description that cannot be parsed",
     "invalid_step": "a step size or horizon that is not a positive time",
     "state_size_mismatch": "a state vector of the wrong length",
+    # switched circuits (issue 12)
+    "switch_resistance": "a switch or diode whose off_resistance is not larger than on_resistance",
+    "invalid_gate": "a switch gate that is not an input of its own (a source, speed or output)",
+    "switching_chatter": "switches or diodes that keep changing mode at one instant",
     # tuning
     "unknown_variable": "a design variable that names no part value",
     "invalid_limit": "a limit that names an unknown output or has inconsistent bounds",

@@ -230,7 +230,9 @@ def _input_units(topology: Topology) -> dict[str, str]:
     units = {}
     for name, branch in topology.inputs:
         b = topology.branches[branch]
-        if b.kind == "voltage_source":
+        if branch < 0 or b.kind == "switch":
+            units[name] = "1"  # a gate, or the unit constant of a switched mode
+        elif b.kind == "voltage_source":
             units[name] = "V"
         elif b.kind == "current_source":
             units[name] = "A"
@@ -258,7 +260,17 @@ def compile_circuit(spec: CircuitSpec) -> CircuitBlock:
         electromechanical torques or forces.
     """
     topology = analyse(spec)
-    eq = assemble(topology, nominal_values(topology))
+    return block_from_equations(assemble(topology, nominal_values(topology)))
+
+
+def block_from_equations(eq: Equations) -> CircuitBlock:
+    """Eliminate stamped equations (:func:`wirestate.equations.assemble`) to a named block.
+
+    This is the elimination step of :func:`compile_circuit`; the switched-circuit compiler
+    calls it once per mode with that mode's resistances.
+    """
+    topology = eq.topology
+    spec = topology.spec
     layout = _layout(eq)
     sol = _solve_numeric(eq, layout)
     _check_output_derivatives(eq, sol, layout)
@@ -282,7 +294,8 @@ def compile_circuit(spec: CircuitSpec) -> CircuitBlock:
     defaults = {
         name: spec.parts[topology.branches[branch].name].value
         for name, branch in topology.inputs
-        if topology.branches[branch].kind in ("voltage_source", "current_source")
+        if branch >= 0
+        and topology.branches[branch].kind in ("voltage_source", "current_source")
         and spec.parts[topology.branches[branch].name].value is not None
     }
     return CircuitBlock(
@@ -381,13 +394,21 @@ def symbolic_state_space(spec: CircuitSpec, variables: Mapping[str, Any]) -> Sym
     # the numeric compile fixes the structure (shifted states, refused derivatives)
     block = compile_circuit(spec)
     is_mx = any(isinstance(v, casadi.MX) for v in variables.values())
-    kind = casadi.MX if is_mx else casadi.SX
     eq = assemble(topology, values, Backend(sqrt=casadi.sqrt))
+    return symbolic_from_equations(eq, block, mx=is_mx)
+
+
+def symbolic_from_equations(eq: Equations, block: CircuitBlock, *, mx: bool) -> SymbolicStateSpace:
+    """Eliminate equations stamped with CasADi values; ``block`` is their numeric compile
+    (it fixes which states are shifted). The symbolic half of :func:`block_from_equations`."""
+    import casadi
+
+    kind = casadi.MX if mx else casadi.SX
     layout = _layout(eq)
     w_t, k_t = _triplets(eq.rows, layout)
     M = _casadi_matrix(kind, w_t, (len(eq.rows), eq.n_w))
     N = _casadi_matrix(kind, k_t, (len(eq.rows), layout.width))
-    W = casadi.solve(M, -N, "symbolicqr") if is_mx else casadi.solve(M, -N)
+    W = casadi.solve(M, -N, "symbolicqr") if mx else casadi.solve(M, -N)
     yw_t, yk_t = _triplets(eq.outputs, layout)
     Yw = _casadi_matrix(kind, yw_t, (len(eq.outputs), eq.n_w))
     Yk = _casadi_matrix(kind, yk_t, (len(eq.outputs), layout.width))

@@ -26,8 +26,15 @@ from dataclasses import dataclass, field
 from wirestate.errors import TopologyError
 from wirestate.spec.circuit import CircuitSpec
 
-VOLTAGE_KINDS = ("voltage_source", "vcvs", "ccvs", "electromechanical")
-CURRENT_KINDS = ("current_source", "vccs", "cccs")
+VOLTAGE_KINDS = ("voltage_source", "vcvs", "ccvs", "electromechanical", "transformer_primary")
+CURRENT_KINDS = ("current_source", "vccs", "cccs", "transformer_secondary")
+#: switches and diodes are resistors whose value depends on the mode: the normal tree, and
+#: so the states, are the same in every mode
+RESISTIVE_KINDS = ("switch", "diode")
+#: branch-name suffix of a transformer's secondary winding (the primary keeps the part name)
+SECONDARY = ".secondary"
+#: branch index standing for the unit constant input of a switched mode (diode forward drop)
+CONSTANT_BRANCH = -1
 #: tree priority: lower enters the normal tree first
 PRIORITY = {"voltage": 0, "capacitor": 1, "resistor": 2, "inductor": 3, "current": 4}
 
@@ -38,6 +45,8 @@ def category(kind: str) -> str:
         return "voltage"
     if kind in CURRENT_KINDS:
         return "current"
+    if kind in RESISTIVE_KINDS:
+        return "resistor"
     return kind
 
 
@@ -77,7 +86,9 @@ class Topology:
         ``(coupling part, inductor a, inductor b)`` by name.
     inputs
         ``(input name, branch index)``: independent sources, then electromechanical speeds,
-        in file order.
+        then switch gates (branch of the first switch on that gate), in file order.
+    gates
+        Switch part -> name of its gate input.
     """
 
     spec: CircuitSpec
@@ -91,6 +102,7 @@ class Topology:
     inputs: list[tuple[str, int]]
     branch_index: dict[str, int] = field(default_factory=dict)
     node_index: dict[str, int] = field(default_factory=dict)
+    gates: dict[str, str] = field(default_factory=dict)
 
     def node(self, name: str | None) -> int:
         return 0 if name is None else self.node_index[name]
@@ -107,7 +119,7 @@ def analyse(spec: CircuitSpec) -> Topology:
         ``unsupported_topology``, naming the parts or nodes concerned.
     """
     ground = spec.ground
-    two_terminal = {name: part for name, part in spec.parts.items() if part.kind != "coupling"}
+    two_terminal = _two_terminal(spec)
     if not two_terminal:
         raise TopologyError(
             "no_ground", "the circuit has no two-terminal parts", location=("parts",)
@@ -130,12 +142,13 @@ def analyse(spec: CircuitSpec) -> Topology:
             raise TopologyError(
                 "shorted_part",
                 f"both terminals of {name} are on node {a!r}",
-                location=("parts", name, "nodes"),
+                location=_branch_location(name, spec),
             )
         branches.append(Branch(name, part.kind, node_index[a], node_index[b]))
     branch_index = {b.name: i for i, b in enumerate(branches)}
 
     _check_references(spec, node_index, branch_index)
+    _check_transformers(spec, branches, branch_index, node_index)
     _check_floating(nodes, branches)
     in_tree = _normal_tree(nodes, branches)
     rooted = _RootedTree(len(nodes), branches, in_tree)
@@ -152,12 +165,12 @@ def analyse(spec: CircuitSpec) -> Topology:
                 states.append(i)
             else:
                 loop = rooted.loop(b)
-                _require(loop, branches, ("vcvs", "ccvs"), b, "loop")
+                _require(loop, branches, ("vcvs", "ccvs", "transformer_primary"), b, "loop")
                 excess_capacitors[i] = loop
         elif b.kind == "inductor":
             if in_tree[i]:
                 cut = rooted.cutset(i, in_tree)
-                _require(cut, branches, ("vccs", "cccs"), b, "cutset")
+                _require(cut, branches, ("vccs", "cccs", "transformer_secondary"), b, "cutset")
                 excess_inductors[i] = cut
             else:
                 states.append(i)
@@ -173,6 +186,10 @@ def analyse(spec: CircuitSpec) -> Topology:
         for i, b in enumerate(branches)
         if b.kind == "electromechanical"
     ]
+    gates = _gates(spec, [name for name, _ in inputs], spec.outputs)
+    for part, gate in gates.items():
+        if gate not in [name for name, _ in inputs]:
+            inputs.append((gate, branch_index[part]))
     return Topology(
         spec=spec,
         nodes=nodes,
@@ -185,7 +202,73 @@ def analyse(spec: CircuitSpec) -> Topology:
         inputs=inputs,
         branch_index=branch_index,
         node_index=node_index,
+        gates=gates,
     )
+
+
+def _branch_location(branch: str, spec: CircuitSpec) -> tuple[str, ...]:
+    part, _, winding = branch.partition(".")
+    if spec.parts[part].kind == "transformer":
+        return ("parts", part, winding or "primary")
+    return ("parts", part, "nodes")
+
+
+def _two_terminal(spec: CircuitSpec) -> dict:
+    """Every branch by name: two-terminal parts, and two windings per transformer."""
+    from types import SimpleNamespace
+
+    out: dict = {}
+    for name, part in spec.parts.items():
+        if part.kind == "transformer":
+            out[name] = SimpleNamespace(kind="transformer_primary", nodes=part.primary)
+            out[name + SECONDARY] = SimpleNamespace(
+                kind="transformer_secondary", nodes=part.secondary
+            )
+        elif part.kind != "coupling":
+            out[name] = part
+    return out
+
+
+def _gates(spec: CircuitSpec, inputs: list[str], outputs: dict) -> dict[str, str]:
+    """Gate input of every switch; a gate may not be a source, speed or output name."""
+    gates = {}
+    for name, part in spec.parts.items():
+        if part.kind != "switch":
+            continue
+        gate = part.gate or name
+        clash = "an input of a source or speed" if gate in inputs else None
+        if gate in outputs:
+            clash = "an output"
+        if clash:
+            raise TopologyError(
+                "invalid_gate",
+                f"the gate of {name} must be a block input of its own, but {gate!r} is {clash}",
+                location=("parts", name, "gate"),
+            )
+        gates[name] = gate
+    return gates
+
+
+def _check_transformers(
+    spec: CircuitSpec, branches: list[Branch], index: dict, node_index: dict[str, int]
+) -> None:
+    """A winding node that no other part touches is a typo or an open terminal: refuse it."""
+    for name, part in spec.parts.items():
+        if part.kind != "transformer":
+            continue
+        own = {index[name], index[name + SECONDARY]}
+        for field_name in ("primary", "secondary"):
+            for node in getattr(part, field_name):
+                k = node_index[node]
+                others = [
+                    b.name for i, b in enumerate(branches) if i not in own and k in (b.p, b.n)
+                ]
+                if not others and node != spec.ground:
+                    raise TopologyError(
+                        "unknown_node",
+                        f"transformer {name}: no other part connects to {field_name} node {node!r}",
+                        location=("parts", name, field_name),
+                    )
 
 
 _SOURCES = ("voltage_source", "current_source")

@@ -99,8 +99,8 @@ def test_changing_inputs_with_feedthrough_match_wirestate_on_the_system(exported
     system, _ = load_model(MODELS / SYSTEM)
     step, steps = 5e-6, 4000
     waves = {
-        "Vbat": "ramp:44V@10ms,from=48V,start=2ms",
-        "speed_ref": "step:120rad/s@1ms",
+        "Vbat": "ramp:44V,end=10ms,from=48V,start=2ms",
+        "speed_ref": "step:120rad/s,at=1ms",
         "load_torque": "step:0.05,at=12ms",
     }
     ours = simulate(system, steps * step, step, waves)

@@ -161,7 +161,7 @@ def test_zero_state_block_simulates_with_either_hold(hold):
 
     block = _compile(DIVIDER, {"v": {"voltage": "b"}})
     assert block.n_states == 0
-    result = simulate(block, 1e-3, 1e-4, {"V1": "ramp:10V@1ms"}, hold=hold)
+    result = simulate(block, 1e-3, 1e-4, {"V1": "ramp:10V,end=1ms"}, hold=hold)
     # divider ratio R2 / (R1 + R2) = 0.75 at every sample (closed form)
     np.testing.assert_allclose(result.output("v"), 0.75 * result.inputs[0], rtol=1e-12)
 

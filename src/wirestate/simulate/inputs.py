@@ -5,29 +5,7 @@ the main value first, then ``key=value`` options in any order. Values carry the 
 input they drive (``V`` for a voltage source, ``A`` for a current source, ``rad/s`` for a
 speed input, ``N*m`` for a torque); times carry ``s`` with an SI prefix.
 
-=============================================  =======================================
-text                                           waveform
-=============================================  =======================================
-``48V``  or ``const:48V``                      constant 48 V for all t
-``step:48V``                                   0 before t = 0, 48 V from t = 0 on
-``step:48V,at=2ms,from=12V``                   12 V before 2 ms, 48 V from 2 ms on
-``ramp:48V,end=5ms``                           0 at t = 0 rising linearly to 48 V at
-                                               5 ms, then held
-``ramp:48V,from=12V,start=1ms,end=5ms``        12 V until 1 ms, linear to 48 V at 5 ms
-``sinusoid:10V,50Hz``                          10 V sin(2 pi 50 Hz t)
-``sinusoid:10V,50Hz,mean=48V,phase=90deg``     48 V + 10 V sin(2 pi 50 Hz t + 90 deg);
-                                               ``start=T`` delays the start (value
-                                               ``mean`` before it)
-``points:0s=0V,1ms=48V,5ms=24V``               piecewise linear through TIME=VALUE
-                                               points, the first value before the first
-                                               time, the last one after
-``csv:drive.csv``                              piecewise linear through a CSV file with
-                                               a ``time`` column and a column named
-                                               after the input (or exactly one other
-                                               column); ``csv:FILE,column=NAME`` picks a
-                                               column. Values in SI units.
-=============================================  =======================================
-
+=============================================  ================================
 Each kind is one entry of :data:`WAVEFORM_KINDS` (a function from the parsed arguments to
 a :class:`Waveform`), so a new waveform is one more function and one more entry. Each
 waveform evaluates on a numpy time grid (:meth:`Waveform.values`) and, for the CasADi
@@ -244,6 +222,10 @@ def parse_waveform(
             )
         if kind == "csv":
             return _csv(rest, name, base)
+        if kind == "pwm":  # gate waveform with closed-form edges (its own parser)
+            from wirestate.simulate.pwm import parse_pwm
+
+            return parse_pwm(rest)
         positional, options = _arguments(rest)
         return WAVEFORM_KINDS[kind](_Arguments(kind, positional, options, unit_key))
     except WirestateError as exc:
@@ -337,6 +319,7 @@ WAVEFORM_KINDS = {
     "sinusoid": _sinusoid,
     "points": _points,
     "csv": None,
+    "pwm": None,
 }
 
 

@@ -39,6 +39,9 @@ class SimulationResult:
     state_offset
         ``(n_states, n_inputs)`` or None; a circuit's ``<name>_shifted`` state plus
         ``state_offset @ u`` is the physical quantity (see :meth:`physical_states`).
+    events
+        Switching events of a switched circuit, ``(time, part, "off -> on")`` in time
+        order (empty otherwise).
     """
 
     name: str
@@ -52,6 +55,7 @@ class SimulationResult:
     units: dict[str, str] = field(default_factory=dict)
     method: str = ""
     state_offset: np.ndarray | None = None
+    events: list = field(default_factory=list)
 
     def physical_states(self) -> tuple[list[str], np.ndarray]:
         """Capacitor voltages and inductor currents: every state plus ``state_offset @ u``,

@@ -20,7 +20,7 @@ from pydantic import (
     model_validator,
 )
 
-from wirestate.errors import ModelFileError
+from wirestate.errors import ModelFileError, QuantityError
 from wirestate.units import parse_quantity, parse_tolerance
 
 NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -181,6 +181,60 @@ class Electromechanical(_TwoTerminal):
         return data
 
 
+# -- switched parts (issue 12) ------------------------------------------------------------------
+#: default resistances of the resistive on/off models (stated in the README)
+SWITCH_ON_RESISTANCE = 10e-3
+SWITCH_OFF_RESISTANCE = 10e6
+
+
+class _Switching(_TwoTerminal):
+    on_resistance: Ohms = Field(default=SWITCH_ON_RESISTANCE, gt=0)
+    off_resistance: Ohms = Field(default=SWITCH_OFF_RESISTANCE, gt=0)
+
+    @model_validator(mode="after")
+    def _off_above_on(self):
+        if not self.off_resistance > self.on_resistance:
+            raise QuantityError(
+                "switch_resistance",
+                f"off_resistance ({self.off_resistance:g} ohm) must be larger than "
+                f"on_resistance ({self.on_resistance:g} ohm)",
+            )
+        return self
+
+
+class Switch(_Switching):
+    """A resistive piecewise-linear switch: ``on_resistance`` while its gate input exceeds
+    0.5, ``off_resistance`` otherwise. The gate is a block input (default: the part name)."""
+
+    kind: Literal["switch"]
+    gate: str | None = Field(default=None, description="block input that drives it")
+
+    @field_validator("gate")
+    @classmethod
+    def _gate_name(cls, value: str | None) -> str | None:
+        return None if value is None else _check_name(value, "gate name")
+
+
+class Diode(_Switching):
+    """A resistive piecewise-linear diode, ``nodes = [anode, cathode]``: ``off_resistance``
+    below ``forward_voltage``, and above it a line of slope ``1/on_resistance`` that meets
+    the off line at ``forward_voltage`` (so the curve is continuous)."""
+
+    kind: Literal["diode"]
+    forward_voltage: Volts = Field(default=0.0, ge=0)
+
+
+class Transformer(_Strict):
+    """Ideal transformer: ``v2 = v1 / ratio``, ``i1 = -i2 / ratio`` (dots at the first node
+    of each winding; each winding current flows nodes[0] -> nodes[1] through it)."""
+
+    kind: Literal["transformer"]
+    primary: tuple[NodeName, NodeName]
+    secondary: tuple[NodeName, NodeName]
+    ratio: Dimensionless = Field(gt=0, description="turns ratio N1 / N2")
+    description: str | None = None
+
+
 Part = Annotated[
     Resistor
     | Inductor
@@ -192,7 +246,10 @@ Part = Annotated[
     | CCVS
     | CCCS
     | Coupling
-    | Electromechanical,
+    | Electromechanical
+    | Switch
+    | Diode
+    | Transformer,
     Field(discriminator="kind"),
 ]
 
@@ -208,7 +265,13 @@ PART_KINDS: tuple[str, ...] = (
     "cccs",
     "coupling",
     "electromechanical",
+    "switch",
+    "diode",
+    "transformer",
 )
+
+#: kinds whose resistance depends on the mode (on/off) of a switched circuit
+SWITCHING_KINDS: tuple[str, ...] = ("switch", "diode")
 
 
 #: the field holding each kind's primary value: the one tuning and ``with_values`` replace
@@ -222,6 +285,7 @@ PRIMARY_FIELD: dict[str, str] = {
     "cccs": "gain",
     "coupling": "coefficient",
     "electromechanical": "constant",
+    "transformer": "ratio",
 }
 
 

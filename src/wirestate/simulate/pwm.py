@@ -1,0 +1,155 @@
+"""Pulse-width-modulated gate waveforms with edges known in closed form.
+
+Text form (``simulate --input`` and scenarios), values 1 (on) and 0 (off)::
+
+    pwm:100kHz,duty=0.42                      high-side gate, sawtooth carrier
+    pwm:100kHz,duty=42%,side=low,dead=40ns    the other switch of the leg, 40 ns dead time
+    pwm:100kHz,duty=0.42,carrier=triangle,phase=90
+
+* ``duty``: on-time fraction of the high-side gate (0..1, or a percentage).
+* ``carrier``: ``sawtooth`` (default; the high side turns on at each period start, trailing
+  edge modulated) or ``triangle`` (symmetric; the high-side pulse is centred in the
+  period, both edges modulated).
+* ``side``: ``high`` (default) or ``low``, the complement of the high side.
+* ``dead``: dead time; every turn-on edge of this gate is delayed by it, so a high and a
+  low gate of one leg with the same ``dead`` are never on together.
+* ``phase``: carrier delay in degrees of a period.
+
+Regular-sampled PWM as in digital converter controllers (Holmes and Lipo, Pulse Width
+Modulation for Power Converters, 2003, ch. 1): the duty is constant here; the modulator
+block of a system file latches a new duty at every carrier period start.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from wirestate.simulate.inputs import Waveform
+from wirestate.units import parse_quantity
+
+CARRIERS = ("sawtooth", "triangle")
+SIDES = ("high", "low")
+
+
+@dataclass(frozen=True)
+class PulseWidth(Waveform):
+    """A PWM gate: 1 while on, 0 while off (see the module docstring)."""
+
+    frequency: float
+    duty: float
+    dead: float = 0.0
+    phase: float = 0.0  # fraction of a period
+    side: str = "high"
+    carrier: str = "sawtooth"
+
+    @property
+    def period(self) -> float:
+        return 1.0 / self.frequency
+
+    def local_intervals(self) -> list[tuple[float, float]]:
+        """On intervals relative to a carrier period start, over this and the next period."""
+        T, D = self.period, self.duty
+        if self.carrier == "sawtooth":
+            a, b = 0.0, D * T
+        else:
+            a, b = (1.0 - D) * T / 2.0, (1.0 + D) * T / 2.0
+        if self.side == "high":
+            start, end = a, b
+        else:
+            start, end = b, a + T
+        start += self.dead
+        return [(start, end)] if end - start > 0.0 else []
+
+    def intervals(self, t0: float, t1: float) -> list[tuple[float, float]]:
+        """Merged on intervals (s) overlapping ``[t0, t1]``."""
+        T = self.period
+        offset = self.phase * T
+        first = math.floor((t0 - offset) / T) - 1
+        last = math.floor((t1 - offset) / T) + 1
+        out: list[list[float]] = []
+        for k in range(first, last + 1):
+            base = offset + k * T
+            for s, e in self.local_intervals():
+                s, e = base + s, base + e
+                if e < t0 or s > t1:
+                    continue
+                if out and s <= out[-1][1]:
+                    out[-1][1] = max(out[-1][1], e)
+                else:
+                    out.append([s, e])
+        return [(s, e) for s, e in out]
+
+    def edges(self, t0: float, t1: float) -> list[float]:
+        """Times in ``(t0, t1]`` where the gate switches, exact (closed form)."""
+        times = [x for s, e in self.intervals(t0, t1) for x in (s, e)]
+        return sorted(x for x in times if t0 < x <= t1)
+
+    def values(self, t: np.ndarray) -> np.ndarray:
+        t = np.asarray(t, dtype=float)
+        T = self.period
+        shifted = t - self.phase * T
+        k = np.floor(shifted / T)
+        local = shifted - k * T
+        on = np.zeros(np.shape(t), dtype=bool)
+        for s, e in self.local_intervals():
+            for back in (0.0, T):  # this period's interval, or the previous one running over
+                on |= (local + back >= s) & (local + back < e)
+        return on.astype(float)
+
+    def expression(self, t):
+        import casadi as ca
+
+        T = self.period
+        shifted = t - self.phase * T
+        local = shifted - ca.floor(shifted / T) * T
+        on = 0
+        for s, e in self.local_intervals():
+            for back in (0.0, T):
+                on = ca.fmax(on, ca.logic_and(local + back >= s, local + back < e))
+        return on
+
+    @property
+    def breakpoints(self) -> tuple[float, ...]:
+        return ()
+
+
+def parse_pwm(rest: str) -> PulseWidth:
+    """Read the arguments of ``pwm:...`` (after the colon); ``ValueError`` on a mistake."""
+    items = [item.strip() for item in rest.split(",")]
+    if not items or not items[0] or "=" in items[0]:
+        raise ValueError("pwm needs the carrier frequency first, e.g. pwm:100kHz,duty=0.42")
+    frequency = parse_quantity(items[0], "Hz", field="")
+    if not frequency > 0:
+        raise ValueError(f"the pwm frequency must be positive, got {items[0]!r}")
+    options: dict[str, str] = {}
+    for item in items[1:]:
+        key, sep, value = item.partition("=")
+        if not sep:
+            raise ValueError(f"expected KEY=VALUE after the frequency, got {item!r}")
+        options[key.strip().lower()] = value.strip()
+    allowed = {"duty", "dead", "phase", "side", "carrier"}
+    unknown = sorted(set(options) - allowed)
+    if unknown:
+        raise ValueError(
+            f"pwm has no option {unknown[0]!r} (options: {', '.join(sorted(allowed))})"
+        )
+    if "duty" not in options:
+        raise ValueError("pwm needs duty=..., e.g. duty=0.42 or duty=42%")
+    text = options["duty"]
+    duty = float(text[:-1]) / 100.0 if text.endswith("%") else float(text)
+    if not 0.0 <= duty <= 1.0:
+        raise ValueError(f"duty must lie in 0..1 (or 0..100 %), got {text!r}")
+    dead = parse_quantity(options.get("dead", "0"), "s", field="")
+    if not 0.0 <= dead < 1.0 / frequency:
+        raise ValueError(f"dead time must lie in [0, one period), got {options.get('dead')!r}")
+    side = options.get("side", "high").lower()
+    carrier = options.get("carrier", "sawtooth").lower()
+    if side not in SIDES:
+        raise ValueError(f"side must be one of {', '.join(SIDES)}, got {side!r}")
+    if carrier not in CARRIERS:
+        raise ValueError(f"carrier must be one of {', '.join(CARRIERS)}, got {carrier!r}")
+    phase = float(options.get("phase", "0")) / 360.0
+    return PulseWidth(frequency, duty, dead, phase % 1.0, side, carrier)
