@@ -29,7 +29,10 @@ WORD = re.compile(r"[a-z]+")
 
 def _files():
     for path in ROOT.rglob("*"):
-        if any(part in SKIP_DIRS or part.endswith(".egg-info") for part in path.parts):
+        if any(
+            part in SKIP_DIRS or part.endswith(".egg-info") or part.startswith(".")
+            for part in path.relative_to(ROOT).parts
+        ):
             continue
         if path.is_file() and path.suffix in SUFFIXES and path.stat().st_size < 2_000_000:
             yield path

@@ -103,4 +103,4 @@ def test_the_old_time_marker_gets_a_hint():
 def test_each_waveform_kind_is_one_table_entry():
     from wirestate.simulate.inputs import WAVEFORM_KINDS
 
-    assert set(WAVEFORM_KINDS) == {"const", "step", "ramp", "sinusoid", "points", "csv"}
+    assert set(WAVEFORM_KINDS) == {"const", "step", "ramp", "sinusoid", "points", "csv", "pwm"}
