@@ -58,9 +58,9 @@ SPEC = {
         "Cf": {"min": "47uF", "max": "470uF", "start": "100uF"},
         "Lf": {"min": "10uH", "max": "47uH", "start": "22uH"},
     },
-    "controller": {"measure": "i_motor", "drive": "Vm", "proportional": 0.63, "integral": 157.0},
+    "controller": {"measurement": "i_motor", "command": "Vm", "kp": 0.63, "ki": 157.0},
     "scenario": {
-        "horizon": "8ms",
+        "until": "8ms",
         "step": "10us",
         "steps": [{"input": "reference", "at": "1ms", "to": "40A"}],
     },
@@ -70,7 +70,7 @@ SPEC = {
             "kind": "overshoot",
             "output": "v_bus",
             "after": "1ms",
-            "relative_to": "final",
+            "percent_of": "final",
             "max": "3%",
         },
         {"name": "bus_minimum", "kind": "minimum", "output": "v_bus", "min": "45.5V"},
@@ -79,12 +79,17 @@ SPEC = {
             "kind": "settling",
             "output": "v_bus",
             "band": "0.5%",
-            "by": "5ms",
-            "relative_to": "final",
+            "settled_by": "5ms",
+            "percent_of": "final",
         },
         {"name": "damping_current", "kind": "peak_current", "part": "Rd", "max": "4A"},
     ],
-    "objective": {"capacitance": 1.0, "parts": ["Cd", "Cf"], "ise": 0.3, "output": "v_bus"},
+    "objective": {
+        "capacitance": 1.0,
+        "parts": ["Cd", "Cf"],
+        "squared_error": 0.3,
+        "output": "v_bus",
+    },
 }
 
 

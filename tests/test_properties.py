@@ -53,7 +53,7 @@ def parts(draw):
                 part["control"] = draw(st.sampled_from([*names, "nope"]))
                 part["gain"] = draw(values)
             elif kind == "electromechanical":
-                part["constant"] = draw(values)
+                part["emf_constant"] = draw(values)
             elif kind not in ("voltage_source", "current_source"):
                 part["value"] = draw(values)
         out[name] = part

@@ -74,7 +74,7 @@ def _rc_files(tmp_path: Path, c_max: str) -> Path:
             min = "0.1uF"
             max = "{c_max}"
             [scenario]
-            horizon = "2ms"
+            until = "2ms"
             step = "10us"
             initial = "zero"
             [[limits]]

@@ -45,7 +45,7 @@ RC_TUNING = """
     min = "0.1uF"
     max = "10uF"
     [scenario]
-    horizon = "2ms"
+    until = "2ms"
     step = "10us"
     initial = "zero"
     [[limits]]

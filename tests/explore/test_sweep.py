@@ -35,7 +35,7 @@ min = "0.1uF"
 max = "10uF"
 start = "3uF"
 [scenario]
-horizon = "2ms"
+until = "2ms"
 step = "10us"
 initial = "zero"
 [[limits]]

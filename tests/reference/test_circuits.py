@@ -208,7 +208,11 @@ def test_dc_motor_armature_coupling():
             "Va": {"kind": "voltage_source", "nodes": ["p", "gnd"]},
             "Ra": {"kind": "resistor", "nodes": ["p", "a"], "value": R},
             "La": {"kind": "inductor", "nodes": ["a", "b"], "value": L},
-            "M1": {"kind": "electromechanical", "nodes": ["b", "gnd"], "constant": f"{k} N*m/A"},
+            "M1": {
+                "kind": "electromechanical",
+                "nodes": ["b", "gnd"],
+                "emf_constant": f"{k} N*m/A",
+            },
         },
         {"i_a": {"current": "La"}},
     )

@@ -36,15 +36,15 @@ def test_non_finite_numbers_are_refused_where_they_are():
     data = {
         "tuning": {"name": "t", "circuit": "c.toml"},
         "variables": {"Rd": {"min": "1ohm", "max": "2ohm"}},
-        "controller": {"measure": "i", "drive": "V", "proportional": float("nan")},
-        "scenario": {"horizon": "1ms", "step": "10us"},
+        "controller": {"measurement": "i", "command": "V", "kp": float("nan")},
+        "scenario": {"until": "1ms", "step": "10us"},
         "limits": [{"kind": "maximum", "output": "v", "max": 1.0}],
         "objective": {"capacitance": 1.0, "parts": ["Cd"]},
     }
     with pytest.raises(WirestateError) as err:
         parse_tuning(data)
     assert err.value.code == "non_finite_value"
-    assert err.value.location == ("controller", "proportional")
+    assert err.value.location == ("controller", "kp")
 
 
 def _gain_chain(n: int, loop: bool = False):

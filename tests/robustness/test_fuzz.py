@@ -59,7 +59,7 @@ def circuit_files(draw):
                 part["control"] = draw(st.sampled_from([*names, "nope"]))
                 part["gain"] = draw(st.one_of(numbers, texts))
             elif kind == "electromechanical":
-                part["constant"] = draw(st.one_of(numbers, texts))
+                part["emf_constant"] = draw(st.one_of(numbers, texts))
             elif kind not in ("voltage_source", "current_source"):
                 part["value"] = draw(st.one_of(st.floats(1e-9, 1e6), numbers, texts))
             for rating in ("rated_voltage", "rated_power", "initial"):
@@ -155,7 +155,7 @@ def tuning_files(draw):
         "tuning": {"name": "t", "circuit": "c.toml"},
         "variables": {draw(st.sampled_from(["R1", "C1", "V1"])): {
             "min": draw(st.one_of(numbers, texts)), "max": draw(st.one_of(numbers, texts))}},
-        "scenario": {"horizon": draw(st.sampled_from(["1ms", "2.005ms", "0", "nan", 1e-3])),
+        "scenario": {"until": draw(st.sampled_from(["1ms", "2.005ms", "0", "nan", 1e-3])),
                      "step": draw(st.sampled_from(["10us", "1ms", "-1us", 1e-5])),
                      "steps": [{"input": "V1", "at": draw(st.one_of(numbers, texts)),
                                 "to": draw(st.one_of(numbers, texts))}]},

@@ -49,7 +49,7 @@ RC_TUNING = """
     min = "0.1uF"
     max = "{c_max}"
     [scenario]
-    horizon = "2ms"
+    until = "2ms"
     step = "10us"
     initial = "zero"
     [[limits]]

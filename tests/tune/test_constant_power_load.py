@@ -103,12 +103,12 @@ TUNING = """
     max = "4.7mF"
     start = "1mF"
     [controller]
-    measure = "i_motor"
-    drive = "Vm"
-    proportional = 0.63
-    integral = 157.0
+    measurement = "i_motor"
+    command = "Vm"
+    kp = 0.63
+    ki = 157.0
     [scenario]
-    horizon = "6ms"
+    until = "6ms"
     step = "10us"
     [[scenario.steps]]
     input = "reference"
@@ -119,7 +119,7 @@ TUNING = """
     kind = "overshoot"
     output = "v_bus"
     after = "1ms"
-    relative_to = "final"
+    percent_of = "final"
     max = "2%"
     [[limits]]
     name = "stability_margin"
@@ -203,7 +203,7 @@ def test_sampled_current_controller_matches_an_independent_discrete_loop(write):
 
     circuit = MODELS / "drive_bus.toml"
     text = TUNING.format(circuit=circuit.as_posix()).replace(
-        "integral = 157.0", 'integral = 157.0\n    sample_time = "20us"'
+        "ki = 157.0", 'ki = 157.0\n    sample_time = "20us"'
     )
     result = solve(load_tuning(write("sampled.toml", text)))
     assert result.feasible

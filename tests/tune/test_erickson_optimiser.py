@@ -55,7 +55,7 @@ TUNING = """
     min = "0.05ohm"
     max = "20ohm"
     [scenario]
-    horizon = "0.5ms"
+    until = "0.5ms"
     step = "50us"
     [[limits]]
     name = "output_impedance"

@@ -110,7 +110,7 @@ RLC_TUNING = """
     max = "100ohm"
     start = "30ohm"
     [scenario]
-    horizon = "3ms"
+    until = "3ms"
     step = "5us"
     initial = "zero"
     [[limits]]
@@ -118,7 +118,7 @@ RLC_TUNING = """
     kind = "damping_ratio"
     min = 0.7
     [objective]
-    ise = 1.0
+    squared_error = 1.0
     output = "v_out"
 """
 

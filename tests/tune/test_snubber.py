@@ -53,11 +53,11 @@ TUNING = """
     min = "1ohm"
     max = "1kohm"
     [scenario]
-    horizon = "300ns"
+    until = "300ns"
     step = "0.5ns"
     initial = "zero"
     [objective]
-    ise = 1.0
+    squared_error = 1.0
     output = "v_d"
 """
 

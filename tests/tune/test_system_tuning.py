@@ -78,7 +78,7 @@ TUNING = """
     start = "1mF"
     {controller}
     [scenario]
-    horizon = "6ms"
+    until = "6ms"
     step = "{step}"
     initial = "{initial}"
     {inputs}
@@ -91,7 +91,7 @@ TUNING = """
     kind = "overshoot"
     output = "v_bus"
     after = "1.02ms"
-    relative_to = "final"
+    percent_of = "final"
     max = "3%"
     [[limits]]
     name = "damping_current"
@@ -166,8 +166,8 @@ def _controller_case(write, *, step="10us", sample_time=None):
         TUNING.format(
             model=f'circuit = "{BUS}"',
             controller=(
-                '[controller]\nmeasure = "i_motor"\ndrive = "Vm"\nproportional = 0.63\n'
-                f'integral = 157.0\nreference = "30A"\n{sampling}'
+                '[controller]\nmeasurement = "i_motor"\ncommand = "Vm"\nkp = 0.63\n'
+                f'ki = 157.0\nreference = "30A"\n{sampling}'
             ),
             step=step,
             initial="steady_state",
@@ -397,8 +397,8 @@ def test_a_controller_table_beside_a_system_is_refused(write):
     text = TUNING.format(
         model='system = "bus_loop.toml"\nblock = "bus"',
         controller=(
-            '[controller]\nmeasure = "i_motor"\ndrive = "Vm"\nproportional = 1.0\n'
-            "integral = 1.0"
+            '[controller]\nmeasurement = "i_motor"\ncommand = "Vm"\nkp = 1.0\n'
+            "ki = 1.0"
         ),
         step="10us", initial="steady_state", inputs="", reference="current_ref",
     )  # fmt: skip

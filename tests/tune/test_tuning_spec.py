@@ -42,7 +42,7 @@ circuit = "rc.toml"
 min = "0.1uF"
 max = "10uF"
 [scenario]
-horizon = "2ms"
+until = "2ms"
 step = "10us"
 [objective]
 capacitance = 1.0
@@ -59,7 +59,7 @@ parts = ["C1"]
         (('min = "0.1uF"', 'min = "0.1uH"'), "wrong_unit", "variables.C1.min"),
         (('step = "10us"', 'step = "3ms"'), "invalid_field", "scenario"),
         (("[objective]", "[objective]\nwrong = 1"), "unknown_field", "objective.wrong"),
-        (('horizon = "2ms"\n', ""), "missing_field", "scenario.horizon"),
+        (('until = "2ms"\n', ""), "missing_field", "scenario.until"),
         (('circuit = "rc.toml"', 'circuit = "absent.toml"'), "file_not_found", "tuning.circuit"),
         (
             (
@@ -85,6 +85,35 @@ parts = ["C1"]
         ),
         (
             ("[objective]", '[[limits]]\nkind = "settling"\noutput = "v_out"\n[objective]'),
+            "invalid_field",
+            "limits.0",
+        ),
+        # units checked against what the value names (issue 9, item 2)
+        (
+            (
+                "[objective]",
+                '[[limits]]\nkind = "maximum"\noutput = "v_out"\nmax = "22A"\n[objective]',
+            ),
+            "wrong_unit",
+            "limits.maximum_v_out.max",
+        ),
+        (
+            ("[objective]", '[[limits]]\nkind = "energy"\npart = "R1"\nmax = "2mW"\n[objective]'),
+            "wrong_unit",
+            "limits.energy_R1.max",
+        ),
+        (
+            ("[objective]", '[scenario.inputs]\nVs = "24A"\n[objective]'),
+            "wrong_unit",
+            "scenario.inputs.Vs",
+        ),
+        # a field that does not apply to the kind is refused (issue 9, item 12)
+        (
+            (
+                "[objective]",
+                '[[limits]]\nkind = "minimum"\noutput = "v_out"\nmin = "0V"\nafter = "1ms"\n'
+                "[objective]",
+            ),
             "invalid_field",
             "limits.0",
         ),
@@ -118,17 +147,20 @@ _VALUES = st.one_of(
 )
 _LIMIT = st.fixed_dictionaries(
     {"kind": st.sampled_from([*LIMIT_KINDS, "nonsense"])},
-    optional={k: _VALUES for k in ("output", "max", "min", "band", "by", "window", "after")},
+    optional={
+        k: _VALUES for k in ("output", "max", "min", "band", "settled_by", "window", "after")
+    },
 )
 
 
 @settings(max_examples=150, deadline=None)
 @given(
     variable=st.dictionaries(st.sampled_from(["min", "max", "start", "extra"]), _VALUES),
-    scenario=st.dictionaries(st.sampled_from(["horizon", "step", "initial", "steps"]), _VALUES),
+    scenario=st.dictionaries(st.sampled_from(["until", "step", "initial", "steps"]), _VALUES),
     limits=st.lists(_LIMIT, max_size=3),
     objective=st.dictionaries(
-        st.sampled_from(["capacitance", "ise", "output", "parts", "peak_impedance"]), _VALUES
+        st.sampled_from(["capacitance", "squared_error", "output", "parts", "peak_impedance"]),
+        _VALUES,
     ),
 )
 def test_random_tuning_files_validate_or_raise_our_error(variable, scenario, limits, objective):
@@ -161,3 +193,16 @@ def test_the_documented_example_is_a_valid_tuning_file():
         "energy_Rd",
         "output_impedance_v_bus",
     ]
+
+
+def test_a_field_that_does_not_apply_names_the_fields_that_do(rc_case):
+    path = rc_case()
+    text = BASE.replace(
+        "[objective]",
+        '[[limits]]\nkind = "minimum"\noutput = "v_out"\nmin = "0V"\nafter = "1ms"\n[objective]',
+    )
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(WirestateError) as info:
+        load_tuning(path)
+    assert "'after' does not apply to a 'minimum' limit" in info.value.message
+    assert "output, min, window" in info.value.message

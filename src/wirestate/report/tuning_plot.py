@@ -31,8 +31,8 @@ def _envelopes(limit: dict[str, Any], final: float, t_end: float) -> list[tuple]
         return [(lo, hi, limit["min"], None)]
     if kind in ("overshoot", "settling"):
         width = limit["max"] if kind == "overshoot" else limit["band"]
-        start = limit["after"] if kind == "overshoot" else limit["by"]
-        if limit["relative_to"] == "final" or kind == "settling":
+        start = limit["after"] if kind == "overshoot" else limit["settled_by"]
+        if limit["percent_of"] == "final" or kind == "settling":
             delta = abs(final) * width
             return [(start, t_end, final - delta, final + delta)]
         return [(start, t_end, None, final + width * abs(final))]

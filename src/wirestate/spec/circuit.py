@@ -16,11 +16,13 @@ from pydantic import (
     BeforeValidator,
     ConfigDict,
     Field,
+    WithJsonSchema,
     field_validator,
     model_validator,
 )
 
 from wirestate.errors import ModelFileError, QuantityError
+from wirestate.spec.load import QuantityInput
 from wirestate.units import parse_quantity, parse_tolerance
 
 NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -32,7 +34,7 @@ def _quantity(unit: str):
             return None
         return parse_quantity(value, unit, field="")
 
-    return BeforeValidator(read)
+    return BeforeValidator(read, json_schema_input_type=QuantityInput)
 
 
 def _check_name(value: str, what: str) -> str:
@@ -53,7 +55,10 @@ Watts = Annotated[float, _quantity("W")]
 Siemens = Annotated[float, _quantity("S")]
 Dimensionless = Annotated[float, _quantity("1")]
 TransOhms = Annotated[float, _quantity("ohm_gain")]
-Tolerance = Annotated[float, BeforeValidator(lambda v: parse_tolerance(v, field=""))]
+Tolerance = Annotated[
+    float,
+    BeforeValidator(lambda v: parse_tolerance(v, field=""), json_schema_input_type=QuantityInput),
+]
 NodeName = Annotated[str, BeforeValidator(lambda v: _check_name(v, "node name"))]
 
 
@@ -118,9 +123,10 @@ def _control_nodes(value: Any) -> Any:
 
 
 class _VoltageControlled(_TwoTerminal):
-    control: Annotated[tuple[NodeName, NodeName | None], BeforeValidator(_control_nodes)] = Field(
-        description="[node_plus, node_minus] or a single node (measured to ground)"
-    )
+    control: Annotated[
+        tuple[NodeName, NodeName | None],
+        BeforeValidator(_control_nodes, json_schema_input_type=str | list[str]),
+    ] = Field(description="[node_plus, node_minus] or a single node (measured to ground)")
 
 
 class _CurrentControlled(_TwoTerminal):
@@ -167,17 +173,24 @@ class Electromechanical(_TwoTerminal):
 
     kind: Literal["electromechanical"]
     motion: Literal["rotary", "linear"] = "rotary"
-    constant: float = Field(gt=0, description="k in V*s/rad (= N*m/A) or V*s/m (= N/A)")
+    # read by _read_constant (the unit depends on 'motion'): a number or a string with unit
+    emf_constant: Annotated[
+        float, WithJsonSchema({"anyOf": [{"type": "number"}, {"type": "string"}]})
+    ] = Field(
+        gt=0,
+        description="back-EMF constant k, equal to the torque (force) constant: V*s/rad "
+        "(= N*m/A) for rotary motion, V*s/m (= N/A) for linear motion",
+    )
     speed_input: str | None = None
     torque_output: str | None = None
 
     @model_validator(mode="before")
     @classmethod
     def _read_constant(cls, data: Any) -> Any:
-        if isinstance(data, dict) and "constant" in data:
+        if isinstance(data, dict) and "emf_constant" in data:
             unit = "V*s/m" if data.get("motion") == "linear" else "V*s/rad"
             data = dict(data)
-            data["constant"] = parse_quantity(data["constant"], unit, field="")
+            data["emf_constant"] = parse_quantity(data["emf_constant"], unit, field="")
         return data
 
 
@@ -284,7 +297,7 @@ PRIMARY_FIELD: dict[str, str] = {
     "ccvs": "gain",
     "cccs": "gain",
     "coupling": "coefficient",
-    "electromechanical": "constant",
+    "electromechanical": "emf_constant",
     "transformer": "ratio",
 }
 
@@ -359,7 +372,11 @@ class Output(_Strict):
     """A named output: a voltage between two nodes, or the current through a part."""
 
     voltage: (
-        Annotated[tuple[NodeName, NodeName | None], BeforeValidator(_voltage_output)] | None
+        Annotated[
+            tuple[NodeName, NodeName | None],
+            BeforeValidator(_voltage_output, json_schema_input_type=str | list[str]),
+        ]
+        | None
     ) = Field(default=None, description="[node_plus, node_minus] or a node (to ground)")
     current: str | None = Field(default=None, description="part name, nodes[0] -> nodes[1]")
     unit: str | None = None

@@ -9,13 +9,22 @@ import tomllib
 import types
 import typing
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import Annotated, Any, TypeVar
 
-from pydantic import BaseModel, ValidationError
+from pydantic import BaseModel, Field, ValidationError
 
 from wirestate.errors import ModelFileError, WirestateError
 
 Model = TypeVar("Model", bound=BaseModel)
+
+#: what a quantity field accepts, for the JSON Schema: a number in SI base units or a string
+#: such as "100uH", "4.7 kohm", "4k7", "10%" (the field's validator reads the unit)
+QuantityInput = (
+    float
+    | Annotated[
+        str, Field(pattern=r"^\s*[-+]?(\d|\.\d|[A-Za-zµμ]\d)", examples=["100uH", "4k7", "48V"])
+    ]
+)
 
 _CODES = {
     "missing": "missing_field",

@@ -50,7 +50,7 @@ from typing import Annotated, Any, Literal
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator
 
 from wirestate.errors import WirestateError
-from wirestate.spec.load import read_toml, validate
+from wirestate.spec.load import QuantityInput, read_toml, validate
 from wirestate.units import UNITS, parse_quantity
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -58,7 +58,10 @@ _SIGNAL = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*\.[A-Za-z_][A-Za-z0-9_]*$")
 
 
 def _q(unit: str):
-    return BeforeValidator(lambda v: None if v is None else parse_quantity(v, unit, field=""))
+    return BeforeValidator(
+        lambda v: None if v is None else parse_quantity(v, unit, field=""),
+        json_schema_input_type=QuantityInput,
+    )
 
 
 def _name(value: str, what: str) -> str:

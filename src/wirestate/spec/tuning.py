@@ -21,16 +21,16 @@ limits, the objective and the stress conditions. Every quantity is read into SI 
     min = "47uF"
     max = "4.7mF"
 
-    [controller]                # optional PI loop around the circuit
-    measure = "i_motor"         # a circuit output
-    drive = "Vm"                # a circuit input
-    proportional = 0.63         # drive units per measured unit
-    integral = 157.0            # per second
+    [controller]                # optional PI loop around the circuit (names as the
+    measurement = "i_motor"     # system file's pi block): a circuit output
+    command = "Vm"              # a circuit input
+    kp = 0.63                   # command units per measured unit
+    ki = 157.0                  # command units per measured unit and second
     # reference = "30A"         # default: the measured output at the operating point
     # sample_time = "20us"      # a sampled PI held by a zero-order hold
 
     [scenario]
-    horizon = "8ms"
+    until = "8ms"               # as `wirestate simulate --until`
     step = "10us"
     initial = "steady_state"    # or "zero"
     # initial_values = { v_Cf = "42V" }   # states set at t = 0 on top of that
@@ -48,7 +48,7 @@ limits, the objective and the stress conditions. Every quantity is read into SI 
     kind = "overshoot"          # maximum | minimum | overshoot | settling | peak_current |
     output = "v_bus"            # energy | damping_ratio | pole_real_part | output_impedance
     after = "1ms"
-    relative_to = "final"       # or "change" (classic percent overshoot)
+    percent_of = "final"        # or "change" (classic percent overshoot)
     max = "3%"
     [[limits]]
     kind = "energy"
@@ -81,9 +81,11 @@ import re
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, model_validator
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, WrapValidator, model_validator
+from pydantic.json_schema import SkipJsonSchema
 
-from wirestate.spec.load import read_toml, validate
+from wirestate.errors import TuningError
+from wirestate.spec.load import QuantityInput, read_toml, validate
 from wirestate.units import PREFIXES, parse_quantity, parse_tolerance
 
 __all__ = ["TuningSpec", "load_tuning", "parse_tuning", "LIMIT_KINDS"]
@@ -142,14 +144,34 @@ def _any_quantity(value: Any) -> Any:
     raise last
 
 
-Seconds = Annotated[float, BeforeValidator(_seconds)]
-Hertz = Annotated[float, BeforeValidator(_hertz)]
-Fraction = Annotated[float, BeforeValidator(_fraction)]
-Quantity = Annotated[float, BeforeValidator(_any_quantity)]
+class Written(float):
+    """A value read from a file (SI base units) that remembers the unit it was written in.
+
+    ``unit`` is the unit key of :data:`wirestate.units.UNITS` (``None`` for a bare number);
+    :func:`check_units` compares it with the unit of what the value bounds or drives.
+    """
+
+    unit: str | None = None
+
+
+def _written(value: Any, handler: Any) -> Any:
+    out = handler(_any_quantity(value))
+    if out is None:
+        return None
+    written = Written(out)
+    written.unit = unit_of(value)
+    return written
+
+
+Seconds = Annotated[float, BeforeValidator(_seconds, json_schema_input_type=QuantityInput)]
+Hertz = Annotated[float, BeforeValidator(_hertz, json_schema_input_type=QuantityInput)]
+Fraction = Annotated[float, BeforeValidator(_fraction, json_schema_input_type=QuantityInput)]
+Quantity = Annotated[float, WrapValidator(_written, json_schema_input_type=QuantityInput)]
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    # file keys differ from a few attribute names (aliases); reports write the file keys
+    model_config = ConfigDict(extra="forbid", frozen=True, serialize_by_alias=True)
 
 
 class TuningHeader(_Strict):
@@ -188,18 +210,15 @@ class DesignVariable(_Strict):
     min: Quantity = Field(gt=0, description="lower bound, SI units of the part value")
     max: Quantity = Field(gt=0, description="upper bound")
     start: Quantity | None = Field(default=None, gt=0, description="starting value")
-    written_units: dict[str, str] = Field(default_factory=dict, exclude=True)
 
-    @model_validator(mode="before")
-    @classmethod
-    def _remember_units(cls, data: Any) -> Any:
-        # the part kind is known only once the circuit is read; keep the units as written
-        if isinstance(data, dict):
-            data = dict(data)
-            data["written_units"] = {
-                k: u for k in ("min", "max", "start") if (u := unit_of(data.get(k))) is not None
-            }
-        return data
+    @property
+    def written_units(self) -> dict[str, str]:
+        """The units ``min``, ``max``, ``start`` were written in (checked against the part)."""
+        return {
+            k: u
+            for k in ("min", "max", "start")
+            if (u := getattr(getattr(self, k), "unit", None)) is not None
+        }
 
     @model_validator(mode="after")
     def _ordered(self) -> DesignVariable:
@@ -211,17 +230,23 @@ class DesignVariable(_Strict):
 
 
 class Controller(_Strict):
-    """A PI controller: ``drive = offset + kp e + ki int e``, ``e = reference - measure``.
+    """A PI controller: ``command = offset + kp e + ki int e``, ``e = reference - measurement``.
+
+    The file keys are those of the system file's ``pi`` block (``measurement``, ``command``,
+    ``kp``, ``ki``); the attributes keep the names ``measure``, ``drive``, ``proportional``,
+    ``integral``.
 
     With ``sample_time`` the PI is sampled (forward-Euler integral) and its output held
     by a zero-order hold; the scenario step must divide the sample time, and the limits
     are checked at every scenario step, between the samples too.
     """
 
-    measure: str = Field(description="circuit output the controller measures")
-    drive: str = Field(description="circuit input the controller drives")
-    proportional: float = Field(description="kp, drive units per measured unit")
-    integral: float = Field(default=0.0, ge=0, description="ki, per second")
+    measure: str = Field(alias="measurement", description="circuit output the controller measures")
+    drive: str = Field(alias="command", description="circuit input the controller's command drives")
+    proportional: float = Field(alias="kp", description="command units per measured unit")
+    integral: float = Field(
+        default=0.0, ge=0, alias="ki", description="command units per measured unit and second"
+    )
     reference: Quantity | None = Field(
         default=None, description="setpoint; default: the measured output at the operating point"
     )
@@ -235,7 +260,9 @@ class InputStep(_Strict):
 
 
 class Scenario(_Strict):
-    horizon: Seconds = Field(gt=0)
+    horizon: Seconds = Field(
+        gt=0, alias="until", description="end of the scenario, as 'wirestate simulate --until'"
+    )
     step: Seconds = Field(gt=0, description="sample step of the discretised response")
     inputs: dict[str, Quantity] = Field(
         default_factory=dict, description="operating point; default: the sources' values"
@@ -260,19 +287,20 @@ class Scenario(_Strict):
     @model_validator(mode="after")
     def _steps_inside(self) -> Scenario:
         if self.step >= self.horizon:
-            raise ValueError("the sample step must be shorter than the horizon")
+            raise ValueError("the sample step must be shorter than 'until'")
         count = self.horizon / self.step
         # a horizon between two grid points would be rounded silently (issue 10.7); the
         # 1e-9 relative slack only absorbs the rounding of decimal prefixes
         if abs(count - round(count)) > 1e-9 * count:
             raise ValueError(
-                f"the horizon ({self.horizon:g} s) is not a whole number of steps "
-                f"({self.step:g} s; {count:.4f} steps): make it {round(count) * self.step:g} s "
+                f"'until' ({self.horizon:g} s) is not a whole number of steps "
+                f"({self.step:g} s; {count:.4f} steps): make 'until' "
+                f"{round(count) * self.step:g} s "
                 "or choose a step that divides it"
             )
         for s in self.steps:
             if s.at >= self.horizon:
-                raise ValueError(f"step of {s.input!r} at {s.at:g} s lies beyond the horizon")
+                raise ValueError(f"step of {s.input!r} at {s.at:g} s lies beyond 'until'")
         return self
 
 
@@ -295,7 +323,8 @@ class Limit(_Strict):
     * ``maximum`` / ``minimum``: ``output``, ``max`` / ``min``, optional ``window``;
     * ``overshoot``: ``output``, ``max`` (fraction or %) of the step in the final value
       after ``after`` (the overshoot beyond the final value, relative to the change);
-    * ``settling``: ``output``, ``band`` (fraction or %) of the change, reached ``by``;
+    * ``settling``: ``output``, ``band`` (fraction or %) of the change, kept from
+      ``settled_by`` on;
     * ``peak_current``: ``part``, ``max`` (A, absolute value over the horizon);
     * ``energy``: ``part`` (a resistor), ``max`` (J dissipated over the horizon);
     * ``damping_ratio``: ``min`` of every closed-loop pole;
@@ -313,11 +342,16 @@ class Limit(_Strict):
     min: Quantity | None = None
     window: tuple[Seconds, Seconds] | None = None
     after: Seconds = 0.0
-    by: Seconds | None = None
+    by: Seconds | None = Field(
+        default=None,
+        alias="settled_by",
+        description="settling: the output stays in the band from here on",
+    )
     band: tuple[Hertz, Hertz] | Fraction | None = None
     points: int = Field(default=200, ge=10, le=5000, description="frequency grid points")
     relative_to: Literal["change", "final"] = Field(
         default="change",
+        alias="percent_of",
         description="overshoot and settling band relative to the change of the final value "
         "(one-sided overshoot) or to the final value itself (deviation either way)",
     )
@@ -336,7 +370,7 @@ class Limit(_Strict):
             "maximum": ("output", "max"),
             "minimum": ("output", "min"),
             "overshoot": ("output", "max"),
-            "settling": ("output", "band", "by"),
+            "settling": ("output", "band", "settled_by"),
             "peak_current": ("part", "max"),
             "energy": ("part", "max"),
             "damping_ratio": ("min",),
@@ -344,8 +378,9 @@ class Limit(_Strict):
             "output_impedance": ("input", "output", "band", "max"),
         }
         for field in need[self.kind]:
-            if getattr(self, field) is None:
+            if getattr(self, _ATTRIBUTE.get(field, field)) is None:
                 raise ValueError(f"a {self.kind!r} limit needs the field {field!r}")
+        self._refuse_fields_that_do_not_apply()
         if self.kind == "output_impedance" and not isinstance(self.band, tuple):
             raise ValueError("an 'output_impedance' limit takes band = [f_low, f_high] in Hz")
         if self.kind == "settling" and isinstance(self.band, tuple):
@@ -356,6 +391,19 @@ class Limit(_Strict):
             raise ValueError("window must be [t_start, t_end] with t_start < t_end")
         return self
 
+    def _refuse_fields_that_do_not_apply(self) -> None:
+        applies = LIMIT_FIELDS[self.kind]
+        given = [_KEY.get(f, f) for f in self.model_fields_set if f not in ("name", "kind")]
+        extra = sorted(f for f in given if f not in applies)
+        if extra:
+            hint = ""
+            if self.kind in ("peak_current", "energy") and "output" in extra:
+                hint = ' (limits on a part\'s stress name the part: part = "...")'
+            raise ValueError(
+                f"{extra[0]!r} does not apply to a {self.kind!r} limit{hint}; its fields are "
+                f"{', '.join(applies)}"
+            )
+
     @property
     def label(self) -> str:
         if self.name:
@@ -364,19 +412,37 @@ class Limit(_Strict):
         return f"{self.kind}_{target}" if target else self.kind
 
 
+#: the fields (file keys) each limit kind takes, besides ``name`` and ``kind``
+LIMIT_FIELDS: dict[str, tuple[str, ...]] = {
+    "maximum": ("output", "max", "window"),
+    "minimum": ("output", "min", "window"),
+    "overshoot": ("output", "max", "after", "percent_of"),
+    "settling": ("output", "band", "settled_by", "after", "percent_of"),
+    "peak_current": ("part", "max"),
+    "energy": ("part", "max"),
+    "damping_ratio": ("min",),
+    "pole_real_part": ("max",),
+    "output_impedance": ("input", "output", "band", "max", "points"),
+}
+# attribute name -> file key, where they differ
+_KEY = {"by": "settled_by", "relative_to": "percent_of"}
+_ATTRIBUTE = {v: k for k, v in _KEY.items()}
+
+
 class Objective(_Strict):
     """A weighted sum; each term is normalised by its value at the starting point.
 
     * ``capacitance``: weight of the total capacitance of ``parts`` (the damping capacitors);
     * ``resistor_energy``: weight of the energy dissipated in ``parts`` (resistors);
-    * ``ise``: weight of the integral squared error of ``output`` from its final value;
+    * ``squared_error``: weight of the integral of the squared error of ``output`` from
+      its final value (attribute ``ise``);
     * ``peak_impedance``: weight of the peak output impedance over the band of every
       ``output_impedance`` limit (minimised, epigraph form).
     """
 
     capacitance: float = Field(default=0.0, ge=0)
     resistor_energy: float = Field(default=0.0, ge=0)
-    ise: float = Field(default=0.0, ge=0)
+    ise: float = Field(default=0.0, ge=0, alias="squared_error")
     peak_impedance: float = Field(default=0.0, ge=0)
     parts: list[str] = Field(default_factory=list)
     output: str | None = None
@@ -386,12 +452,12 @@ class Objective(_Strict):
         if not any((self.capacitance, self.resistor_energy, self.ise, self.peak_impedance)):
             raise ValueError(
                 "the objective needs a positive weight on capacitance, resistor_energy, "
-                "ise or peak_impedance"
+                "squared_error or peak_impedance"
             )
         if (self.capacitance or self.resistor_energy) and not self.parts:
             raise ValueError("capacitance and resistor_energy terms need the list 'parts'")
         if self.ise and not self.output:
-            raise ValueError("an 'ise' term needs 'output'")
+            raise ValueError("a 'squared_error' term needs 'output'")
         return self
 
 
@@ -447,7 +513,7 @@ class TuningSpec(_Strict):
     objective: Objective
     stress: Stress = Field(default_factory=Stress)
     solver: SolverOptions = Field(default_factory=SolverOptions)
-    base_dir: str = Field(default=".", exclude=True)
+    base_dir: SkipJsonSchema[str] = Field(default=".", exclude=True)
 
     @model_validator(mode="after")
     def _checks(self) -> TuningSpec:
@@ -488,6 +554,11 @@ def parse_tuning(
 ) -> TuningSpec:
     """Validate a tuning file given as a mapping (the parsed TOML)."""
     data = dict(data)
+    if "base_dir" in data:
+        # set from the file's place, never from the file (and not in the schema)
+        raise TuningError(
+            "unknown_field", "unknown field 'base_dir'", file=file, location=("base_dir",)
+        )
     data["base_dir"] = base_dir
     return validate(TuningSpec, data, file=file)
 
@@ -496,3 +567,78 @@ def load_tuning(path: str | Path) -> TuningSpec:
     """Read and validate a tuning file (TOML); the circuit path is taken relative to it."""
     path = Path(path)
     return parse_tuning(read_toml(path), file=str(path), base_dir=str(path.parent))
+
+
+#: the unit of a limit's bound, by kind ("output": the unit of the output it names;
+#: None: a bare number or a fraction, any written unit is refused)
+_LIMIT_UNITS: dict[str, str | None] = {
+    "maximum": "output",
+    "minimum": "output",
+    "peak_current": "A",
+    "energy": "J",
+    "output_impedance": "ohm",
+    "damping_ratio": None,
+    "pole_real_part": None,
+}
+
+
+def check_units(spec: TuningSpec, units: dict[str, str], *, file: str | None = None) -> None:
+    """Refuse limit bounds and scenario values written in a unit other than what they name.
+
+    Parameters
+    ----------
+    spec
+        The validated tuning file; its :class:`Written` values remember their units.
+    units
+        Unit of every signal and state of the loop (``V``, ``A``, ...; ``""`` or missing
+        where unknown, and then nothing is checked). The controller's ``reference`` input
+        takes the unit of the measured output.
+    file
+        The tuning file, for messages.
+
+    Raises
+    ------
+    TuningError
+        ``wrong_unit`` naming the field, the unit written and the unit expected.
+    """
+    units = dict(units)
+    if spec.controller is not None:
+        units.setdefault("reference", units.get(spec.controller.measure, ""))
+
+    def check(value: Any, expected: str | None, what: str, location: tuple) -> None:
+        written = getattr(value, "unit", None)
+        if written is None or written == expected or expected in ("", "*", "output"):
+            return
+        shown = "a bare number" if expected is None else expected
+        raise TuningError(
+            "wrong_unit",
+            f"{what} is written in {written}; it must be {shown}",
+            file=file,
+            location=location,
+        )
+
+    for limit in spec.limits:
+        expected = _LIMIT_UNITS.get(limit.kind, "")
+        if expected == "output":
+            expected = units.get(limit.output or "", "")
+        for key in ("max", "min"):
+            value = getattr(limit, key)
+            if value is not None:
+                what = f"limit {limit.label!r}: {key}"
+                check(value, expected, what, ("limits", limit.label, key))
+    scenario = spec.scenario
+    for name, value in scenario.inputs.items():
+        check(value, units.get(name, ""), f"scenario input {name!r}", ("scenario", "inputs", name))
+    for index, step in enumerate(scenario.steps):
+        what = f"the step of {step.input!r} (to)"
+        check(step.to, units.get(step.input, ""), what, ("scenario", "steps", index, "to"))
+    for name, value in scenario.initial_values.items():
+        where = ("scenario", "initial_values", name)
+        check(value, units.get(name, ""), f"initial value of {name!r}", where)
+    if spec.controller is not None and spec.controller.reference is not None:
+        check(
+            spec.controller.reference,
+            units["reference"],
+            "controller reference",
+            ("controller", "reference"),
+        )

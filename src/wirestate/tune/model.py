@@ -33,7 +33,7 @@ from wirestate.simulate.inputs import parse_waveform
 from wirestate.simulate.linear import propagate
 from wirestate.spec import CircuitSpec, load_circuit
 from wirestate.spec.system import load_system_spec
-from wirestate.spec.tuning import TuningSpec
+from wirestate.spec.tuning import TuningSpec, check_units
 from wirestate.tune import expm as cexpm
 from wirestate.tune.loop import (
     REFERENCE,
@@ -180,6 +180,7 @@ class TuningModel:
         self.inputs = loop.inputs
         self.outputs = loop.outputs
         self._check_names()
+        check_units(self.spec, self.units, file=self.file)
         self._initial_rows = self._initial_value_rows()
         self.schedule = self._schedule()
         self.reference = None
