@@ -21,7 +21,7 @@ compiled equations.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -389,20 +389,32 @@ def symbolic_state_space(
 
     topology = analyse(spec)
     values: dict[str, Any] = nominal_values(topology)
-    for name, expr in variables.items():
-        if name not in spec.parts or part_parameter(spec.parts[name].kind) is None:
-            raise CompileError(
-                "unknown_part",
-                f"{name!r} is not a part with a value (parts with values: "
-                f"{', '.join(sorted(values))})",
-                location=("parts", name),
-            )
-        values[name] = expr
+    check_valued_parts(spec, variables)
+    values.update(variables)
     # the numeric compile fixes the structure (shifted states, refused derivatives)
     block = compile_circuit(spec)
     is_mx = any(isinstance(v, casadi.MX) for v in variables.values())
     eq = assemble(topology, values, Backend(sqrt=casadi.sqrt))
     return symbolic_from_equations(eq, block, mx=is_mx, linear_solver=linear_solver)
+
+
+def valued_parts(spec: CircuitSpec) -> list[str]:
+    """Parts with a primary value, in file order: resistors, inductors, capacitors,
+    couplings, controlled-source gains, electromechanical constants, transformer ratios."""
+    return [name for name, part in spec.parts.items() if part_parameter(part.kind) is not None]
+
+
+def check_valued_parts(spec: CircuitSpec, names: Iterable[str]) -> None:
+    """Refuse (``unknown_part``) any name that is not a part with a primary value."""
+    valued = valued_parts(spec)
+    for name in names:
+        if name not in valued:
+            raise CompileError(
+                "unknown_part",
+                f"{name!r} is not a part with a value (parts with values: "
+                f"{', '.join(sorted(valued))})",
+                location=("parts", name),
+            )
 
 
 def symbolic_from_equations(

@@ -57,7 +57,12 @@ import scipy.linalg
 from wirestate.equations import part_parameter
 from wirestate.errors import CompileError
 from wirestate.lti import ZERO_POLE_TOLERANCE, CircuitBlock, dc_gain_limit
-from wirestate.reduce import compile_circuit, symbolic_state_space
+from wirestate.reduce import (
+    check_valued_parts,
+    compile_circuit,
+    symbolic_state_space,
+    valued_parts,
+)
 from wirestate.spec import CircuitSpec
 
 #: two poles closer than this (relative to their magnitude) are taken as one repeated pole:
@@ -333,13 +338,6 @@ class Sensitivities:
         return ranked
 
 
-def valued_parts(spec: CircuitSpec) -> list[str]:
-    """Parts with a value a sensitivity can refer to, in file order (resistors, inductors,
-    capacitors, couplings, controlled-source gains, electromechanical constants,
-    transformer ratios)."""
-    return [name for name, part in spec.parts.items() if part_parameter(part.kind) is not None]
-
-
 def circuit_sensitivities(
     spec: CircuitSpec,
     *,
@@ -377,14 +375,7 @@ def circuit_sensitivities(
     import casadi
 
     names = list(valued_parts(spec) if parts is None else parts)
-    for name in names:
-        if name not in spec.parts or part_parameter(spec.parts[name].kind) is None:
-            raise CompileError(
-                "unknown_part",
-                f"{name!r} is not a part with a value (parts with values: "
-                f"{', '.join(valued_parts(spec))})",
-                location=("parts", name),
-            )
+    check_valued_parts(spec, names)
     values = {
         name: float(getattr(spec.parts[name], part_parameter(spec.parts[name].kind)))
         for name in names
