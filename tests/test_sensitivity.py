@@ -150,9 +150,11 @@ def test_a_switched_mode_agrees_with_central_differences():
     assert "Q1" not in sens.parts
 
 
-def test_elasticities_of_any_function():
-    # y = R^2 C / L: d ln y / d ln (R, C, L) = (2, 1, -1) exactly (power rule)
-    r, c, inductance = (casadi.MX.sym(n) for n in ("R", "C", "L"))
+@pytest.mark.parametrize("kind", [casadi.SX, casadi.MX])
+def test_elasticities_of_any_function(kind):
+    # y = R^2 C / L: d ln y / d ln (R, C, L) = (2, 1, -1) exactly (power rule); SX functions
+    # (the optimiser's) and MX functions alike
+    r, c, inductance = (kind.sym(n) for n in ("R", "C", "L"))
     f = casadi.Function(
         "f",
         [r, c, inductance],
