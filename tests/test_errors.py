@@ -348,3 +348,13 @@ def test_mistyped_key_is_named_with_a_suggestion(tmp_path):
     assert info.value.code == "unknown_field"
     assert "'vaule'" in info.value.message and "did you mean 'value'" in info.value.message
     assert info.value.location == ("parts", "R1", "vaule")
+
+
+def test_block_too_large_for_sensitivities():
+    from wirestate.sensitivity import MAX_STATES, circuit_sensitivities
+    from wirestate.spec.generate import ladder
+
+    spec = ladder(MAX_STATES // 2 + 1, resistance=0.01, inductance=1e-6, capacitance=1e-9)
+    with pytest.raises(WirestateError) as info:
+        circuit_sensitivities(spec)
+    assert info.value.code == "block_too_large" and info.value.location == ("circuit",)

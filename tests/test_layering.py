@@ -18,6 +18,7 @@ LAYERS = [
     {"reduce"},
     {"balanced"},
     {"switching"},
+    {"sensitivity"},
     {"blocks"},
     {"compose"},
     {"simulate"},

@@ -76,6 +76,7 @@ ERROR_CODES: dict[str, str] = {
     "nesting_too_deep": "a file nested deeper than the reader accepts",
     # order reduction and sensitivities (issue 15)
     "reduction_not_converged": "the Gramian iteration of a large block did not converge",
+    "block_too_large": "a block with more states than sensitivities of every mode are computed for",
     # FMU export (wirestate export)
     "not_exportable": "a model with blocks an FMU cannot reproduce (non-linear blocks)",
     "no_c_compiler": "no C compiler to build the FMU binary ($CC, then cc)",

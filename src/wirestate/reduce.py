@@ -21,7 +21,7 @@ compiled equations.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -361,7 +361,9 @@ class SymbolicStateSpace:
     units: dict[str, str]
 
 
-def symbolic_state_space(spec: CircuitSpec, variables: Mapping[str, Any]) -> SymbolicStateSpace:
+def symbolic_state_space(
+    spec: CircuitSpec, variables: Mapping[str, Any], *, linear_solver: str = "symbolicqr"
+) -> SymbolicStateSpace:
     """The compiled state-space with some part values replaced by CasADi expressions.
 
     The topology, the stamps and the elimination are those of :func:`compile_circuit`; only
@@ -377,28 +379,47 @@ def symbolic_state_space(spec: CircuitSpec, variables: Mapping[str, Any]) -> Sym
         Part name -> CasADi scalar replacing that part's primary value (resistance,
         capacitance, inductance, gain, coupling coefficient or electromechanical constant),
         in SI base units.
+    linear_solver
+        CasADi linear solver for ``MX`` values: ``"symbolicqr"`` (the default, which
+        expands the QR factorisation into the expression graph) or a sparse numeric one
+        such as ``"qr"``, whose first derivatives are solves with the same factorisation
+        (much faster to build and evaluate on blocks of tens of states and more).
     """
     import casadi
 
     topology = analyse(spec)
     values: dict[str, Any] = nominal_values(topology)
-    for name, expr in variables.items():
-        if name not in spec.parts or part_parameter(spec.parts[name].kind) is None:
-            raise CompileError(
-                "unknown_part",
-                f"{name!r} is not a part with a value (parts with values: "
-                f"{', '.join(sorted(values))})",
-                location=("parts", name),
-            )
-        values[name] = expr
+    check_valued_parts(spec, variables)
+    values.update(variables)
     # the numeric compile fixes the structure (shifted states, refused derivatives)
     block = compile_circuit(spec)
     is_mx = any(isinstance(v, casadi.MX) for v in variables.values())
     eq = assemble(topology, values, Backend(sqrt=casadi.sqrt))
-    return symbolic_from_equations(eq, block, mx=is_mx)
+    return symbolic_from_equations(eq, block, mx=is_mx, linear_solver=linear_solver)
 
 
-def symbolic_from_equations(eq: Equations, block: CircuitBlock, *, mx: bool) -> SymbolicStateSpace:
+def valued_parts(spec: CircuitSpec) -> list[str]:
+    """Parts with a primary value, in file order: resistors, inductors, capacitors,
+    couplings, controlled-source gains, electromechanical constants, transformer ratios."""
+    return [name for name, part in spec.parts.items() if part_parameter(part.kind) is not None]
+
+
+def check_valued_parts(spec: CircuitSpec, names: Iterable[str]) -> None:
+    """Refuse (``unknown_part``) any name that is not a part with a primary value."""
+    valued = valued_parts(spec)
+    for name in names:
+        if name not in valued:
+            raise CompileError(
+                "unknown_part",
+                f"{name!r} is not a part with a value (parts with values: "
+                f"{', '.join(sorted(valued))})",
+                location=("parts", name),
+            )
+
+
+def symbolic_from_equations(
+    eq: Equations, block: CircuitBlock, *, mx: bool, linear_solver: str = "symbolicqr"
+) -> SymbolicStateSpace:
     """Eliminate equations stamped with CasADi values; ``block`` is their numeric compile
     (it fixes which states are shifted). The symbolic half of :func:`block_from_equations`."""
     import casadi
@@ -408,7 +429,7 @@ def symbolic_from_equations(eq: Equations, block: CircuitBlock, *, mx: bool) -> 
     w_t, k_t = _triplets(eq.rows, layout)
     M = _casadi_matrix(kind, w_t, (len(eq.rows), eq.n_w))
     N = _casadi_matrix(kind, k_t, (len(eq.rows), layout.width))
-    W = casadi.solve(M, -N, "symbolicqr") if mx else casadi.solve(M, -N)
+    W = casadi.solve(M, -N, linear_solver) if mx else casadi.solve(M, -N)
     yw_t, yk_t = _triplets(eq.outputs, layout)
     Yw = _casadi_matrix(kind, yw_t, (len(eq.outputs), eq.n_w))
     Yk = _casadi_matrix(kind, yk_t, (len(eq.outputs), layout.width))
@@ -440,10 +461,21 @@ def symbolic_from_equations(eq: Equations, block: CircuitBlock, *, mx: bool) -> 
 
 
 def _casadi_matrix(kind: Any, triplets: list, shape: tuple[int, int]) -> Any:
-    out = kind.zeros(*shape)
     merged: dict[tuple[int, int], Any] = {}
     for row, col, value in triplets:
         merged[(row, col)] = merged[(row, col)] + value if (row, col) in merged else value
+    if kind.__name__ == "MX" and merged:
+        import casadi
+
+        # one sparse MX from all nonzeros at once: assigning entries one by one makes a
+        # graph of one node per entry, which made the derivatives of a 50-section ladder
+        # about 5x slower to build and to evaluate
+        keys = list(merged)
+        sparsity, order = casadi.Sparsity.triplet(
+            shape[0], shape[1], [r for r, _ in keys], [c for _, c in keys], False
+        )
+        return casadi.MX(sparsity, casadi.vertcat(*[merged[keys[k]] for k in order]))
+    out = kind.zeros(*shape)
     for (row, col), value in merged.items():
         out[row, col] = value
     return out

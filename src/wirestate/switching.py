@@ -183,7 +183,13 @@ class SwitchedCircuit:
         """Modes compiled so far (each exactly once)."""
         return list(self._modes)
 
-    def symbolic_mode(self, on: tuple[bool, ...], variables: Mapping[str, Any]) -> Any:
+    def symbolic_mode(
+        self,
+        on: tuple[bool, ...],
+        variables: Mapping[str, Any],
+        *,
+        linear_solver: str = "symbolicqr",
+    ) -> Any:
         """The mode's state space with some part values as CasADi expressions.
 
         Same stamps and elimination as :meth:`mode` (see
@@ -191,6 +197,7 @@ class SwitchedCircuit:
         :class:`~wirestate.reduce.SymbolicStateSpace` has the block inputs followed by the
         unit constant, so its last column of ``B`` is ``f`` and of ``D`` is ``g``; the
         outputs are the file's outputs followed by every device current then voltage.
+        ``linear_solver`` as for :func:`wirestate.reduce.symbolic_state_space`.
         """
         import casadi
 
@@ -198,7 +205,9 @@ class SwitchedCircuit:
         values.update(variables)
         eq = assemble(self.topology, values, Backend(sqrt=casadi.sqrt), probes=self.probes)
         mx = any(isinstance(v, casadi.MX) for v in variables.values())
-        return symbolic_from_equations(eq, self._compile(tuple(on)), mx=mx)
+        return symbolic_from_equations(
+            eq, self._compile(tuple(on)), mx=mx, linear_solver=linear_solver
+        )
 
     def describe(self, on: tuple[bool, ...]) -> str:
         """``"Q1 on, D1 off"``."""

@@ -22,6 +22,11 @@ def configure(parser: argparse.ArgumentParser) -> None:
         metavar="INPUT:OUTPUT",
         help="input->output pair for the Bode plot (repeatable; default: every pair, up to 6)",
     )
+    parser.add_argument(
+        "--sensitivity",
+        action="store_true",
+        help="also give the elasticities of every mode and DC gain to every part value",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -35,11 +40,22 @@ def run(args: argparse.Namespace) -> int:
 
         figure_format(args.plot)  # a bad file name fails before any output
     block = load_block(args.model)
+    sensitivity = _sensitivity(block, args.model) if args.sensitivity else None
     if args.json:
-        json.dump(block_json(block), sys.stdout, indent=2)
+        data = block_json(block)
+        if sensitivity is not None:
+            from wirestate.report.sensitivity_table import sensitivity_json
+
+            data.update(sensitivity_json(sensitivity))
+        json.dump(data, sys.stdout, indent=2)
         sys.stdout.write("\n")
     else:
         print(block_summary(block))
+        if sensitivity is not None:
+            from wirestate.report.sensitivity_table import sensitivity_text
+
+            print()
+            print(sensitivity_text(sensitivity))
     if args.plot:
         from wirestate.report.inspect_plot import plot_inspect
 
@@ -60,3 +76,13 @@ def _pair(text: str, block) -> tuple[str, str]:
             f"in {block.outputs}",
         )
     return source, output
+
+
+def _sensitivity(block, path: str):
+    from wirestate.errors import WirestateError
+    from wirestate.sensitivity import circuit_sensitivities
+
+    try:
+        return circuit_sensitivities(block.spec)
+    except WirestateError as exc:
+        raise exc.with_file(path) from None
