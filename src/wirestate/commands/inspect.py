@@ -1,4 +1,10 @@
-"""``wirestate inspect MODEL``: states, inputs, outputs, modes and DC gains of a circuit."""
+"""``wirestate inspect FILE``: what a circuit, system or tuning file holds.
+
+Circuits: states, inputs, outputs, modes and DC gains. Systems: blocks, their signals with
+units, the wiring and the loop's poles. Tuning files: the model being tuned, the design
+variables, limits and the loop's poles at the starting values
+(:mod:`wirestate.report.describe`).
+"""
 
 from __future__ import annotations
 
@@ -8,7 +14,7 @@ import sys
 
 
 def configure(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("model", help="circuit model file (TOML)")
+    parser.add_argument("model", help="circuit, system or tuning file (TOML)")
     parser.add_argument("--json", action="store_true", help="print one JSON object instead")
     parser.add_argument(
         "--plot",
@@ -27,24 +33,23 @@ def configure(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     # imported here, not at module level: the CLI imports this module to configure the
     # parser, and `wirestate inspect --help` should not pay for numpy/scipy
-    from wirestate.reduce import load_block
-    from wirestate.report.tables import block_json, block_summary
+    from wirestate.report.describe import inspect_file
 
     if args.plot:
         from wirestate.report.figure import figure_format
 
         figure_format(args.plot)  # a bad file name fails before any output
-    block = load_block(args.model)
+    found = inspect_file(args.model)
     if args.json:
-        json.dump(block_json(block), sys.stdout, indent=2)
+        json.dump(found.data, sys.stdout, indent=2)
         sys.stdout.write("\n")
     else:
-        print(block_summary(block))
+        print(found.summary)
     if args.plot:
-        from wirestate.report.inspect_plot import plot_inspect
+        from wirestate.report.inspect_plot import plot_inspection
 
-        pairs = [_pair(text, block) for text in args.pair] or None
-        plot_inspect(block, args.plot, pairs=pairs)
+        pairs = [_pair(text, found.linear) for text in args.pair] or None
+        plot_inspection(found, args.plot, pairs=pairs)
         print(f"wrote {args.plot}", file=sys.stderr)
     return 0
 
@@ -53,6 +58,10 @@ def _pair(text: str, block) -> tuple[str, str]:
     from wirestate.errors import SimulationError
 
     source, _, output = text.partition(":")
+    if block is None:
+        raise SimulationError(
+            "unknown_signal", f"--pair {text!r}: this loop has no frequency response to draw"
+        )
     if source not in block.inputs or output not in block.outputs:
         raise SimulationError(
             "unknown_signal",

@@ -98,7 +98,12 @@ def _ratio_unit(units: dict[str, str], out: str, inp: str) -> str:
 
 
 def plot_inspect(
-    block: Any, path: str | Path, pairs: Sequence[tuple[str, str]] | None = None
+    block: Any,
+    path: str | Path,
+    pairs: Sequence[tuple[str, str]] | None = None,
+    *,
+    poles: np.ndarray | None = None,
+    name: str | None = None,
 ) -> Path:
     """Draw the pole map and the Bode plot of a block into a PNG or SVG file.
 
@@ -126,10 +131,14 @@ def plot_inspect(
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    model = as_linear_model(block)
+    model = as_linear_model(block) if block is not None else None
     units = dict(getattr(block, "units", {}) or {})
-    chosen = _pairs(model, pairs)
-    poles = sorted_poles(model.A)
+    chosen = _pairs(model, pairs) if model is not None else []
+    if poles is None:
+        poles = sorted_poles(model.A)
+    poles = np.asarray(poles, dtype=complex)
+    poles = poles[np.isfinite(poles)]
+    title = name or model.name
 
     fig = Figure(figsize=(11.0, 6.2), layout="constrained")
     grid = fig.add_gridspec(2, 2, width_ratios=(1.0, 1.35))
@@ -137,7 +146,7 @@ def plot_inspect(
     ax_mag = fig.add_subplot(grid[0, 1])
     ax_phase = fig.add_subplot(grid[1, 1], sharex=ax_mag)
     FigureCanvasAgg(fig)
-    fig.suptitle(f"{model.name}: poles and frequency response", fontsize=12)
+    fig.suptitle(f"{title}: poles and frequency response", fontsize=12)
 
     _draw_poles(ax_poles, poles)
 
@@ -211,3 +220,10 @@ def _draw_poles(ax: Any, poles: np.ndarray) -> None:
     ax.set_xlabel("real part σ [rad/s]")
     ax.set_ylabel("imaginary part ω [rad/s]")
     ax.grid(True, color="#e3e3e3", linewidth=0.6)
+
+
+def plot_inspection(
+    found: Any, path: str | Path, pairs: Sequence[tuple[str, str]] | None = None
+) -> Path:
+    """Draw an :class:`~wirestate.report.describe.Inspection` (any file kind) to ``path``."""
+    return plot_inspect(found.linear, path, pairs=pairs, poles=found.poles, name=found.name)

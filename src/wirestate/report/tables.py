@@ -44,8 +44,8 @@ def _cell(value: Any) -> str:
 
 def block_summary(block: CircuitBlock) -> str:
     """The text ``wirestate inspect`` prints."""
-    out = [f"block {block.name}: {block.n_states} states, {len(block.inputs)} inputs, "]
-    out[0] += f"{len(block.outputs)} outputs"
+    out = [f"block {block.name}: {count(block.n_states, 'state')}, "]
+    out[0] += f"{count(len(block.inputs), 'input')}, {count(len(block.outputs), 'output')}"
     out.append("")
     out.append("signals")
     listed = block.states if block.n_states <= 40 else block.states[:20]
@@ -167,3 +167,104 @@ def _json_float(value: float) -> float | str | None:
     if math.isinf(value):
         return "inf" if value > 0 else "-inf"
     return value
+
+
+def count(n: int, noun: str) -> str:
+    """``"1 state"``, ``"3 states"``: a count with its noun in the right number."""
+    return f"{n} {noun}" if n == 1 else f"{n} {noun}s"
+
+
+#: a pole component below this fraction of the pole's magnitude is round-off (eigenvalues
+#: of a balanced real matrix are accurate to about machine epsilon times its norm; common
+#: practice, no source)
+POLE_ROUND_OFF = 1e-12
+
+
+def clean_poles(poles: np.ndarray) -> np.ndarray:
+    """Poles with real or imaginary parts below :data:`POLE_ROUND_OFF` of ``|p|`` set to 0."""
+    p = np.asarray(poles, dtype=complex).copy()
+    size = np.abs(p)
+    finite = np.isfinite(size)
+    re, im = p.real.copy(), p.imag.copy()
+    re[finite & (np.abs(re) < POLE_ROUND_OFF * size)] = 0.0
+    im[finite & (np.abs(im) < POLE_ROUND_OFF * size)] = 0.0
+    return re + 1j * im
+
+
+def _mode_list(poles: np.ndarray, z: np.ndarray | None) -> list[dict[str, Any]]:
+    """One entry per real pole or complex pair (the member with positive imaginary part),
+    slowest first; a sampled loop's ``z`` is carried along."""
+    p = clean_poles(poles)
+    zs = None if z is None else np.asarray(z, dtype=complex)
+    entries = []
+    for k, pole in enumerate(p):
+        if pole.imag < 0:
+            continue
+        wn = abs(pole)
+        entry = {
+            "real": float(pole.real),
+            "imag": float(pole.imag),
+            "conjugate_pair": bool(pole.imag > 0),
+            "natural_frequency": float(wn),
+            "damping_ratio": float(-pole.real / wn) if 0 < wn < math.inf else None,
+        }
+        if zs is not None:
+            entry["z"] = [float(zs[k].real), float(zs[k].imag)]
+        entries.append(entry)
+    entries.sort(key=lambda e: (e["natural_frequency"], e["imag"]))
+    return entries
+
+
+def pole_entries(poles: np.ndarray, *, z: np.ndarray | None = None) -> dict[str, Any]:
+    """JSON form of poles: each complex pair listed once, its conjugate stated, not repeated.
+
+    Returns ``{"pole_count": n, "poles": [...], "poles_listed": "..."}``; each entry has
+    ``real``, ``imag`` (rad/s, ``imag >= 0``), ``conjugate_pair`` (``true``: ``real - j imag``
+    is a pole as well), ``natural_frequency`` (rad/s) and ``damping_ratio``; a sampled
+    loop's entries carry ``z`` too (a pole at ``z = 0``, a pure delay, has ``real = -inf``).
+    """
+    return {
+        "pole_count": int(np.asarray(poles).size),
+        "poles": [
+            {k: (_json_float(v) if isinstance(v, float) else v) for k, v in e.items()}
+            for e in _mode_list(poles, z)
+        ],
+        "poles_listed": "each complex pair once, with imag > 0; conjugate_pair = true "
+        "means real - j imag is a pole as well",
+    }
+
+
+def pole_table(poles: np.ndarray, *, z: np.ndarray | None = None) -> str:
+    """Text table of poles: one line per real pole or complex pair (units in brackets
+    after the quantity, as in the figures)."""
+    rows = []
+    for e in _mode_list(poles, z):
+        wn = e["natural_frequency"]
+        if not math.isfinite(wn):
+            row = ["-", "-", "-", "-", "-", "z = 0 (one-sample delay)"]
+        else:
+            zeta = e["damping_ratio"]
+            row = [
+                e["real"],
+                e["imag"],
+                wn,
+                wn / (2 * math.pi),
+                float("nan") if zeta is None else zeta,
+                "pair" if e["conjugate_pair"] else "real",
+            ]
+        if z is not None:
+            row.insert(0, float(abs(complex(*e["z"]))))
+        rows.append(row)
+    if not rows:
+        return "  (no poles)"
+    headers = [
+        "real (1/s)",
+        "imag (rad/s)",
+        "wn (rad/s)",
+        "fn (Hz)",
+        "damping ratio",
+        "type",
+    ]
+    if z is not None:
+        headers.insert(0, "|z|")
+    return table(headers, rows)
