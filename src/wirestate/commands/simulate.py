@@ -32,6 +32,21 @@ def configure(parser: argparse.ArgumentParser) -> None:
         "(repeatable); sources with a 'value' "
         "default are driven by it otherwise",
     )
+    parser.add_argument(
+        "--initial",
+        choices=("parts", "steady_state", "zero"),
+        default="parts",
+        help="start from the parts' 'initial' fields (default, zero elsewhere), from zero, "
+        "or from the steady state at the inputs' values at t = 0",
+    )
+    parser.add_argument(
+        "--initial-value",
+        action="append",
+        default=[],
+        metavar="STATE=VALUE",
+        help="set one state at t = 0 on top of --initial, e.g. v_Cf=42V or bus.v_Cbus=48V "
+        "(repeatable; a shifted state by its physical name too)",
+    )
     parser.add_argument("--csv", metavar="FILE", help="write time and every output (SI units)")
     parser.add_argument("--plot", metavar="FILE", help="draw the outputs to a PNG file")
     parser.add_argument(
@@ -74,6 +89,8 @@ def run(args: argparse.Namespace) -> int:
     else:
         model = compile_circuit(parse_circuit(data, file=str(path)))
         options = {}
+    if args.initial != "parts" or args.initial_value:
+        model = _start(model, args, assignments, path)
     steps = until / step
     progress = _progress if steps > PROGRESS_STEPS else None
     if args.csv and not args.plot and _streams(model, until, step):
@@ -105,6 +122,29 @@ def run(args: argparse.Namespace) -> int:
         print(f"wrote {written}")
     print(CAUTION)
     return 0
+
+
+def _start(model, args: argparse.Namespace, assignments: dict, path: Path):
+    """The model starting where ``--initial`` and ``--initial-value`` say."""
+    from wirestate.simulate.initial import start_from
+
+    values = {}
+    for text in args.initial_value:
+        name, sep, value = text.partition("=")
+        if not sep or not name.strip() or not value.strip():
+            raise SimulationError(
+                "invalid_field",
+                f"--initial-value: expected STATE=VALUE such as v_Cf=42V, got {text!r}",
+                file=str(path),
+            )
+        values[name.strip()] = value.strip()
+    try:
+        start = start_from(model, args.initial, values, assignments, base=Path.cwd())
+    except SimulationError as exc:
+        raise exc.with_file(str(path)) from None
+    for note in start.notes:
+        print(f"note: {note}")
+    return start.model
 
 
 def _check_before_work(args: argparse.Namespace) -> None:
