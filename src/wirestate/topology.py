@@ -507,3 +507,68 @@ def _require(
             "conductance)",
             location=("parts", element.name),
         )
+
+
+def _named(branch: Branch) -> str:
+    kind = branch.kind.replace("_", " ")
+    return f"{kind} {branch.name}"
+
+
+def _signed_sum(prefix: str, terms: list[tuple[int, int]], branches: list[Branch]) -> str:
+    """``v_C3 - v_C1`` from ``[(branch, sign)]``."""
+    text = ""
+    for k, sign in terms:
+        name = f"{prefix}_{branches[k].name}"
+        if not text:
+            text = name if sign > 0 else f"-{name}"
+        else:
+            text += f" + {name}" if sign > 0 else f" - {name}"
+    return text
+
+
+def excess_notes(topology: Topology) -> dict[int, str]:
+    """Why each excess capacitor and inductor has no state of its own, by branch index.
+
+    A link capacitor closes a loop of capacitors and voltage-type parts: its voltage is
+    fixed by them, and its current is its capacitance times their rate of change. A tree
+    inductor lies in a cutset of inductors and current-type parts: its current is fixed by
+    them, its voltage is its inductance times their rate of change (the normal-tree rule
+    in the module docstring).
+    """
+    branches = topology.branches
+    notes = {}
+    for link, loop in topology.excess_capacitors.items():
+        c = branches[link]
+        others = [branches[k] for k, _ in loop]
+        if len(others) == 1 and others[0].category == "voltage":
+            where = f"it is directly across {_named(others[0])}"
+        else:
+            where = "it closes a loop with " + ", ".join(_named(b) for b in others)
+        notes[link] = (
+            f"{c.name} has no state of its own: {where}; the loop fixes its "
+            f"voltage (v_{c.name} = {_signed_sum('v', loop, branches)}), so its current is "
+            f"{c.name} times the rate of change of that voltage"
+        )
+    for tree, cut in topology.excess_inductors.items():
+        ind = branches[tree]
+        others = [branches[k] for k, _ in cut]
+        if len(others) == 1 and others[0].category == "current":
+            where = f"it is in series with {_named(others[0])}"
+        else:
+            where = "it lies in a cutset with " + ", ".join(_named(b) for b in others)
+        notes[tree] = (
+            f"{ind.name} has no state of its own: {where}; the cutset fixes its "
+            f"current (i_{ind.name} = {_signed_sum('i', cut, branches)}), so its voltage is "
+            f"{ind.name} times the rate of change of that current"
+        )
+    return notes
+
+
+def excess_through(topology: Topology, branch: int) -> list[int]:
+    """The excess capacitors and inductors whose loop or cutset contains ``branch`` (an
+    input's source): the parts whose current or voltage follows that input's derivative."""
+    found = [
+        k for k, loop in topology.excess_capacitors.items() if any(b == branch for b, _ in loop)
+    ]
+    found += [k for k, cut in topology.excess_inductors.items() if any(b == branch for b, _ in cut)]
+    return found
