@@ -7,7 +7,7 @@ import sys
 from pathlib import Path
 
 from wirestate.errors import SimulationError
-from wirestate.units import format_quantity, parse_quantity
+from wirestate.units import format_count, format_quantity, parse_quantity
 
 #: runs with more steps than this report progress on stderr
 PROGRESS_STEPS = 100_000
@@ -108,7 +108,8 @@ def run(args: argparse.Namespace) -> int:
         )
     except SimulationError as exc:
         raise exc.with_file(str(path)) from None
-    print(f"{result.name}: {len(result.time) - 1} steps of {format_quantity(step, 's')} "
+    print(f"{result.name}: {format_count(len(result.time) - 1, 'step')} of "
+          f"{format_quantity(step, 's')} "
           f"to {format_quantity(until, 's')}; {result.method}")  # fmt: skip
     rows = [(row[-1], row.min(), row.max()) for row in result.outputs]
     _print_summary(result.output_names, result.units, rows)
@@ -182,7 +183,8 @@ def _run_streamed(model, until, step, assignments, args, progress, path) -> int:
         )  # fmt: skip
     except SimulationError as exc:
         raise exc.with_file(str(path)) if exc.file is None else exc from None
-    print(f"{summary.name}: {summary.samples - 1} steps of {format_quantity(step, 's')} "
+    print(f"{summary.name}: {format_count(summary.samples - 1, 'step')} of "
+          f"{format_quantity(step, 's')} "
           f"to {format_quantity(until, 's')}; {summary.method}")  # fmt: skip
     rows = list(zip(summary.final, summary.minimum, summary.maximum, strict=True))
     _print_summary(summary.output_names, summary.units, rows)
@@ -192,6 +194,10 @@ def _run_streamed(model, until, step, assignments, args, progress, path) -> int:
 
 
 def _print_summary(names: list[str], units: dict[str, str], rows: list[tuple]) -> None:
+    from wirestate.units import zero_round_off
+
+    # a value far below the largest the output reached in the run is round-off: show 0
+    rows = [zero_round_off(row, max(abs(float(v)) for v in row)) for row in rows]
     width = max([len(n) for n in names] + [6])
     print(f"  {'output':<{width}}  {'final':>14}  {'min':>14}  {'max':>14}")
     for name, values in zip(names, rows, strict=True):

@@ -21,14 +21,8 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.report.tables import (
-    block_json,
-    block_summary,
-    count,
-    pole_entries,
-    pole_table,
-    table,
-)
+from wirestate.report.tables import block_json, block_summary, pole_entries, pole_table, table
+from wirestate.units import format_count as count
 from wirestate.units import format_quantity
 
 

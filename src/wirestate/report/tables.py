@@ -8,7 +8,9 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.lti import LARGE_BLOCK_STATES, CircuitBlock, extreme_poles, modes
+from wirestate.lti import LARGE_BLOCK_STATES, CircuitBlock, dc_gain_limit, extreme_poles, modes
+from wirestate.units import format_count as count
+from wirestate.units import zero_round_off
 
 
 def table(headers: Sequence[str], rows: Sequence[Sequence[Any]], *, indent: str = "  ") -> str:
@@ -99,7 +101,7 @@ def block_summary(block: CircuitBlock) -> str:
         out.append("  (no states)")
     out.append("")
     out.append("DC gain (output per input, SI units)")
-    gain = _clean(block.dc_gain())
+    gain = zero_round_off(block.dc_gain(), dc_gain_term_sizes(block.A, block.B, block.C, block.D))
     if block.inputs and block.outputs:
         rows = [[name, *map(_gain_cell, gain[i])] for i, name in enumerate(block.outputs)]
         out.append(table(("output \\ input", *block.inputs), rows))
@@ -124,7 +126,7 @@ def _gain_cell(value: float) -> float | str:
 def block_json(block: CircuitBlock) -> dict[str, Any]:
     """JSON-ready description: names, matrices (SI), poles, modes, DC gain."""
     poles = block.poles()
-    gain = block.dc_gain()
+    gain = zero_round_off(block.dc_gain(), dc_gain_term_sizes(block.A, block.B, block.C, block.D))
     return {
         "name": block.name,
         "states": list(block.states),
@@ -137,23 +139,35 @@ def block_json(block: CircuitBlock) -> dict[str, Any]:
         "D": _rows(block.D),
         "x0": [float(v) for v in block.x0],
         "state_offset": _rows(block.state_offset),
-        "poles": [[float(p.real), float(p.imag)] for p in poles],
-        "modes": [
-            {"wn": m["wn"], "zeta": None if math.isnan(m["zeta"]) else m["zeta"]}
-            for m in modes(poles)
-        ],
+        **pole_entries(poles),
         "dc_gain": [[_json_float(v) for v in row] for row in gain],
         "notes": list(block.notes),
     }
 
 
-def _clean(matrix: np.ndarray) -> np.ndarray:
-    """For display: entries below 1e-12 of the largest finite entry are round-off."""
-    out = np.array(matrix, dtype=float)
-    finite = np.isfinite(out)
-    scale = np.abs(out[finite]).max(initial=0.0)
-    out[finite & (np.abs(out) < 1e-12 * scale)] = 0.0
-    return out
+def dc_gain_term_sizes(A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray) -> np.ndarray:
+    """Per entry, the size of the terms a DC gain ``D - C A^-1 B`` is summed from:
+    ``|D| + |C| |A^-1| |B|`` (a componentwise bound of the kind used in rounding-error
+    analysis of linear solves, Higham, Accuracy and Stability of Numerical Algorithms,
+    2nd ed., ch. 7). Blocks above :data:`~wirestate.lti.LARGE_BLOCK_STATES` states use
+    ``|C| |A^-1 B|``; a singular ``A`` the gain's own size. An entry far below its size
+    is round-off of terms that cancel (a capacitor's DC current, say)."""
+    A, B, C, D = (np.asarray(M, dtype=float) for M in (A, B, C, D))
+    n = A.shape[0]
+    if n == 0 or B.shape[1] == 0 or C.shape[0] == 0:
+        return np.abs(D)
+    try:
+        if n <= LARGE_BLOCK_STATES:
+            if np.linalg.cond(A) > 1e14:
+                raise np.linalg.LinAlgError
+            inner = np.abs(np.linalg.inv(A)) @ np.abs(B)
+        else:
+            inner = np.abs(np.linalg.solve(A, B))
+    except np.linalg.LinAlgError:
+        inner = None
+    if inner is None or not np.isfinite(inner).all():
+        return np.abs(dc_gain_limit(A, B, C, D))
+    return np.abs(D) + np.abs(C) @ inner
 
 
 def _rows(matrix: np.ndarray) -> list[list[float]]:
@@ -167,11 +181,6 @@ def _json_float(value: float) -> float | str | None:
     if math.isinf(value):
         return "inf" if value > 0 else "-inf"
     return value
-
-
-def count(n: int, noun: str) -> str:
-    """``"1 state"``, ``"3 states"``: a count with its noun in the right number."""
-    return f"{n} {noun}" if n == 1 else f"{n} {noun}s"
 
 
 #: a pole component below this fraction of the pole's magnitude is round-off (eigenvalues
