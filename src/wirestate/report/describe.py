@@ -556,7 +556,7 @@ def tuning_inspection(spec: Any, *, file: str | None = None) -> Inspection:
         "\n".join(out),
         data,
         poles,
-        linear=_LoopModel(model, evaluation),
+        linear=_loop_model(model, evaluation),
         units=dict(model.units),
         sample_time=T,
     )
@@ -571,32 +571,21 @@ def _tuning_loop_poles(model: Any, evaluation: Any) -> tuple[np.ndarray, Any, fl
     return (np.linalg.eigvals(A) if A.size else np.zeros(0, dtype=complex)), None, None
 
 
-@dataclass
-class _LoopModel:
-    """The continuous loop of a tuning case at its starting values, for the Bode plot."""
+def _loop_model(model: Any, evaluation: Any) -> Any:
+    """The continuous loop of a tuning case at its starting values, for the Bode plot
+    (the file's outputs only, not the ones the tuning adds to watch parts)."""
+    from wirestate.simulate.linear import LinearModel
 
-    name: str
-    A: np.ndarray
-    B: np.ndarray
-    C: np.ndarray
-    D: np.ndarray
-    states: list[str]
-    inputs: list[str]
-    outputs: list[str]
-    units: dict[str, str]
-
-    def __init__(self, model: Any, evaluation: Any) -> None:
-        self.name = model.spec.name
-        self.A = np.asarray(evaluation.A, dtype=float)
-        self.B = np.asarray(evaluation.B, dtype=float)
-        self.C = np.asarray(evaluation.extra["Cc"], dtype=float)
-        self.D = np.asarray(evaluation.extra["Dc"], dtype=float)
-        self.states = list(model.states)
-        self.inputs = list(model.inputs)
-        self.outputs = list(model.user_outputs)
-        rows = [model.outputs.index(o) for o in self.outputs]
-        self.C, self.D = self.C[rows], self.D[rows]
-        self.units = dict(model.units)
+    outputs = list(model.user_outputs)
+    rows = [model.outputs.index(o) for o in outputs]
+    A = np.asarray(evaluation.A, dtype=float)
+    return LinearModel(
+        model.spec.name, A, np.asarray(evaluation.B, dtype=float),
+        np.asarray(evaluation.extra["Cc"], dtype=float)[rows],
+        np.asarray(evaluation.extra["Dc"], dtype=float)[rows],
+        list(model.states), list(model.inputs), outputs, np.zeros(A.shape[0]),
+        units=dict(model.units),
+    )  # fmt: skip
 
 
 def _indent(text: str, by: str = "  ") -> str:

@@ -93,7 +93,7 @@ def block_summary(block: CircuitBlock) -> str:
     if mode_rows:
         out.append(
             table(
-                ("real [1/s]", "imag [rad/s]", "wn [rad/s]", "fn [Hz]", "damping ratio", "type"),
+                ("real (1/s)", "imag (rad/s)", "wn (rad/s)", "fn (Hz)", "damping ratio", "type"),
                 mode_rows,
             )
         )
