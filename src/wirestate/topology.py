@@ -536,31 +536,27 @@ def excess_notes(topology: Topology) -> dict[int, str]:
     in the module docstring).
     """
     branches = topology.branches
+    # (excess parts, source category, where to say it is, what fixes, what it fixes, derived)
+    kinds = (
+        (topology.excess_capacitors, "voltage", "directly across", "loop", "v", "current"),
+        (topology.excess_inductors, "current", "in series with", "cutset", "i", "voltage"),
+    )
     notes = {}
-    for link, loop in topology.excess_capacitors.items():
-        c = branches[link]
-        others = [branches[k] for k, _ in loop]
-        if len(others) == 1 and others[0].category == "voltage":
-            where = f"it is directly across {_named(others[0])}"
-        else:
-            where = "it closes a loop with " + ", ".join(_named(b) for b in others)
-        notes[link] = (
-            f"{c.name} has no state of its own: {where}; the loop fixes its "
-            f"voltage (v_{c.name} = {_signed_sum('v', loop, branches)}), so its current is "
-            f"{c.name} times the rate of change of that voltage"
-        )
-    for tree, cut in topology.excess_inductors.items():
-        ind = branches[tree]
-        others = [branches[k] for k, _ in cut]
-        if len(others) == 1 and others[0].category == "current":
-            where = f"it is in series with {_named(others[0])}"
-        else:
-            where = "it lies in a cutset with " + ", ".join(_named(b) for b in others)
-        notes[tree] = (
-            f"{ind.name} has no state of its own: {where}; the cutset fixes its "
-            f"current (i_{ind.name} = {_signed_sum('i', cut, branches)}), so its voltage is "
-            f"{ind.name} times the rate of change of that current"
-        )
+    for excess, source, alone, group, symbol, derived in kinds:
+        fixed = "voltage" if symbol == "v" else "current"
+        for index, terms in excess.items():
+            part = branches[index].name
+            others = [branches[k] for k, _ in terms]
+            if len(others) == 1 and others[0].category == source:
+                where = f"it is {alone} {_named(others[0])}"
+            else:
+                verb = "closes a loop" if group == "loop" else "lies in a cutset"
+                where = f"it {verb} with " + ", ".join(_named(b) for b in others)
+            notes[index] = (
+                f"{part} has no state of its own: {where}; the {group} fixes its {fixed} "
+                f"({symbol}_{part} = {_signed_sum(symbol, terms, branches)}), so its "
+                f"{derived} is {part} times the rate of change of that {fixed}"
+            )
     return notes
 
 

@@ -318,22 +318,8 @@ def system_inspection(system: Any, *, kinds: dict[str, str] | None = None) -> In
                 "category": b.category,
                 "sample_time": b.sample_time,
                 "states": [{"name": s, "unit": b.units.get(s, "")} for s in b.states],
-                "inputs": [
-                    {
-                        "name": s,
-                        "unit": units.get(f"{name}.{s}", ""),
-                        "connection": links.get(f"{name}.{s}", []),
-                    }
-                    for s in b.inputs
-                ],  # fmt: skip
-                "outputs": [
-                    {
-                        "name": s,
-                        "unit": units.get(f"{name}.{s}", ""),
-                        "connection": links.get(f"{name}.{s}", []),
-                    }
-                    for s in b.outputs
-                ],  # fmt: skip
+                "inputs": _signals_json(name, b.inputs, units, links),
+                "outputs": _signals_json(name, b.outputs, units, links),
             }
             for name, b in system.blocks.items()
         ],
@@ -354,6 +340,14 @@ def system_inspection(system: Any, *, kinds: dict[str, str] | None = None) -> In
         units=dict(system.units),
         sample_time=loop.sample_time,
     )
+
+
+def _signals_json(block: str, signals: list[str], units: dict, links: dict) -> list[dict]:
+    return [
+        {"name": s, "unit": units.get(f"{block}.{s}", ""),
+         "connection": links.get(f"{block}.{s}", [])}
+        for s in signals
+    ]  # fmt: skip
 
 
 def _loop_json(loop: LoopPoles) -> dict[str, Any]:
