@@ -267,3 +267,19 @@ def test_the_signal_table_lists_what_each_block_offers(kind):
             expected = "V" if unit == "`unit`" else unit
             got = {b.units.get(name, "") for b in built if name in getattr(b, role)}
             assert got == {expected}, (kind, role, name, got)
+
+
+def test_the_schema_names_each_block_kinds_signals():
+    # the system schema an editor shows carries the same signals as the README table
+    from wirestate.spec.system import SystemSpec
+
+    defs = SystemSpec.model_json_schema()["$defs"]
+    described = {
+        d["properties"]["kind"].get("const"): d.get("description", "") for d in defs.values()
+        if "kind" in d.get("properties", {})
+    }  # fmt: skip
+    for kind, roles in signal_table().items():
+        for role in roles.values():
+            for name, _ in role:
+                if not name.startswith(("v_", "i_")) and kind != "state_feedback":
+                    assert name in described[kind], (kind, name)

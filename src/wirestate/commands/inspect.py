@@ -19,7 +19,7 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--plot",
         metavar="FILE",
-        help="write a pole map and Bode plots (PNG or SVG, by suffix)",
+        help="write a mode map and Bode plots (PNG or SVG, by suffix)",
     )
     parser.add_argument(
         "--pair",
