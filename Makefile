@@ -5,7 +5,8 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.wirestate-installed
 
-.PHONY: demo test lint format bench bench-compare bench-baseline regress regress-update clean fuzz
+.PHONY: demo test lint format bench bench-compare bench-baseline regress regress-update clean fuzz \
+	readme
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -35,6 +36,11 @@ test: $(STAMP) lint
 # the normal suite runs the same tests with a small sample
 fuzz: $(STAMP)
 	WIRESTATE_FUZZ_EXAMPLES=10000 $(BIN)/python -m pytest tests/robustness/test_fuzz.py -q
+
+# every README example in full, the minute-long ones (yield, sweep, regress of every file,
+# compiled FMU exports) included; the normal suite runs the short ones
+readme: $(STAMP)
+	WIRESTATE_README_FULL=1 $(BIN)/python -m pytest tests/test_readme.py -q
 
 regress: $(STAMP)
 	$(BIN)/wirestate regress --junit build/regress-junit.xml

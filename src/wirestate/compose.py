@@ -470,7 +470,8 @@ def _controller_units(views: dict[str, BlockView], wiring: dict[str, str]) -> No
             if src is not None:
                 block, sig = src.split(".")
                 unit = views[block].units.get(sig, "")
-                b.units = {**b.units, "measurement": unit, "reference": unit}
+                measured = ("measurement", "reference", "derivative_filter", "last_measurement")
+                b.units = {**b.units, **dict.fromkeys(measured, unit)}
 
 
 def _check_loops(views: dict[str, BlockView], wiring: dict[str, str], file: str | None) -> None:

@@ -74,6 +74,7 @@ ERROR_CODES: dict[str, str] = {
     "run_too_large": "a run whose arrays or output file would not fit in memory or on disk",
     "unwritable_output": "an output file path whose folder is missing or not writable",
     "nesting_too_deep": "a file nested deeper than the reader accepts",
+    "wrong_file_kind": "a file of a kind the command or option does not take",
     # order reduction and sensitivities (issue 15)
     "reduction_not_converged": "the Gramian iteration of a large block did not converge",
     "block_too_large": "a block with more states than sensitivities of every mode are computed for",

@@ -34,7 +34,7 @@ from wirestate.equations import Backend, Equations, assemble, nominal_values, pa
 from wirestate.errors import CompileError, TopologyError, WirestateError
 from wirestate.lti import CircuitBlock
 from wirestate.spec import CircuitSpec, load_circuit
-from wirestate.topology import Topology, analyse
+from wirestate.topology import Topology, analyse, excess_notes, excess_through
 
 #: entries of B1 below this (relative to the largest) are round-off, not a loop with a source
 _SHIFT_TOLERANCE = 1e-12
@@ -207,12 +207,20 @@ def _check_output_derivatives(eq: Equations, sol: _Solution, layout: _Layout) ->
     if real.any():
         row, col = map(int, np.argwhere(real)[0])
         output = eq.output_names[row]
-        source = eq.topology.inputs[layout.du_inputs[col]][0]
+        source, branch = eq.topology.inputs[layout.du_inputs[col]]
+        parts = [eq.topology.branches[k] for k in excess_through(eq.topology, branch)]
+        if parts:
+            why = "; ".join(excess_notes(eq.topology)[eq.topology.branch_index[p.name]]
+                            for p in parts)  # fmt: skip
+            because = f": {why}"
+        else:
+            because = (
+                " (for example the current of a capacitor placed directly across a voltage source)"
+            )
         raise TopologyError(
             "output_needs_derivative",
-            f"output {output} would need the derivative of input {source} (for example the "
-            "current of a capacitor placed directly across a voltage source); measure it "
-            "through a part with series resistance or inductance instead",
+            f"output {output} would need the derivative of input {source}{because}; measure "
+            "it through a part with series resistance or inductance instead",
             location=("outputs", output) if output in eq.topology.spec.outputs else ("parts",),
         )
 
@@ -291,6 +299,7 @@ def block_from_equations(eq: Equations) -> CircuitBlock:
     units.update(_input_units(topology))
     units.update(dict(zip(eq.output_names, eq.output_units, strict=True)))
     x0, notes = _initial_state(topology)
+    notes += list(excess_notes(topology).values())
     defaults = {
         name: spec.parts[topology.branches[branch].name].value
         for name, branch in topology.inputs

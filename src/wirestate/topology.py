@@ -507,3 +507,64 @@ def _require(
             "conductance)",
             location=("parts", element.name),
         )
+
+
+def _named(branch: Branch) -> str:
+    kind = branch.kind.replace("_", " ")
+    return f"{kind} {branch.name}"
+
+
+def _signed_sum(prefix: str, terms: list[tuple[int, int]], branches: list[Branch]) -> str:
+    """``v_C3 - v_C1`` from ``[(branch, sign)]``."""
+    text = ""
+    for k, sign in terms:
+        name = f"{prefix}_{branches[k].name}"
+        if not text:
+            text = name if sign > 0 else f"-{name}"
+        else:
+            text += f" + {name}" if sign > 0 else f" - {name}"
+    return text
+
+
+def excess_notes(topology: Topology) -> dict[int, str]:
+    """Why each excess capacitor and inductor has no state of its own, by branch index.
+
+    A link capacitor closes a loop of capacitors and voltage-type parts: its voltage is
+    fixed by them, and its current is its capacitance times their rate of change. A tree
+    inductor lies in a cutset of inductors and current-type parts: its current is fixed by
+    them, its voltage is its inductance times their rate of change (the normal-tree rule
+    in the module docstring).
+    """
+    branches = topology.branches
+    # (excess parts, source category, where to say it is, what fixes, what it fixes, derived)
+    kinds = (
+        (topology.excess_capacitors, "voltage", "directly across", "loop", "v", "current"),
+        (topology.excess_inductors, "current", "in series with", "cutset", "i", "voltage"),
+    )
+    notes = {}
+    for excess, source, alone, group, symbol, derived in kinds:
+        fixed = "voltage" if symbol == "v" else "current"
+        for index, terms in excess.items():
+            part = branches[index].name
+            others = [branches[k] for k, _ in terms]
+            if len(others) == 1 and others[0].category == source:
+                where = f"it is {alone} {_named(others[0])}"
+            else:
+                verb = "closes a loop" if group == "loop" else "lies in a cutset"
+                where = f"it {verb} with " + ", ".join(_named(b) for b in others)
+            notes[index] = (
+                f"{part} has no state of its own: {where}; the {group} fixes its {fixed} "
+                f"({symbol}_{part} = {_signed_sum(symbol, terms, branches)}), so its "
+                f"{derived} is {part} times the rate of change of that {fixed}"
+            )
+    return notes
+
+
+def excess_through(topology: Topology, branch: int) -> list[int]:
+    """The excess capacitors and inductors whose loop or cutset contains ``branch`` (an
+    input's source): the parts whose current or voltage follows that input's derivative."""
+    found = [
+        k for k, loop in topology.excess_capacitors.items() if any(b == branch for b, _ in loop)
+    ]
+    found += [k for k, cut in topology.excess_inductors.items() if any(b == branch for b, _ in cut)]
+    return found

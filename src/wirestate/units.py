@@ -222,6 +222,31 @@ def format_quantity(value: float, unit: str, digits: int = 4) -> str:
     return f"{mantissa:.{digits}g} {symbol}{shown}".rstrip()
 
 
+#: a value below this fraction of the size of the terms it was computed from is taken as a
+#: numerical zero when shown (double precision resolves about 1e-16 of each term; sums,
+#: solves and long runs lose a few digits; common practice, no source)
+ROUND_OFF = 1e-12
+
+
+def zero_round_off(values, sizes):
+    """``values`` with every entry below :data:`ROUND_OFF` times its ``sizes`` entry set to
+    zero (arrays or scalars; ``sizes`` broadcast against ``values``). Non-finite values are
+    kept. For display only: a ``-206 fA`` that is round-off of a 20 A signal reads 0."""
+    import numpy as np
+
+    out = np.array(values, dtype=float)
+    size = np.broadcast_to(np.abs(np.asarray(sizes, dtype=float)), out.shape)
+    small = np.isfinite(out) & (np.abs(out) < ROUND_OFF * size)
+    out[small] = 0.0
+    return out if out.ndim else float(out)
+
+
+def format_count(n: int, noun: str) -> str:
+    """``"1 state"``, ``"3 states"``: a count with its (regular English) noun in the right
+    number."""
+    return f"{n} {noun}" if n == 1 else f"{n} {noun}s"
+
+
 def _lead(field: str) -> str:
     return f"{field}: " if field else ""
 

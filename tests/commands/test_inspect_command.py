@@ -31,7 +31,9 @@ def test_inspect_json(capsys):
     assert (len(data["B"]), len(data["B"][0])) == (n, m)
     assert (len(data["C"]), len(data["C"][0])) == (p, n)
     assert (len(data["D"]), len(data["D"][0])) == (p, m)
-    assert len(data["poles"]) == n and all(len(pole) == 2 for pole in data["poles"])
+    # one entry per real pole or complex pair; the count states the poles with multiplicity
+    assert data["pole_count"] == n
+    assert sum(2 if p["conjugate_pair"] else 1 for p in data["poles"]) == n
 
 
 @pytest.mark.parametrize(

@@ -64,3 +64,14 @@ def test_too_large_block_is_one_line(tmp_path, capsys):
     err = capsys.readouterr().err
     assert err.startswith(f"error: {path}: circuit: ") and err.count("\n") == 1
     assert "reduce it first" in err
+
+
+def test_sensitivity_of_a_system_file_is_refused_in_one_line(capsys):
+    # elasticities are defined here for circuit files; a system file gets one line naming
+    # the option, and no partial output
+    path = "models/systems/battery_drive.toml"
+    assert main(["inspect", path, "--sensitivity"]) == 2
+    captured = capsys.readouterr()
+    assert captured.out == ""
+    assert captured.err.startswith(f"error: {path}") and captured.err.count("\n") == 1
+    assert "--sensitivity" in captured.err

@@ -286,3 +286,18 @@ def test_a_changed_sample_time_needs_update_which_derives_a_new_grid(tmp_path, c
     assert main(["regress", *args, "--update"]) == 0
     assert "new sample grid" in capsys.readouterr().out
     assert main(["regress", *args]) == 0
+
+
+def test_a_new_model_is_told_how_to_create_its_own_golden_file_only(tmp_path, capsys):
+    # the hint names the one file: `--update` of everything would rewrite every golden file
+    models, goldens = tmp_path / "models", tmp_path / "golden"
+    models.mkdir()
+    new = models / "new_filter.toml"
+    shutil.copy(MODELS / "drive_bus_filter.toml", new)
+    assert main(["regress", str(new), "--golden", str(goldens)]) == 2
+    err = capsys.readouterr().err
+    hint = f"wirestate regress --update --golden {goldens} {new}"
+    assert hint in err
+    # and the hint works: only that golden file appears
+    assert main(hint.split()[1:]) == 0
+    assert [p.name for p in goldens.rglob("*.json")] == ["new_filter.json"]

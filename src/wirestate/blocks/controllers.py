@@ -155,10 +155,19 @@ class PIDController:
 
     @property
     def units(self) -> dict[str, str]:
+        """Unit of every signal and state: the integral, the derivative term and a delayed
+        command carry the command's unit; the derivative filter and the last measurement
+        the measured signal's."""
+        measured = self.measurement_unit
         return {
             "command": self.unit,
-            "reference": self.measurement_unit,
-            "measurement": self.measurement_unit,
+            "reference": measured,
+            "measurement": measured,
+            "integral": self.unit,
+            "derivative": self.unit,
+            "delayed_command": self.unit,
+            "derivative_filter": measured,
+            "last_measurement": measured,
         }
 
     @property

@@ -6,7 +6,7 @@ import argparse
 
 from wirestate.errors import SimulationError
 from wirestate.export import DEFAULT_STEP, export_fmu
-from wirestate.units import format_quantity, parse_quantity
+from wirestate.units import format_count, format_quantity, parse_quantity
 
 CAUTION = (
     "caution: models are idealised; verify ratings and thermal design on hardware; "
@@ -41,8 +41,9 @@ def run(args: argparse.Namespace) -> int:
     result = export_fmu(args.model, args.fmu, step=step, sources_only=args.sources_only)
     plan = result.plan
     print(
-        f"{plan.name}: {len(plan.inputs)} inputs, {len(plan.outputs)} outputs, "
-        f"{len(plan.states)} continuous and {len(plan.sampled_states)} sampled states; "
+        f"{plan.name}: {format_count(len(plan.inputs), 'input')}, "
+        f"{format_count(len(plan.outputs), 'output')}, {len(plan.states)} continuous and "
+        f"{format_count(len(plan.sampled_states), 'sampled state')}; "
         f"default step {format_quantity(plan.step, 's')}"
     )
     built = "binaries/linux64 and sources/" if result.has_binary else "sources/ only (no binary)"

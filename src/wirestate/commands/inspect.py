@@ -1,4 +1,10 @@
-"""``wirestate inspect MODEL``: states, inputs, outputs, modes and DC gains of a circuit."""
+"""``wirestate inspect FILE``: what a circuit, system or tuning file holds.
+
+Circuits: states, inputs, outputs, modes and DC gains. Systems: blocks, their signals with
+units, the wiring and the loop's poles. Tuning files: the model being tuned, the design
+variables, limits and the loop's poles at the starting values
+(:mod:`wirestate.report.describe`).
+"""
 
 from __future__ import annotations
 
@@ -8,12 +14,12 @@ import sys
 
 
 def configure(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("model", help="circuit model file (TOML)")
+    parser.add_argument("model", help="circuit, system or tuning file (TOML)")
     parser.add_argument("--json", action="store_true", help="print one JSON object instead")
     parser.add_argument(
         "--plot",
         metavar="FILE",
-        help="write a pole map and Bode plots (PNG or SVG, by suffix)",
+        help="write a mode map and Bode plots (PNG or SVG, by suffix)",
     )
     parser.add_argument(
         "--pair",
@@ -32,17 +38,16 @@ def configure(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     # imported here, not at module level: the CLI imports this module to configure the
     # parser, and `wirestate inspect --help` should not pay for numpy/scipy
-    from wirestate.reduce import load_block
-    from wirestate.report.tables import block_json, block_summary
+    from wirestate.report.describe import inspect_file
 
     if args.plot:
         from wirestate.report.figure import figure_format
 
         figure_format(args.plot)  # a bad file name fails before any output
-    block = load_block(args.model)
-    sensitivity = _sensitivity(block, args.model) if args.sensitivity else None
+    found = inspect_file(args.model)
+    sensitivity = _sensitivity(found, args.model) if args.sensitivity else None
     if args.json:
-        data = block_json(block)
+        data = dict(found.data)
         if sensitivity is not None:
             from wirestate.report.sensitivity_table import sensitivity_json
 
@@ -50,17 +55,17 @@ def run(args: argparse.Namespace) -> int:
         json.dump(data, sys.stdout, indent=2)
         sys.stdout.write("\n")
     else:
-        print(block_summary(block))
+        print(found.summary)
         if sensitivity is not None:
             from wirestate.report.sensitivity_table import sensitivity_text
 
             print()
             print(sensitivity_text(sensitivity))
     if args.plot:
-        from wirestate.report.inspect_plot import plot_inspect
+        from wirestate.report.inspect_plot import plot_inspection
 
-        pairs = [_pair(text, block) for text in args.pair] or None
-        plot_inspect(block, args.plot, pairs=pairs)
+        pairs = [_pair(text, found.linear) for text in args.pair] or None
+        plot_inspection(found, args.plot, pairs=pairs)
         print(f"wrote {args.plot}", file=sys.stderr)
     return 0
 
@@ -69,6 +74,10 @@ def _pair(text: str, block) -> tuple[str, str]:
     from wirestate.errors import SimulationError
 
     source, _, output = text.partition(":")
+    if block is None:
+        raise SimulationError(
+            "unknown_signal", f"--pair {text!r}: this loop has no frequency response to draw"
+        )
     if source not in block.inputs or output not in block.outputs:
         raise SimulationError(
             "unknown_signal",
@@ -78,11 +87,19 @@ def _pair(text: str, block) -> tuple[str, str]:
     return source, output
 
 
-def _sensitivity(block, path: str):
-    from wirestate.errors import WirestateError
+def _sensitivity(found, path: str):
+    from wirestate.errors import ModelFileError, WirestateError
     from wirestate.sensitivity import circuit_sensitivities
 
+    spec = getattr(found.linear, "spec", None)
+    if found.data.get("kind") != "circuit" or spec is None:
+        raise ModelFileError(
+            "wrong_file_kind",
+            "--sensitivity: elasticities are given for circuit files; inspect the circuit "
+            "file of this model",
+            file=path,
+        )
     try:
-        return circuit_sensitivities(block.spec)
+        return circuit_sensitivities(spec)
     except WirestateError as exc:
         raise exc.with_file(path) from None

@@ -7,7 +7,7 @@ import sys
 from pathlib import Path
 
 from wirestate.errors import SimulationError
-from wirestate.units import format_quantity, parse_quantity
+from wirestate.units import format_count, format_quantity, parse_quantity
 
 #: runs with more steps than this report progress on stderr
 PROGRESS_STEPS = 100_000
@@ -31,6 +31,21 @@ def configure(parser: argparse.ArgumentParser) -> None:
         "Vs=sinusoid:10V,50Hz,mean=48V, Vs=points:0s=0V,1ms=48V, Vs=csv:drive.csv "
         "(repeatable); sources with a 'value' "
         "default are driven by it otherwise",
+    )
+    parser.add_argument(
+        "--initial",
+        choices=("parts", "steady_state", "zero"),
+        default="parts",
+        help="start from the parts' 'initial' fields (default, zero elsewhere), from zero, "
+        "or from the steady state at the inputs' values at t = 0",
+    )
+    parser.add_argument(
+        "--initial-value",
+        action="append",
+        default=[],
+        metavar="STATE=VALUE",
+        help="set one state at t = 0 on top of --initial, e.g. v_Cf=42V or bus.v_Cbus=48V "
+        "(repeatable; a shifted state by its physical name too)",
     )
     parser.add_argument("--csv", metavar="FILE", help="write time and every output (SI units)")
     parser.add_argument("--plot", metavar="FILE", help="draw the outputs to a PNG file")
@@ -74,6 +89,8 @@ def run(args: argparse.Namespace) -> int:
     else:
         model = compile_circuit(parse_circuit(data, file=str(path)))
         options = {}
+    if args.initial != "parts" or args.initial_value:
+        model = _start(model, args, assignments, path)
     steps = until / step
     progress = _progress if steps > PROGRESS_STEPS else None
     if args.csv and not args.plot and _streams(model, until, step):
@@ -91,7 +108,8 @@ def run(args: argparse.Namespace) -> int:
         )
     except SimulationError as exc:
         raise exc.with_file(str(path)) from None
-    print(f"{result.name}: {len(result.time) - 1} steps of {format_quantity(step, 's')} "
+    print(f"{result.name}: {format_count(len(result.time) - 1, 'step')} of "
+          f"{format_quantity(step, 's')} "
           f"to {format_quantity(until, 's')}; {result.method}")  # fmt: skip
     rows = [(row[-1], row.min(), row.max()) for row in result.outputs]
     _print_summary(result.output_names, result.units, rows)
@@ -105,6 +123,29 @@ def run(args: argparse.Namespace) -> int:
         print(f"wrote {written}")
     print(CAUTION)
     return 0
+
+
+def _start(model, args: argparse.Namespace, assignments: dict, path: Path):
+    """The model starting where ``--initial`` and ``--initial-value`` say."""
+    from wirestate.simulate.initial import start_from
+
+    values = {}
+    for text in args.initial_value:
+        name, sep, value = text.partition("=")
+        if not sep or not name.strip() or not value.strip():
+            raise SimulationError(
+                "invalid_field",
+                f"--initial-value: expected STATE=VALUE such as v_Cf=42V, got {text!r}",
+                file=str(path),
+            )
+        values[name.strip()] = value.strip()
+    try:
+        start = start_from(model, args.initial, values, assignments, base=Path.cwd())
+    except SimulationError as exc:
+        raise exc.with_file(str(path)) from None
+    for note in start.notes:
+        print(f"note: {note}")
+    return start.model
 
 
 def _check_before_work(args: argparse.Namespace) -> None:
@@ -142,7 +183,8 @@ def _run_streamed(model, until, step, assignments, args, progress, path) -> int:
         )  # fmt: skip
     except SimulationError as exc:
         raise exc.with_file(str(path)) if exc.file is None else exc from None
-    print(f"{summary.name}: {summary.samples - 1} steps of {format_quantity(step, 's')} "
+    print(f"{summary.name}: {format_count(summary.samples - 1, 'step')} of "
+          f"{format_quantity(step, 's')} "
           f"to {format_quantity(until, 's')}; {summary.method}")  # fmt: skip
     rows = list(zip(summary.final, summary.minimum, summary.maximum, strict=True))
     _print_summary(summary.output_names, summary.units, rows)
@@ -152,6 +194,10 @@ def _run_streamed(model, until, step, assignments, args, progress, path) -> int:
 
 
 def _print_summary(names: list[str], units: dict[str, str], rows: list[tuple]) -> None:
+    from wirestate.units import zero_round_off
+
+    # a value far below the largest the output reached in the run is round-off: show 0
+    rows = [zero_round_off(row, max(abs(float(v)) for v in row)) for row in rows]
     width = max([len(n) for n in names] + [6])
     print(f"  {'output':<{width}}  {'final':>14}  {'min':>14}  {'max':>14}")
     for name, values in zip(names, rows, strict=True):

@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.report.figure import save_figure
+from wirestate.report.figure import PALETTE, legend_outside, save_figure
 from wirestate.units import format_quantity
 
 _FAIL = "#c8553d"
@@ -73,12 +73,13 @@ def plot_yield(result: Any, path: str | Path) -> Path:
     for j, limit in enumerate(limits):
         rho = {d["part"]: d["rank_correlation"] for d in result.drivers[limit["name"]]}
         y = np.arange(len(names)) + j * height
-        ax.barh(y, [rho.get(n, 0.0) for n in names], height=height, label=limit["name"])
+        ax.barh(y, [rho.get(n, 0.0) for n in names], height=height, label=limit["name"],
+                color=PALETTE[j % len(PALETTE)])  # fmt: skip
     ax.set_yticks(np.arange(len(names)) + 0.4 - height / 2, names)
     ax.set_xlim(-1, 1)
     ax.axvline(0.0, color="black", lw=0.8)
     ax.set_xlabel("Spearman rank correlation with the margin")
-    ax.legend(fontsize=6, loc="best")
+    legend_outside(ax)
     for extra in flat[panels:]:
         extra.set_visible(False)
     low, high = result.interval
@@ -141,7 +142,7 @@ def _plot_line(plt: Any, result: Any, path: str | Path) -> Path:
     x = np.asarray(axis["values"])
     fig, ax = plt.subplots(figsize=(8.0, 4.0))
     for j, limit in enumerate(result.limits):
-        ax.plot(x, result.relative[:, j], label=limit["name"])
+        ax.plot(x, result.relative[:, j], label=limit["name"], color=PALETTE[j % len(PALETTE)])
     ax.axhline(0.0, color="black", lw=0.8)
     feasible = result.feasible
     for k in range(len(x) - 1):
@@ -156,6 +157,6 @@ def _plot_line(plt: Any, result: Any, path: str | Path) -> Path:
         f"({format_quantity(x[0], axis['unit'])} to {format_quantity(x[-1], axis['unit'])})",
         fontsize=9,
     )
-    ax.legend(fontsize=7)
+    legend_outside(ax)
     fig.tight_layout()
     return save_figure(fig, path)

@@ -324,6 +324,9 @@ def regress_file(
             existing_text = target.read_text(encoding="utf-8")
         except RegressionError as exc:
             if not update:
+                if exc.code == "golden_missing":
+                    exc.message = _create_hint(path, golden_dir)
+                    exc.args = (str(exc),)
                 raise
             if exc.code == "invalid_golden":
                 outcome.message = f"replacing unreadable golden file ({exc.message})"
@@ -384,6 +387,15 @@ def regress_file(
         outcome.status, outcome.message = "error", str(exc)
     outcome.seconds = time.perf_counter() - start
     return outcome
+
+
+def _create_hint(model: Path, golden_dir: str | Path) -> str:
+    """How to create the golden file of this one model, and only that one."""
+    option = "" if Path(golden_dir) == Path("models/golden") else f" --golden {golden_dir}"
+    return (
+        f"no golden file; run `wirestate regress --update{option} {model}` to create it "
+        "(only this file's golden file is written), then review and commit it"
+    )
 
 
 def _relative_name(model: Path, golden_dir: str | Path) -> str:

@@ -1,7 +1,11 @@
-"""The ``inspect --plot`` figure: pole map and Bode magnitude/phase of a block.
+"""The ``inspect --plot`` figure: a mode map and Bode magnitude/phase of a block or loop.
 
-matplotlib (Agg back end, no display needed) is imported inside :func:`plot_inspect` only,
-so nothing else in wirestate pays for it.
+The mode map puts every mode at its natural frequency (logarithmic axis, Hz) and damping
+ratio, so a 10 Hz mechanical mode and a 10 kHz filter resonance are both read at a glance;
+a plot of the s-plane on linear axes squeezes the slow one onto the origin. Each mode is
+labelled with its frequency, labels are placed so that none overlaps another. Magnitudes
+are drawn on one axis per ratio of units (V/V, Ω, S...), never two units on one axis.
+matplotlib (Agg back end, no display needed) is imported inside the functions only.
 """
 
 from __future__ import annotations
@@ -14,16 +18,27 @@ from typing import Any
 import numpy as np
 
 from wirestate.errors import ModelFileError, WirestateError
-from wirestate.report.figure import figure_format, save_figure
+from wirestate.report.figure import (
+    DASHES,
+    INK,
+    PALETTE,
+    annotate_apart,
+    axis_label,
+    figure_format,
+    legend_outside,
+    new_figure,
+    save_figure,
+    style_axes,
+    unit_text,
+)
 from wirestate.report.signature import as_linear_model, frequency_response, sorted_poles
+from wirestate.report.tables import clean_poles
+from wirestate.units import format_quantity
 
 #: at most this many input->output pairs are drawn when none are chosen
 MAX_DEFAULT_PAIRS = 6
-
-# colours of our own: a dark slate for poles, then a muted cycle for the Bode traces
-_POLE_COLOUR = "#2f4858"
-_LINE_STYLES = ("-", "--", "-.", ":")
-_TRACE_COLOURS = ("#c8553d", "#28666e", "#f2a541", "#5b5f97", "#7c9885", "#b5838d")
+#: at most this many modes carry a label (the least damped first)
+MAX_MODE_LABELS = 14
 
 
 def bode_frequencies(poles: np.ndarray, points_per_decade: int = 60) -> np.ndarray:
@@ -90,124 +105,186 @@ def _pairs(model: Any, pairs: Sequence[tuple[str, str]] | None) -> list[tuple[in
     return out
 
 
-def _ratio_unit(units: dict[str, str], out: str, inp: str) -> str:
+def magnitude_axis(units: dict[str, str], out: str, inp: str) -> tuple[str, str]:
+    """``(key, y-label)`` of the magnitude axis of one input->output pair: pairs share an
+    axis only when their output and input units are the same."""
     a, b = units.get(out, ""), units.get(inp, "")
     if not a or not b:
-        return ""
-    return "1" if a == b else f"{a}/{b}"
+        return "?", "gain (dB of the SI ratio; units not known)"
+    if (a, b) == ("V", "A"):
+        return "ohm", axis_label("|Z|", "dB re 1 Ω")
+    if (a, b) == ("A", "V"):
+        return "S", axis_label("|Y|", "dB re 1 S")
+    ratio = f"{unit_text(a)}/{unit_text(b)}"
+    return f"{a}/{b}", axis_label("|gain|", f"dB re 1 {ratio}")
 
 
-def plot_inspect(
-    block: Any, path: str | Path, pairs: Sequence[tuple[str, str]] | None = None
-) -> Path:
-    """Draw the pole map and the Bode plot of a block into a PNG or SVG file.
+def inspect_figure(
+    block: Any,
+    pairs: Sequence[tuple[str, str]] | None = None,
+    *,
+    poles: np.ndarray | None = None,
+    name: str | None = None,
+) -> Any:
+    """The mode map and Bode plot of ``block`` as a matplotlib ``Figure``.
 
     Parameters
     ----------
     block
-        A :class:`wirestate.lti.CircuitBlock` (or a continuous ``control.StateSpace``).
-    path
-        Output file; the suffix (``.png`` or ``.svg``) picks the format. Written
-        atomically (temporary file in the same folder, then rename).
+        A :class:`wirestate.lti.CircuitBlock`, a continuous ``control.StateSpace``, anything
+        with ``A, B, C, D`` and signal names, or ``None`` (modes only).
     pairs
         ``(input, output)`` names to draw; by default every pair, at most
         :data:`MAX_DEFAULT_PAIRS`.
+    poles
+        Poles to map (rad/s); by default the eigenvalues of ``block``'s ``A``.
+    name
+        Title; by default the block's name.
+    """
+    model = as_linear_model(block) if block is not None else None
+    units = dict(getattr(block, "units", {}) or {})
+    chosen = _pairs(model, pairs) if model is not None else []
+    if poles is None:
+        poles = sorted_poles(model.A) if model is not None else np.zeros(0, dtype=complex)
+    title = name or (model.name if model is not None else "")
 
-    Returns
-    -------
-    Path
-        The file written. The pole map shows the s-plane in rad/s (a symmetric-log scale
-        when the poles span more than three decades); the Bode plot shows magnitude in dB
-        (of the SI ratio output/input) and phase in degrees against frequency in Hz.
+    groups: dict[str, tuple[str, list[tuple[int, int]]]] = {}
+    for j, i in chosen:
+        key, label = magnitude_axis(units, model.outputs[i], model.inputs[j])
+        groups.setdefault(key, (label, []))[1].append((j, i))
+    rows = max(len(groups), 1) + 1
+    fig = new_figure(12.0, max(5.6, 1.9 * rows + 1.2))
+    grid = fig.add_gridspec(rows, 2, width_ratios=(1.0, 1.35))
+    ax_modes = fig.add_subplot(grid[:, 0])
+    fig.suptitle(f"{title}: modes and frequency response", fontsize=12)
+    _draw_modes(fig, ax_modes, np.asarray(poles, dtype=complex))
+
+    first = fig.add_subplot(grid[0, 1])
+    mags = [first] + [fig.add_subplot(grid[r, 1], sharex=first) for r in range(1, rows - 1)]
+    ax_phase = fig.add_subplot(grid[rows - 1, 1], sharex=first)
+    if not chosen:
+        first.text(0.5, 0.5, "no frequency response to draw", ha="center",
+                   transform=first.transAxes)  # fmt: skip
+        first.set_axis_off()
+        ax_phase.set_axis_off()
+        return fig
+    finite = np.asarray(poles, dtype=complex)
+    omegas = bode_frequencies(finite[np.isfinite(finite)])
+    H = frequency_response(model, omegas)
+    hertz = omegas / (2 * math.pi)
+    k = 0
+    for ax, (label, members) in zip(mags, groups.values(), strict=True):
+        for j, i in members:
+            response = H[:, i, j]
+            style = {"color": PALETTE[k % len(PALETTE)], "linestyle": DASHES[j % len(DASHES)],
+                     "linewidth": 1.4}  # fmt: skip
+            text = f"{model.inputs[j]} → {model.outputs[i]}"
+            with np.errstate(divide="ignore"):
+                ax.semilogx(hertz, 20 * np.log10(np.abs(response)), label=text, **style)
+            ax_phase.semilogx(hertz, np.degrees(np.unwrap(np.angle(response))), **style)
+            k += 1
+        ax.set_ylabel(label)
+        legend_outside(ax)
+        style_axes(ax)
+        ax.tick_params(labelbottom=False)
+    first.set_title("frequency response")
+    ax_phase.set_ylabel(axis_label("phase", "°"))
+    ax_phase.set_xlabel(axis_label("frequency", "Hz"))
+    style_axes(ax_phase)
+    return fig
+
+
+def plot_inspect(
+    block: Any,
+    path: str | Path,
+    pairs: Sequence[tuple[str, str]] | None = None,
+    *,
+    poles: np.ndarray | None = None,
+    name: str | None = None,
+) -> Path:
+    """Draw :func:`inspect_figure` into a PNG or SVG file (by suffix), atomically.
+
+    Returns the path written.
     """
     path = Path(path)
     figure_format(path)  # refuse an unknown suffix before any drawing
-    # an Agg canvas on a bare Figure: no pyplot, no global back-end switch, no display
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
+    return save_figure(inspect_figure(block, pairs, poles=poles, name=name), path, dpi=130)
 
-    model = as_linear_model(block)
-    units = dict(getattr(block, "units", {}) or {})
-    chosen = _pairs(model, pairs)
-    poles = sorted_poles(model.A)
 
-    fig = Figure(figsize=(11.0, 6.2), layout="constrained")
-    grid = fig.add_gridspec(2, 2, width_ratios=(1.0, 1.35))
-    ax_poles = fig.add_subplot(grid[:, 0])
-    ax_mag = fig.add_subplot(grid[0, 1])
-    ax_phase = fig.add_subplot(grid[1, 1], sharex=ax_mag)
-    FigureCanvasAgg(fig)
-    fig.suptitle(f"{model.name}: poles and frequency response", fontsize=12)
+def _mode_points(poles: np.ndarray) -> tuple[list[tuple[float, float, bool]], int, int]:
+    """``(frequency in Hz, damping ratio, is a pair)`` per mode, and the counts of poles at
+    s = 0 and of pure delays (a sampled loop's z = 0), which a log axis cannot show."""
+    points, origin, delays = [], 0, 0
+    for p in clean_poles(poles):
+        if not np.isfinite(p):
+            delays += 1
+        elif p == 0:
+            origin += 1
+        elif p.imag >= 0:
+            wn = abs(p)
+            points.append((wn / (2 * math.pi), -p.real / wn, bool(p.imag > 0)))
+    return points, origin, delays
 
-    _draw_poles(ax_poles, poles)
 
-    omegas = bode_frequencies(poles)
-    H = frequency_response(model, omegas) if chosen else None
-    hertz = omegas / (2 * math.pi)
-    for k, (j, i) in enumerate(chosen):
-        response = H[:, i, j]
-        colour = _TRACE_COLOURS[k % len(_TRACE_COLOURS)]
-        style = _LINE_STYLES[j % len(_LINE_STYLES)]  # one dash pattern per input
-        unit = _ratio_unit(units, model.outputs[i], model.inputs[j])
-        label = f"{model.inputs[j]} → {model.outputs[i]}" + (f" [{unit}]" if unit else "")
-        with np.errstate(divide="ignore"):
-            ax_mag.semilogx(
-                hertz, 20 * np.log10(np.abs(response)), color=colour, linestyle=style, label=label
-            )
-        ax_phase.semilogx(
-            hertz, np.degrees(np.unwrap(np.angle(response))), color=colour, linestyle=style
-        )
-    ax_mag.set_ylabel("magnitude [dB re 1 SI unit of output/input]")
-    ax_phase.set_ylabel("phase [degrees]")
-    ax_phase.set_xlabel("frequency [Hz]")
-    ax_mag.set_title("Bode plot")
-    for ax in (ax_mag, ax_phase):
-        ax.grid(True, which="both", color="#d9d9d9", linewidth=0.6)
-    if chosen:
-        ax_mag.legend(fontsize=8, loc="best", frameon=False)
+def _draw_modes(fig: Any, ax: Any, poles: np.ndarray) -> None:
+    ax.set_title("modes", pad=22)
+    ax.set_xlabel(axis_label("natural frequency", "Hz"))
+    ax.set_ylabel("damping ratio")
+    style_axes(ax)
+    points, origin, delays = _mode_points(poles)
+    if not points:
+        ax.text(0.5, 0.5, "no modes (a static block)" if not origin else "", ha="center",
+                transform=ax.transAxes)  # fmt: skip
     else:
-        ax_mag.text(0.5, 0.5, "no inputs or outputs", ha="center", transform=ax_mag.transAxes)
+        f = np.array([p[0] for p in points])
+        z = np.array([p[1] for p in points])
+        pair = np.array([p[2] for p in points])
+        from matplotlib.ticker import LogLocator, NullFormatter
 
-    save_figure(fig, path, dpi=130)
-    return path
-
-
-def _draw_poles(ax: Any, poles: np.ndarray) -> None:
-    ax.set_title("pole map")
-    ax.axhline(0.0, color="#8a8a8a", linewidth=0.8)
-    ax.axvline(0.0, color="#8a8a8a", linewidth=0.8)
-    if poles.size:
-        ax.scatter(
-            poles.real, poles.imag, marker="x", s=60, color=_POLE_COLOUR, zorder=3, label="poles"
+        ax.set_xscale("log")
+        # whole decades at both ends, so every major tick is a labelled power of ten
+        ax.set_xlim(
+            10 ** math.floor(math.log10(f.min() / 3)), 10 ** math.ceil(math.log10(f.max() * 3))
         )
-        mags = np.abs(poles)
-        nonzero = mags[mags > 0]
-        if nonzero.size and nonzero.max() / nonzero.min() > 1e3:
-            # poles over many decades (stiff circuit + mechanics): symmetric log axes
-            threshold = float(nonzero.min())
-            ax.set_xscale("symlog", linthresh=threshold)
-            ax.set_yscale("symlog", linthresh=threshold)
-        else:
-            from matplotlib.ticker import MaxNLocator
+        ax.xaxis.set_major_locator(LogLocator(base=10))
+        ax.xaxis.set_minor_formatter(NullFormatter())
+        low = min(-0.1, float(z.min()) - 0.1)
+        ax.set_ylim(low, 1.12)
+        ax.axhspan(low, 0.0, color=PALETTE[1], alpha=0.08, linewidth=0)
+        ax.axhline(0.0, color=INK, linewidth=0.8)
+        ax.text(0.99, 0.02, "unstable below 0", transform=ax.transAxes, ha="right",
+                va="bottom", fontsize=7, color=INK)  # fmt: skip
+        ax.scatter(f[pair], z[pair], marker="o", s=42, color=PALETTE[0], zorder=3,
+                   label="complex pair")  # fmt: skip
+        ax.scatter(f[~pair], z[~pair], marker="s", s=34, color=PALETTE[2], zorder=3,
+                   label="real pole")  # fmt: skip
+        ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=2, frameon=False,
+                  fontsize=8, borderaxespad=0.2)  # fmt: skip
+        _label_modes(fig, ax, points)
+    hidden = []
+    if origin:
+        hidden.append(f"{origin} pole{'s' if origin > 1 else ''} at s = 0")
+    if delays:
+        hidden.append(f"{delays} one-sample delay{'s' if delays > 1 else ''} (z = 0)")
+    if hidden:
+        ax.text(0.01, 0.02, "; ".join(hidden) + ": not on a log axis", transform=ax.transAxes,
+                fontsize=7, color=INK)  # fmt: skip
 
-            reach = float(mags.max()) * 1.15 if mags.max() > 0 else 1.0
-            ax.set_xlim(-reach, reach * 0.15)
-            ax.set_ylim(-reach, reach)
-            ax.xaxis.set_major_locator(MaxNLocator(5))
-            ax.ticklabel_format(style="sci", scilimits=(-3, 3))
-        for p in poles:
-            if p.imag >= 0 and abs(p) > 0:
-                zeta = -p.real / abs(p)
-                ax.annotate(
-                    f"ωn={abs(p):.3g}, ζ={zeta:.2f}",
-                    (p.real, p.imag),
-                    textcoords="offset points",
-                    xytext=(6, 6),
-                    fontsize=7,
-                    color=_POLE_COLOUR,
-                )
-    else:
-        ax.text(0.5, 0.5, "no states (static block)", ha="center", transform=ax.transAxes)
-    ax.set_xlabel("real part σ [rad/s]")
-    ax.set_ylabel("imaginary part ω [rad/s]")
-    ax.grid(True, color="#e3e3e3", linewidth=0.6)
+
+def _label_modes(fig: Any, ax: Any, points: list[tuple[float, float, bool]]) -> None:
+    """One label per mode (the least damped first, at most :data:`MAX_MODE_LABELS`), none
+    overlapping another."""
+    fig.canvas.draw()  # lay the axes out first: the labels are placed in display space
+    order = sorted(range(len(points)), key=lambda k: points[k][1])[:MAX_MODE_LABELS]
+    placed: list[Any] = []
+    for k in sorted(order, key=lambda k: points[k][0]):
+        f, zeta, pair = points[k]
+        text = format_quantity(f, "Hz", 3) + (f", ζ {zeta:.2f}" if pair else "")
+        annotate_apart(ax, (f, zeta), text, placed, fontsize=7, color=INK)
+
+
+def plot_inspection(
+    found: Any, path: str | Path, pairs: Sequence[tuple[str, str]] | None = None
+) -> Path:
+    """Draw an :class:`~wirestate.report.describe.Inspection` (any file kind) to ``path``."""
+    return plot_inspect(found.linear, path, pairs=pairs, poles=found.poles, name=found.name)

@@ -6,12 +6,16 @@ from pathlib import Path
 from typing import Any
 
 from wirestate.errors import SimulationError
-from wirestate.report.figure import save_figure
-
-#: our own palette: slate, amber, teal, brick, olive, plum
-PALETTE = ("#3b4a5a", "#d08c20", "#1f8a84", "#a8432f", "#6f7d2b", "#7a4a7f")
-
-_TIME_SCALES = ((1e-6, "µs"), (1e-3, "ms"), (1.0, "s"))
+from wirestate.report.figure import (
+    DASHES,
+    PALETTE,
+    axis_label,
+    legend_outside,
+    quantity_of,
+    save_figure,
+    style_axes,
+    time_scale,
+)
 
 
 def plot_simulation(result: Any, path: str | Path, *, title: str | None = None) -> Path:
@@ -37,22 +41,22 @@ def plot_simulation(result: Any, path: str | Path, *, title: str | None = None) 
     if not groups:
         groups["-"] = []
     span = float(result.time[-1]) if len(result.time) else 1.0
-    scale, label = next(((s, u) for s, u in _TIME_SCALES if span < 1000 * s), (1.0, "s"))
+    scale, label = time_scale(span)
     fig, axes = plt.subplots(
-        len(groups), 1, sharex=True, figsize=(8.0, 1.2 + 2.2 * len(groups)), squeeze=False
-    )
+        len(groups), 1, sharex=True, figsize=(9.0, 1.2 + 2.2 * len(groups)), squeeze=False,
+        layout="constrained",
+    )  # fmt: skip
     t = result.time / scale
     for ax, (unit, rows) in zip(axes[:, 0], groups.items(), strict=True):
         for n, i in enumerate(rows):
             ax.plot(t, result.outputs[i], color=PALETTE[n % len(PALETTE)], linewidth=1.3,
+                    linestyle=DASHES[(n // len(PALETTE)) % len(DASHES)],
                     label=result.output_names[i])  # fmt: skip
-        ax.set_ylabel(f"[{unit}]" if unit != "-" else "value")
-        ax.grid(True, color="#d9d9d9", linewidth=0.6)
-        ax.spines[["top", "right"]].set_visible(False)
+        ax.set_ylabel(axis_label(quantity_of(unit), unit) if unit != "-" else "value")
+        style_axes(ax)
         if rows:
-            ax.legend(loc="best", fontsize=8, frameon=False)
-    axes[-1, 0].set_xlabel(f"time [{label}]")
+            legend_outside(ax)
+    axes[-1, 0].set_xlabel(axis_label("time", label))
     fig.suptitle(title or result.name, x=0.02, ha="left", fontsize=11)
-    fig.tight_layout()
     save_figure(fig, path, dpi=110)
     return path

@@ -8,7 +8,9 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.lti import LARGE_BLOCK_STATES, CircuitBlock, extreme_poles, modes
+from wirestate.lti import LARGE_BLOCK_STATES, CircuitBlock, dc_gain_limit, extreme_poles, modes
+from wirestate.units import format_count as count
+from wirestate.units import zero_round_off
 
 
 def table(headers: Sequence[str], rows: Sequence[Sequence[Any]], *, indent: str = "  ") -> str:
@@ -44,8 +46,8 @@ def _cell(value: Any) -> str:
 
 def block_summary(block: CircuitBlock) -> str:
     """The text ``wirestate inspect`` prints."""
-    out = [f"block {block.name}: {block.n_states} states, {len(block.inputs)} inputs, "]
-    out[0] += f"{len(block.outputs)} outputs"
+    out = [f"block {block.name}: {count(block.n_states, 'state')}, "]
+    out[0] += f"{count(len(block.inputs), 'input')}, {count(len(block.outputs), 'output')}"
     out.append("")
     out.append("signals")
     listed = block.states if block.n_states <= 40 else block.states[:20]
@@ -91,7 +93,7 @@ def block_summary(block: CircuitBlock) -> str:
     if mode_rows:
         out.append(
             table(
-                ("real [1/s]", "imag [rad/s]", "wn [rad/s]", "fn [Hz]", "damping ratio", "type"),
+                ("real (1/s)", "imag (rad/s)", "wn (rad/s)", "fn (Hz)", "damping ratio", "type"),
                 mode_rows,
             )
         )
@@ -99,7 +101,7 @@ def block_summary(block: CircuitBlock) -> str:
         out.append("  (no states)")
     out.append("")
     out.append("DC gain (output per input, SI units)")
-    gain = _clean(block.dc_gain())
+    gain = zero_round_off(block.dc_gain(), dc_gain_term_sizes(block.A, block.B, block.C, block.D))
     if block.inputs and block.outputs:
         rows = [[name, *map(_gain_cell, gain[i])] for i, name in enumerate(block.outputs)]
         out.append(table(("output \\ input", *block.inputs), rows))
@@ -124,7 +126,7 @@ def _gain_cell(value: float) -> float | str:
 def block_json(block: CircuitBlock) -> dict[str, Any]:
     """JSON-ready description: names, matrices (SI), poles, modes, DC gain."""
     poles = block.poles()
-    gain = block.dc_gain()
+    gain = zero_round_off(block.dc_gain(), dc_gain_term_sizes(block.A, block.B, block.C, block.D))
     return {
         "name": block.name,
         "states": list(block.states),
@@ -137,23 +139,35 @@ def block_json(block: CircuitBlock) -> dict[str, Any]:
         "D": _rows(block.D),
         "x0": [float(v) for v in block.x0],
         "state_offset": _rows(block.state_offset),
-        "poles": [[float(p.real), float(p.imag)] for p in poles],
-        "modes": [
-            {"wn": m["wn"], "zeta": None if math.isnan(m["zeta"]) else m["zeta"]}
-            for m in modes(poles)
-        ],
+        **pole_entries(poles),
         "dc_gain": [[_json_float(v) for v in row] for row in gain],
         "notes": list(block.notes),
     }
 
 
-def _clean(matrix: np.ndarray) -> np.ndarray:
-    """For display: entries below 1e-12 of the largest finite entry are round-off."""
-    out = np.array(matrix, dtype=float)
-    finite = np.isfinite(out)
-    scale = np.abs(out[finite]).max(initial=0.0)
-    out[finite & (np.abs(out) < 1e-12 * scale)] = 0.0
-    return out
+def dc_gain_term_sizes(A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray) -> np.ndarray:
+    """Per entry, the size of the terms a DC gain ``D - C A^-1 B`` is summed from:
+    ``|D| + |C| |A^-1| |B|`` (a componentwise bound of the kind used in rounding-error
+    analysis of linear solves, Higham, Accuracy and Stability of Numerical Algorithms,
+    2nd ed., ch. 7). Blocks above :data:`~wirestate.lti.LARGE_BLOCK_STATES` states use
+    ``|C| |A^-1 B|``; a singular ``A`` the gain's own size. An entry far below its size
+    is round-off of terms that cancel (a capacitor's DC current, say)."""
+    A, B, C, D = (np.asarray(M, dtype=float) for M in (A, B, C, D))
+    n = A.shape[0]
+    if n == 0 or B.shape[1] == 0 or C.shape[0] == 0:
+        return np.abs(D)
+    try:
+        if n <= LARGE_BLOCK_STATES:
+            if np.linalg.cond(A) > 1e14:
+                raise np.linalg.LinAlgError
+            inner = np.abs(np.linalg.inv(A)) @ np.abs(B)
+        else:
+            inner = np.abs(np.linalg.solve(A, B))
+    except np.linalg.LinAlgError:
+        inner = None
+    if inner is None or not np.isfinite(inner).all():
+        return np.abs(dc_gain_limit(A, B, C, D))
+    return np.abs(D) + np.abs(C) @ inner
 
 
 def _rows(matrix: np.ndarray) -> list[list[float]]:
@@ -167,3 +181,99 @@ def _json_float(value: float) -> float | str | None:
     if math.isinf(value):
         return "inf" if value > 0 else "-inf"
     return value
+
+
+#: a pole component below this fraction of the pole's magnitude is round-off (eigenvalues
+#: of a balanced real matrix are accurate to about machine epsilon times its norm; common
+#: practice, no source)
+POLE_ROUND_OFF = 1e-12
+
+
+def clean_poles(poles: np.ndarray) -> np.ndarray:
+    """Poles with real or imaginary parts below :data:`POLE_ROUND_OFF` of ``|p|`` set to 0."""
+    p = np.asarray(poles, dtype=complex).copy()
+    size = np.abs(p)
+    finite = np.isfinite(size)
+    re, im = p.real.copy(), p.imag.copy()
+    re[finite & (np.abs(re) < POLE_ROUND_OFF * size)] = 0.0
+    im[finite & (np.abs(im) < POLE_ROUND_OFF * size)] = 0.0
+    return re + 1j * im
+
+
+def _mode_list(poles: np.ndarray, z: np.ndarray | None) -> list[dict[str, Any]]:
+    """One entry per real pole or complex pair (the member with positive imaginary part),
+    slowest first; a sampled loop's ``z`` is carried along."""
+    p = clean_poles(poles)
+    zs = None if z is None else np.asarray(z, dtype=complex)
+    entries = []
+    for k, pole in enumerate(p):
+        if pole.imag < 0:
+            continue
+        wn = abs(pole)
+        entry = {
+            "real": float(pole.real),
+            "imag": float(pole.imag),
+            "conjugate_pair": bool(pole.imag > 0),
+            "natural_frequency": float(wn),
+            "damping_ratio": float(-pole.real / wn) if 0 < wn < math.inf else None,
+        }
+        if zs is not None:
+            entry["z"] = [float(zs[k].real), float(zs[k].imag)]
+        entries.append(entry)
+    entries.sort(key=lambda e: (e["natural_frequency"], e["imag"]))
+    return entries
+
+
+def pole_entries(poles: np.ndarray, *, z: np.ndarray | None = None) -> dict[str, Any]:
+    """JSON form of poles: each complex pair listed once, its conjugate stated, not repeated.
+
+    Returns ``{"pole_count": n, "poles": [...], "poles_listed": "..."}``; each entry has
+    ``real``, ``imag`` (rad/s, ``imag >= 0``), ``conjugate_pair`` (``true``: ``real - j imag``
+    is a pole as well), ``natural_frequency`` (rad/s) and ``damping_ratio``; a sampled
+    loop's entries carry ``z`` too (a pole at ``z = 0``, a pure delay, has ``real = -inf``).
+    """
+    return {
+        "pole_count": int(np.asarray(poles).size),
+        "poles": [
+            {k: (_json_float(v) if isinstance(v, float) else v) for k, v in e.items()}
+            for e in _mode_list(poles, z)
+        ],
+        "poles_listed": "each complex pair once, with imag > 0; conjugate_pair = true "
+        "means real - j imag is a pole as well",
+    }
+
+
+def pole_table(poles: np.ndarray, *, z: np.ndarray | None = None) -> str:
+    """Text table of poles: one line per real pole or complex pair (units in brackets
+    after the quantity, as in the figures)."""
+    rows = []
+    for e in _mode_list(poles, z):
+        wn = e["natural_frequency"]
+        if not math.isfinite(wn):
+            row = ["-", "-", "-", "-", "-", "z = 0 (one-sample delay)"]
+        else:
+            zeta = e["damping_ratio"]
+            row = [
+                e["real"],
+                e["imag"],
+                wn,
+                wn / (2 * math.pi),
+                float("nan") if zeta is None else zeta,
+                "pair" if e["conjugate_pair"] else "real",
+            ]
+        if z is not None:
+            row.insert(0, float(abs(complex(*e["z"]))))
+        rows.append(row)
+    if not rows:
+        return "  (no poles)"
+    headers = [
+        "real (1/s)",
+        "imag (rad/s)",
+        "wn (rad/s)",
+        "fn (Hz)",
+        "damping ratio",
+        "type",
+    ]
+    if z is not None:
+        headers.insert(0, "|z|")
+    return table(headers, rows)

@@ -14,13 +14,16 @@ from wirestate.errors import SimulationError
 from wirestate.simulate import guards
 from wirestate.simulate.discretize import Discretization, foh, zoh
 from wirestate.simulate.hybrid import simulate_system
+from wirestate.simulate.initial import INITIAL_MODES, InitialState, start_from
 from wirestate.simulate.inputs import InputSet, Waveform, build_inputs, parse_waveform
 from wirestate.simulate.linear import LinearModel, as_linear_model, propagate, simulate_linear
 from wirestate.simulate.results import SimulationResult
 from wirestate.simulate.stepper import Stepper
 
 __all__ = [
+    "INITIAL_MODES",
     "Discretization",
+    "InitialState",
     "InputSet",
     "LinearModel",
     "SimulationResult",
@@ -34,6 +37,7 @@ __all__ = [
     "simulate",
     "simulate_linear",
     "simulate_system",
+    "start_from",
     "zoh",
 ]
 
@@ -48,6 +52,8 @@ def simulate(
     use_defaults: bool = True,
     base: Path | None = None,
     progress: Callable[[float], None] | None = None,
+    initial: str = "parts",
+    initial_values: Mapping[str, str | float] | None = None,
     **options: Any,
 ) -> SimulationResult:
     """Simulate a circuit block, a ``control.StateSpace`` or a composed system.
@@ -55,9 +61,16 @@ def simulate(
     LTI models run by exact ZOH (or FOH with ``hold="foh"``), see
     :func:`~wirestate.simulate.linear.simulate_linear`; systems with sampled or nonlinear
     blocks by :func:`~wirestate.simulate.hybrid.simulate_system` (``options``: ``rtol``,
-    ``atol``).
+    ``atol``). The run starts from ``initial`` (``"parts"``: the parts' ``initial``
+    fields; ``"zero"``; ``"steady_state"``: the equilibrium at the inputs at t = 0) with
+    ``initial_values`` set by state name on top (see
+    :func:`~wirestate.simulate.initial.start_from`).
     """
     guards.check_tolerances(options)
+    if initial != "parts" or initial_values:
+        model = start_from(
+            model, initial, initial_values, inputs, use_defaults=use_defaults, base=base
+        ).model
     # a run that cannot fit is refused before any array is made (issue 10.10)
     nonlinear = isinstance(model, ComposedSystem) and not model.is_linear
     guards.check_run_size(model, until, step, streamable=not nonlinear)

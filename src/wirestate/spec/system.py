@@ -93,6 +93,10 @@ class _Block(_Strict):
 
 
 class CircuitBlockSpec(_Block):
+    """A circuit file as a block. Inputs: its sources (V or A) and electromechanical speeds;
+    outputs: its [outputs] and electromechanical torques or forces; states: v_<capacitor>
+    (V), i_<inductor> (A)."""
+
     kind: Literal["circuit"]
     file: str = Field(description="circuit model file, relative to the system file")
     values: dict[str, str | float] = Field(
@@ -101,17 +105,27 @@ class CircuitBlockSpec(_Block):
 
 
 class RotaryInertiaSpec(_Block):
+    """Rigid rotor. Inputs: torque (N*m), load_torque (N*m); outputs and states: speed
+    (rad/s), angle (rad)."""
+
     kind: Literal["rotary_inertia"]
     inertia: Annotated[float, _q("kg*m^2")] = Field(gt=0)
     friction: Annotated[float, _q("N*m*s/rad")] = Field(default=0.0, ge=0)
 
 
 class GearSpec(_Block):
+    """Ideal gear. Inputs: motor_speed (rad/s), load_torque (N*m); outputs: load_speed
+    (rad/s), motor_torque (N*m); no states."""
+
     kind: Literal["gear"]
     ratio: Gain = Field(gt=0, description="motor speed / load speed")
 
 
 class TorsionalShaftSpec(_Block):
+    """Two inertias on a torsional spring. Inputs: torque (N*m), load_torque (N*m);
+    outputs: drive_speed (rad/s), load_speed (rad/s), shaft_torque (N*m); states:
+    drive_speed, load_speed (rad/s), twist (rad)."""
+
     kind: Literal["torsional_shaft"]
     inertia_drive: Annotated[float, _q("kg*m^2")] = Field(gt=0)
     inertia_load: Annotated[float, _q("kg*m^2")] = Field(gt=0)
@@ -122,6 +136,9 @@ class TorsionalShaftSpec(_Block):
 
 
 class MassSpringDamperSpec(_Block):
+    """Translational mass. Input: force (N); outputs and states: position (m), velocity
+    (m/s)."""
+
     kind: Literal["mass_spring_damper"]
     mass: Annotated[float, _q("kg")] = Field(gt=0)
     stiffness: Annotated[float, _q("N/m")] = Field(default=0.0, ge=0)
@@ -151,11 +168,18 @@ class _ControllerSpec(_Block):
 
 
 class PISpec(_ControllerSpec):
+    """PI controller. Inputs: reference, measurement (the measured signal's unit); output:
+    command (`unit`); states: integral (`unit`), with delay also delayed_command."""
+
     kind: Literal["pi"]
     ki: Gain
 
 
 class PIDSpec(_ControllerSpec):
+    """PID controller. Inputs: reference, measurement (the measured signal's unit); output:
+    command (`unit`); states: integral, then derivative_filter (continuous) or derivative
+    and last_measurement (sampled), with delay also delayed_command."""
+
     kind: Literal["pid"]
     ki: Gain = 0.0
     kd: Gain
@@ -163,6 +187,9 @@ class PIDSpec(_ControllerSpec):
 
 
 class StateFeedbackSpec(_Block):
+    """Static state feedback u = -K x (+ reference_gain * reference). Inputs: one per name
+    in `measured`, and reference with reference_gain; output: command; no states."""
+
     kind: Literal["state_feedback"]
     measured: list[str] = Field(min_length=1, description="input names of the measured states")
     gain: list[float] = Field(min_length=1, description="K, one entry per measured state")
@@ -170,6 +197,9 @@ class StateFeedbackSpec(_Block):
 
 
 class SensorFilterSpec(_Block):
+    """First-order measurement filter. Input: signal (`unit`); output and state: measured
+    (`unit`)."""
+
     kind: Literal["sensor_filter"]
     time_constant: Seconds = Field(gt=0)
     gain: Gain = 1.0
@@ -177,6 +207,9 @@ class SensorFilterSpec(_Block):
 
 
 class GainSpec(_Block):
+    """Static gain. Input: input (the unit of what drives it); output: output (`unit`);
+    no states."""
+
     kind: Literal["gain"]
     gain: Gain
     unit: str = ""
