@@ -113,6 +113,7 @@ class ProgressBar:
         self.stream = stream or sys.stderr
         self.start = time.perf_counter()
         self.drawn = False
+        self.open = False
         self.terminal = bool(getattr(self.stream, "isatty", lambda: False)())
 
     def __call__(self, done: int, total: int) -> None:
@@ -125,11 +126,19 @@ class ProgressBar:
             f"\r{self.label}: [{'#' * filled}{'.' * (width - filled)}] {done}/{total} "
             f"{elapsed:.1f} s"
         )
-        self.stream.write(line)
+        # marked open before the write: Ctrl-C may land right after the line shows
         self.drawn = True
-        if done >= total:
-            self.stream.write("\n")
+        self.open = done < total
+        self.stream.write(line if self.open else line + "\n")
         self.stream.flush()
+
+    def close(self) -> None:
+        """End a bar left open by an interrupted or failed run, so that the error message
+        starts its own line."""
+        if self.open:
+            self.stream.write("\n")
+            self.stream.flush()
+            self.open = False
 
 
 def write_text(path: str, text: str | bytes) -> None:

@@ -68,17 +68,22 @@ def run(args: argparse.Namespace) -> int:
 
     spec = load_tuning(args.spec)
     values, source = centre_values(args)
-    result = sweep(
-        spec,
-        parse_grid(args.grid),
-        log=args.log,
-        values=values,
-        scheduler=args.scheduler,
-        workers=args.workers,
-        progress=None if args.quiet else ProgressBar("sweep"),
-        file=args.spec,
-        values_source=source,
-    )
+    bar = None if args.quiet else ProgressBar("sweep")
+    try:
+        result = sweep(
+            spec,
+            parse_grid(args.grid),
+            log=args.log,
+            values=values,
+            scheduler=args.scheduler,
+            workers=args.workers,
+            progress=bar,
+            file=args.spec,
+            values_source=source,
+        )
+    finally:
+        if bar is not None:
+            bar.close()
     print(format_sweep(result))
     if args.json:
         write_json(args.json, result.to_dict())

@@ -107,19 +107,24 @@ def run(args: argparse.Namespace) -> int:
     spec = load_tuning(args.spec)
     values, source = centre_values(args)
     parts = [p.strip() for p in args.parts.split(",") if p.strip()] if args.parts else None
-    result = tolerance_yield(
-        spec,
-        values=values,
-        parts=parts,
-        samples=args.samples,
-        distribution=args.distribution,
-        seed=args.seed,
-        scheduler=args.scheduler,
-        workers=args.workers,
-        progress=None if args.quiet else ProgressBar("yield"),
-        file=args.spec,
-        values_source=source,
-    )
+    bar = None if args.quiet else ProgressBar("yield")
+    try:
+        result = tolerance_yield(
+            spec,
+            values=values,
+            parts=parts,
+            samples=args.samples,
+            distribution=args.distribution,
+            seed=args.seed,
+            scheduler=args.scheduler,
+            workers=args.workers,
+            progress=bar,
+            file=args.spec,
+            values_source=source,
+        )
+    finally:
+        if bar is not None:
+            bar.close()
     report = result.to_dict()
     print(format_yield(report))
     if args.json:

@@ -124,6 +124,12 @@ class MarginEvaluator:
         """Parameters of the compiled function: the varied parts, then the fixed ones."""
         return self.parts + list(self.fixed)
 
+    def prepare(self) -> MarginEvaluator:
+        """Build the compiled loop-matrix function now (once per process) rather than on
+        the first batch; returns ``self``."""
+        self._compiled()
+        return self
+
     def _compiled(self) -> Any:
         if self._function is None:
             import casadi
