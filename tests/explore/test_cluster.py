@@ -38,3 +38,35 @@ def test_existing_cluster_through_its_address(rc_spread, dask_cluster, tmp_path,
     data = json.loads(report.read_text())
     assert data["yield"] == local.yield_fraction and data["cluster"]["kind"] == "existing"
     assert "Wilson score interval" in capsys.readouterr().out
+
+
+def _compilations(evaluator) -> int:
+    return evaluator.compilations
+
+
+def test_each_worker_compiles_the_model_once_for_every_batch(rc_spread, dask_cluster):
+    # the loop matrices are compiled once per worker process, at start-up, and every batch
+    # re-evaluates that function for new part values (no compile per batch or sample)
+    from dask.distributed import Client
+
+    from wirestate.explore import MarginEvaluator
+    from wirestate.explore.cluster import run_batches, scatter_evaluator, worker_addresses
+    from wirestate.tune.model import TuningModel
+
+    model = TuningModel(load_tuning(rc_spread))
+    evaluator = MarginEvaluator(
+        model, ["R1", "C1"], {"R1": (800.0, 1200.0), "C1": (0.8e-6, 1.2e-6)}
+    )
+    batches = [np.array([[1e3, 1e-6]] * 50) * (1 + 0.01 * k) for k in range(12)]
+    with Client(dask_cluster.scheduler_address) as client:
+        handle = scatter_evaluator(client, evaluator)
+        workers = worker_addresses(client)
+        before = [client.submit(_compilations, handle, workers=[w], pure=False).result()
+                  for w in workers]  # fmt: skip
+        results = run_batches(client, handle, batches)
+        after = [client.submit(_compilations, handle, workers=[w], pure=False).result()
+                 for w in workers]  # fmt: skip
+    assert before == after == [1] * len(workers) == [1, 1]
+    assert evaluator.compilations == 0  # the caller's copy was never compiled
+    np.testing.assert_array_equal(np.vstack([r[0] for r in results]),
+                                  evaluator.evaluate(np.vstack(batches)).margin)  # fmt: skip

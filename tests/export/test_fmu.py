@@ -10,8 +10,9 @@ same function at export and written as exact hexadecimal literals) and the contr
 arithmetic of ``PIDController.sample`` operation for operation, so the two runs differ only
 by the order of the sums in the matrix-vector products (about 1e-16 per step, growing
 slowly over a few thousand steps of a stable system). Steps other than the default are
-computed in C (Taylor degree 14 with scaling and squaring, truncation below 2.4e-17 before
-squaring): those runs are held to 1e-9, the matrix-exponential tolerance of the suite.
+computed in C (balancing, Taylor degree 14 with scaling and squaring; its logged error
+bound is checked in test_model_description.py): those runs are held to 1e-9, the
+matrix-exponential tolerance of the suite.
 """
 
 from __future__ import annotations

@@ -10,9 +10,11 @@ circuit file's own values. ``--values`` overrides single parts.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import sys
 import time
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Any, TextIO
 
@@ -113,6 +115,7 @@ class ProgressBar:
         self.stream = stream or sys.stderr
         self.start = time.perf_counter()
         self.drawn = False
+        self.open = False
         self.terminal = bool(getattr(self.stream, "isatty", lambda: False)())
 
     def __call__(self, done: int, total: int) -> None:
@@ -125,11 +128,44 @@ class ProgressBar:
             f"\r{self.label}: [{'#' * filled}{'.' * (width - filled)}] {done}/{total} "
             f"{elapsed:.1f} s"
         )
-        self.stream.write(line)
+        # marked open before the write: Ctrl-C may land right after the line shows
         self.drawn = True
-        if done >= total:
-            self.stream.write("\n")
+        self.open = done < total
+        self.stream.write(line if self.open else line + "\n")
         self.stream.flush()
+
+    def close(self) -> None:
+        """End a bar left open by an interrupted or failed run, so that the error message
+        starts its own line."""
+        if self.open:
+            self.stream.write("\n")
+            self.stream.flush()
+            self.open = False
+
+
+@contextlib.contextmanager
+def progress_bar(label: str, quiet: bool) -> Iterator[ProgressBar | None]:
+    """A :class:`ProgressBar` (``None`` with ``--quiet``) closed however the run ends."""
+    bar = None if quiet else ProgressBar(label)
+    try:
+        yield bar
+    finally:
+        if bar is not None:
+            bar.close()
+
+
+def run_options(args: argparse.Namespace, progress: ProgressBar | None) -> dict[str, Any]:
+    """The keyword arguments ``tolerance_yield`` and ``sweep`` share, from the options of
+    :func:`add_cluster_options` (the part values as :func:`centre_values` finds them)."""
+    values, source = centre_values(args)
+    return {
+        "values": values,
+        "values_source": source,
+        "scheduler": args.scheduler,
+        "workers": args.workers,
+        "progress": progress,
+        "file": args.spec,
+    }
 
 
 def write_text(path: str, text: str | bytes) -> None:

@@ -11,9 +11,9 @@ from __future__ import annotations
 import argparse
 
 from wirestate.commands.explore_common import (
-    ProgressBar,
     add_cluster_options,
-    centre_values,
+    progress_bar,
+    run_options,
     write_json,
     write_text,
 )
@@ -67,18 +67,8 @@ def run(args: argparse.Namespace) -> int:
     from wirestate.tune import load_tuning
 
     spec = load_tuning(args.spec)
-    values, source = centre_values(args)
-    result = sweep(
-        spec,
-        parse_grid(args.grid),
-        log=args.log,
-        values=values,
-        scheduler=args.scheduler,
-        workers=args.workers,
-        progress=None if args.quiet else ProgressBar("sweep"),
-        file=args.spec,
-        values_source=source,
-    )
+    with progress_bar("sweep", args.quiet) as bar:
+        result = sweep(spec, parse_grid(args.grid), log=args.log, **run_options(args, bar))
     print(format_sweep(result))
     if args.json:
         write_json(args.json, result.to_dict())

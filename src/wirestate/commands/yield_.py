@@ -11,9 +11,9 @@ from __future__ import annotations
 import argparse
 
 from wirestate.commands.explore_common import (
-    ProgressBar,
     add_cluster_options,
-    centre_values,
+    progress_bar,
+    run_options,
     write_json,
 )
 from wirestate.units import format_quantity
@@ -105,21 +105,16 @@ def run(args: argparse.Namespace) -> int:
     from wirestate.tune import load_tuning
 
     spec = load_tuning(args.spec)
-    values, source = centre_values(args)
     parts = [p.strip() for p in args.parts.split(",") if p.strip()] if args.parts else None
-    result = tolerance_yield(
-        spec,
-        values=values,
-        parts=parts,
-        samples=args.samples,
-        distribution=args.distribution,
-        seed=args.seed,
-        scheduler=args.scheduler,
-        workers=args.workers,
-        progress=None if args.quiet else ProgressBar("yield"),
-        file=args.spec,
-        values_source=source,
-    )
+    with progress_bar("yield", args.quiet) as bar:
+        result = tolerance_yield(
+            spec,
+            parts=parts,
+            samples=args.samples,
+            distribution=args.distribution,
+            seed=args.seed,
+            **run_options(args, bar),
+        )
     report = result.to_dict()
     print(format_yield(report))
     if args.json:

@@ -111,18 +111,27 @@ class MarginEvaluator:
         box = {**{k: (v, v) for k, v in self.fixed.items()}, **self.ranges}
         self.squarings = self.model.squarings(box, {**self.fixed, **centre})
         self._function: Any = None
+        #: times this copy built its compiled function (one per process, see prepare)
+        self.compilations = 0
 
     # pickled for worker processes without the CasADi function: each process builds it
     # once, on its first batch
     def __getstate__(self) -> dict[str, Any]:
         state = dict(self.__dict__)
         state["_function"] = None
+        state["compilations"] = 0
         return state
 
     @property
     def symbols(self) -> list[str]:
         """Parameters of the compiled function: the varied parts, then the fixed ones."""
         return self.parts + list(self.fixed)
+
+    def prepare(self) -> MarginEvaluator:
+        """Build the compiled loop-matrix function now (once per process) rather than on
+        the first batch; returns ``self``."""
+        self._compiled()
+        return self
 
     def _compiled(self) -> Any:
         if self._function is None:
@@ -132,6 +141,7 @@ class MarginEvaluator:
             values = {name: p[i] for i, name in enumerate(self.symbols)}
             matrices = self.model.symbolic(values, self.squarings)
             self._keys = [k for k in matrices if k != "steady"]
+            self.compilations += 1
             self._function = casadi.Function(
                 "loop_matrices", [p], [matrices[k] for k in self._keys]
             )
