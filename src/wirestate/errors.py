@@ -76,6 +76,11 @@ ERROR_CODES: dict[str, str] = {
     "nesting_too_deep": "a file nested deeper than the reader accepts",
     # order reduction and sensitivities (issue 15)
     "reduction_not_converged": "the Gramian iteration of a large block did not converge",
+    "invalid_order": "a reduced order that is not below the block's order or not above its kept modes",
+    "error_unreachable": "a relative error bound that no order below the full one meets",
+    "no_stable_part": "a block with no stable input-output part to reduce",
+    "unstable_block": "a large block with modes at or right of the imaginary axis (low-rank Gramians)",
+    "stale_source": "a reduced state-space file whose source model changed since the reduction",
     # FMU export (wirestate export)
     "not_exportable": "a model with blocks an FMU cannot reproduce (non-linear blocks)",
     "no_c_compiler": "no C compiler to build the FMU binary ($CC, then cc)",
