@@ -30,6 +30,7 @@ share), the projection shifts do not settle and the iteration stops with
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -651,3 +652,58 @@ def _refuse_kept_modes_large(block: Any) -> None:
             "block: pass --gramians dense to keep such modes exactly (O(n^3) time), or add "
             "damping",
         )
+
+
+def reduction_spec(reduction: Reduction, source: str | Path, out: str | Path) -> Any:
+    """The state-space file model (:class:`wirestate.spec.state_space.StateSpaceSpec`) of a
+    reduction, recording the source file relative to the output file and its digest."""
+    import os
+
+    from wirestate.spec.state_space import (
+        Matrices,
+        ReductionRecord,
+        ReductionSource,
+        StateSpaceHeader,
+        StateSpaceSpec,
+        file_digest,
+    )
+
+    block = reduction.block
+    relative = os.path.relpath(Path(source).resolve(), Path(out).resolve().parent)
+
+    def rows(M: np.ndarray) -> list[list[float]]:
+        return [[float(v) for v in row] for row in np.asarray(M)]
+
+    return StateSpaceSpec(
+        state_space=StateSpaceHeader(
+            name=block.name,
+            description=f"{reduction.source_states}-state {block.name} reduced to "
+            f"{block.n_states} states",
+            inputs=list(block.inputs),
+            outputs=list(block.outputs),
+            states=list(block.states),
+            units=dict(block.units),
+            input_defaults={k: float(v) for k, v in block.input_defaults.items()},
+        ),
+        matrices=Matrices(
+            A=rows(block.A),
+            B=rows(block.B),
+            C=rows(block.C),
+            D=rows(block.D),
+            initial=[float(v) for v in block.x0] if np.any(block.x0) else None,
+        ),  # fmt: skip
+        reduction=ReductionRecord(
+            method=reduction.method,
+            gramians=reduction.gramians,
+            error_bound=float(reduction.error_bound),
+            relative_error_bound=float(reduction.relative_error_bound),
+            reference_norm=float(reduction.reference_norm),
+            hankel_singular_values=[float(v) for v in reduction.hankel_singular_values],
+            kept_modes=int(reduction.kept_poles.size),
+            source=ReductionSource(
+                file=Path(relative).as_posix(),
+                sha256=file_digest(source),
+                states=reduction.source_states,
+            ),
+        ),
+    )

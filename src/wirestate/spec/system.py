@@ -11,6 +11,10 @@ A system file is TOML with these tables::
     file = "armature.toml"
     values = { Ra = "1.2ohm" }        # optional part value replacements
 
+    [blocks.feeder]
+    kind = "state_space"              # a state-space file (wirestate reduce writes them)
+    file = "feeder_reduced.toml"
+
     [blocks.rotor]
     kind = "rotary_inertia"           # rotary_inertia | gear | torsional_shaft |
     inertia = "2.5e-3 kg*m^2"         #   mass_spring_damper | pi | pid | state_feedback |
@@ -100,6 +104,13 @@ class CircuitBlockSpec(_Block):
     )
 
 
+class StateSpaceBlockSpec(_Block):
+    kind: Literal["state_space"]
+    file: str = Field(
+        description="state-space file (written by `wirestate reduce`), relative to the system file"
+    )
+
+
 class RotaryInertiaSpec(_Block):
     kind: Literal["rotary_inertia"]
     inertia: Annotated[float, _q("kg*m^2")] = Field(gt=0)
@@ -184,6 +195,7 @@ class GainSpec(_Block):
 
 BlockSpec = Annotated[
     CircuitBlockSpec
+    | StateSpaceBlockSpec
     | RotaryInertiaSpec
     | GearSpec
     | TorsionalShaftSpec
@@ -198,6 +210,7 @@ BlockSpec = Annotated[
 
 BLOCK_KINDS: tuple[str, ...] = (
     "circuit",
+    "state_space",
     "rotary_inertia",
     "gear",
     "torsional_shaft",
