@@ -478,8 +478,17 @@ def reduce_block(
             np.eye(n), np.zeros((0, n)), np.zeros(0, dtype=complex),
         )  # fmt: skip
         As = sp.csc_matrix(A)
-        gc = low_rank_gramian(As, B, max_columns=LOW_RANK_MAX_COLUMNS)
-        go = low_rank_gramian(As.T.tocsc(), C.T, max_columns=LOW_RANK_MAX_COLUMNS)
+        try:
+            gc = low_rank_gramian(As, B, max_columns=LOW_RANK_MAX_COLUMNS)
+            go = low_rank_gramian(As.T.tocsc(), C.T, max_columns=LOW_RANK_MAX_COLUMNS)
+        except ReductionError as exc:
+            # lightly damped blocks: every such mode carries its own share of the Gramian,
+            # which is then not of low rank and no shift choice helps
+            raise ReductionError(
+                exc.code,
+                f"{block.name}: {exc.message}. Lightly damped blocks have Gramians of high "
+                "rank: pass --gramians dense (O(n^3) time, minutes at 2000 states)",
+            ) from None
         Zc, Zo, residual = gc.factor, go.factor, max(gc.relative_residual, go.relative_residual)
     else:
         split = split_stable(A, B, C)
