@@ -8,6 +8,8 @@ import warnings
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from tests.conftest import MODELS
 from wirestate.balanced import reduce_block, reduction_spec
@@ -207,3 +209,30 @@ def test_a_hand_written_state_space_file_is_a_block(tmp_path):
     block = load_block(path)
     assert block.poles() == pytest.approx([-1.0]) and block.dc_gain()[0, 0] == pytest.approx(1.0)
     assert block.notes == []
+
+
+_entries = st.one_of(
+    st.floats(allow_nan=True, allow_infinity=True), st.integers(-5, 5), st.text(max_size=3)
+)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    rows=st.lists(st.lists(_entries, max_size=3), max_size=3),
+    names=st.lists(st.sampled_from(["x", "y", "u", "1a", "x"]), max_size=3),
+    table=st.sampled_from(["A", "B", "C", "D", "initial"]),
+)
+def test_random_state_space_files_load_or_raise_our_error(rows, names, table):
+    # parser property (common practice, no source): a block or a WirestateError, never
+    # another exception
+    data = _file()
+    data["matrices"][table] = rows if table != "initial" else [r[0] for r in rows if r]
+    data["state_space"]["states"] = names
+    try:
+        spec = parse_state_space(data, file="random.toml")
+    except WirestateError:
+        return
+    from wirestate.lti import block_from_state_space
+
+    block = block_from_state_space(spec)
+    assert block.A.shape == (len(names), len(names))
