@@ -40,16 +40,14 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-import re
 from pathlib import Path
 from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from wirestate.errors import ModelFileError
+from wirestate.spec.circuit import NAME_PATTERN, _check_name
 from wirestate.spec.load import read_toml, validate
-
-_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 
 Matrix = list[list[float]]
 
@@ -74,13 +72,13 @@ class StateSpaceHeader(_Strict):
     @field_validator("name")
     @classmethod
     def _name(cls, value: str) -> str:
-        return _identifier(value, "block name")
+        return _check_name(value, "block name")
 
     @field_validator("inputs", "outputs", "states")
     @classmethod
     def _names(cls, values: list[str]) -> list[str]:
         for value in values:
-            _identifier(value, "signal name")
+            _check_name(value, "signal name")
         duplicates = sorted({v for v in values if values.count(v) > 1})
         if duplicates:
             raise ValueError(f"names given twice: {', '.join(duplicates)}")
@@ -166,15 +164,6 @@ class StateSpaceSpec(_Strict):
         return self.state_space.name
 
 
-def _identifier(value: str, what: str) -> str:
-    if not isinstance(value, str) or not _NAME.match(value):
-        raise ValueError(
-            f"{what} {value!r} must start with a letter or '_' and hold only letters, "
-            "digits and '_'"
-        )
-    return value
-
-
 def is_state_space_file(data: dict[str, Any]) -> bool:
     """True for parsed file data with a top-level ``[state_space]`` table."""
     return isinstance(data.get("state_space"), dict)
@@ -218,7 +207,7 @@ def _value(value: Any) -> str:
 
 
 def _key(key: str) -> str:
-    return key if _NAME.match(key) else json.dumps(key)
+    return key if NAME_PATTERN.match(key) else json.dumps(key)
 
 
 def dumps_state_space(spec: StateSpaceSpec, *, comment: str = "") -> str:
