@@ -603,6 +603,11 @@ def reduce_block(
     B_red = np.vstack([Br, split.B_kept])
     C_red = np.hstack([Cr, split.C_kept])
     x0 = block.x0 / scaling
+    if np.any(x0):
+        notes.append(
+            "the initial state is projected onto the kept balanced states (exact only when "
+            "it lies in their span)"
+        )
     x0_red = np.concatenate([factors.W[:, :k].T @ (split.to_stable @ x0), split.to_kept @ x0])
     states = [f"bal{i + 1}" for i in range(k)] + [f"kept{i + 1}" for i in range(n_kept)]
     units = {name: block.units[name] for name in (*block.inputs, *block.outputs)
@@ -640,6 +645,8 @@ def reduce_block(
 
 def _check_request(block: Any, order: int | None, error: float | None, gramians: str) -> None:
     n = block.n_states
+    if n == 0:
+        raise ReductionError("invalid_order", f"{block.name}: the block has no states to reduce")
     if (order is None) == (error is None):
         raise ReductionError("invalid_order", "give either an order or an error bound")
     if gramians not in ("auto", "dense", "low_rank"):
@@ -653,12 +660,11 @@ def _check_request(block: Any, order: int | None, error: float | None, gramians:
         )
     if order is not None:
         if order < 0 or order >= n:
+            problem = "is negative" if order < 0 else f"is not below the block's {n} states"
             raise ReductionError(
                 "invalid_order",
-                f"{block.name}: --order {order} is not below the block's {n} states; "
-                f"ask for an order from 0 to {n - 1}" if n else
-                f"{block.name}: the block has no states to reduce",
-            )  # fmt: skip
+                f"{block.name}: --order {order} {problem}; ask for an order from 0 to {n - 1}",
+            )
     elif not (np.isfinite(error) and error > 0):
         raise ReductionError(
             "error_unreachable",
