@@ -103,11 +103,23 @@ class _ShiftedSolver:
 
 
 def _ritz_shifts(solver: _ShiftedSolver, basis: np.ndarray, count: int) -> list[complex]:
-    """Stable Ritz values of ``M`` on ``span(basis)`` (one per conjugate pair)."""
-    Q, _ = np.linalg.qr(basis)
-    rank = int(np.sum(np.abs(np.diag(_)) > 1e-12 * max(1.0, np.abs(_).max(initial=0.0))))
-    Q = Q[:, : max(rank, 1)]
-    H = Q.T @ solver.matmul(Q)
+    """Stable Ritz values of ``M`` on ``span(basis)`` (one per conjugate pair).
+
+    The basis is orthonormalised through its small Gram matrix (``T = U L^-1/2`` from
+    ``basis^T basis = U L U^T`` of the unit-length columns, directions below 1e-10 of the
+    largest dropped) rather than
+    a QR of the tall basis: the shifts need only be approximate, and a threaded LAPACK QR
+    of an ``n x 10`` matrix took 25 ms per call on a loaded 2-core machine against 0.1 ms
+    for the Gram product.
+    """
+    norms = np.linalg.norm(basis, axis=0)
+    basis = basis[:, norms > 0] / norms[norms > 0]
+    gram = basis.T @ basis
+    w, U = la.eigh(0.5 * (gram + gram.T))
+    # Q = basis T is orthonormal up to eps / (smallest kept w): 1e-10 keeps that below 1e-6
+    keep = w > 1e-10 * max(float(w.max(initial=0.0)), np.finfo(float).tiny)
+    T = U[:, keep] / np.sqrt(w[keep])
+    H = T.T @ (basis.T @ solver.matmul(basis)) @ T
     values = np.linalg.eigvals(H)
     values = values[values.imag >= 0]
     # a Ritz value in the right half-plane of a stable matrix is mirrored (common practice
