@@ -358,3 +358,53 @@ def test_block_too_large_for_sensitivities():
     with pytest.raises(WirestateError) as info:
         circuit_sensitivities(spec)
     assert info.value.code == "block_too_large" and info.value.location == ("circuit",)
+
+
+# order reduction (wirestate reduce, issue 15); each case has a fuller test in tests/reduction
+def _reduction_error(code: str) -> WirestateError:
+    from tests.conftest import MODELS
+    from wirestate.balanced import reduce_block
+    from wirestate.reduce import load_block
+
+    integrator = {"Is": {"kind": "current_source", "nodes": ["gnd", "q"]},
+                  "Cq": {"kind": "capacitor", "nodes": ["q", "gnd"], "value": 1e-6}}  # fmt: skip
+    cases = {
+        "invalid_order": lambda: reduce_block(load_block(MODELS / "feeder_cable.toml"), order=13),
+        "error_unreachable": lambda: reduce_block(
+            load_block(MODELS / "feeder_cable.toml"), error=1e-12
+        ),
+        "no_stable_part": lambda: reduce_block(
+            circuit(integrator, {"v_q": {"voltage": "q"}}), order=0
+        ),
+        "unstable_block": lambda: reduce_block(
+            circuit(integrator, {"v_q": {"voltage": "q"}}), order=0, gramians="low_rank"
+        ),
+    }
+    with pytest.raises(WirestateError) as info:
+        cases[code]()
+    return info.value
+
+
+@pytest.mark.parametrize(
+    "code", ["invalid_order", "error_unreachable", "no_stable_part", "unstable_block"]
+)
+def test_reduction_codes(code):
+    error = _reduction_error(code)
+    assert error.code == code and code in ERROR_CODES
+    assert "feeder" in error.message or "dut" in error.message  # names the block
+
+
+def test_stale_source_code(tmp_path):
+    import shutil
+
+    from tests.conftest import MODELS
+    from wirestate.lti import load_state_space_block
+
+    shutil.copy(MODELS / "feeder_cable.toml", tmp_path / "feeder_cable.toml")
+    shutil.copy(MODELS / "feeder_cable_reduced.toml", tmp_path / "reduced.toml")
+    (tmp_path / "feeder_cable.toml").write_text(
+        "# edited\n" + (MODELS / "feeder_cable.toml").read_text()
+    )
+    with pytest.raises(WirestateError) as info:
+        load_state_space_block(tmp_path / "reduced.toml", on_stale="error")
+    assert info.value.code == "stale_source" and info.value.location[0] == "reduction"

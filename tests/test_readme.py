@@ -32,7 +32,12 @@ from wirestate.cli import COMMANDS, build_parser, main
 README = ROOT / "README.md"
 FULL = os.environ.get("WIRESTATE_README_FULL") == "1"
 #: where a complete file of each kind is placed, so that its relative paths resolve
-PLACE = {"circuit": Path("."), "system": Path("systems"), "tuning": Path("tuning")}
+PLACE = {
+    "circuit": Path("."),
+    "system": Path("systems"),
+    "tuning": Path("tuning"),
+    "state_space": Path("."),
+}
 
 
 def code_blocks(language: str) -> list[tuple[int, str]]:
@@ -114,13 +119,13 @@ def test_toml_examples_load_and_compile(line, text, models_copy, capsys):
     kind = _file_kind(data)
     assert kind is not None, (
         f"README line {line}: a TOML example is a complete file ([circuit], [system] or "
-        "[tuning]) or starts with '# excerpt of models/...'"
+        "[tuning], [state_space]) or starts with '# excerpt of models/...'"
     )
     path = models_copy / "models" / PLACE[kind] / f"readme_example_{line}.toml"
     path.write_text(text, "utf-8")
     assert main(["inspect", str(path)]) == 0, capsys.readouterr().err
     out = capsys.readouterr().out
-    assert f"{kind if kind != 'circuit' else 'block'} " in out
+    assert f"{kind if kind not in ('circuit', 'state_space') else 'block'} " in out
 
 
 def _assert_subset(excerpt, full, where: str) -> None:

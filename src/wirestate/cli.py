@@ -12,10 +12,11 @@ import argparse
 import importlib
 import importlib.util
 import sys
+import warnings
 from collections.abc import Sequence
 
 from wirestate import __version__
-from wirestate.errors import WirestateError
+from wirestate.errors import WirestateError, WirestateWarning
 
 #: sub-command -> (module providing configure/run, one-line help)
 COMMANDS: dict[str, tuple[str, str]] = {
@@ -28,6 +29,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "regress": ("wirestate.commands.regress", "compare responses with golden files"),
     "bench-compare": ("wirestate.commands.bench_compare", "compare benchmark results"),
     "export": ("wirestate.commands.export", "write an FMI 2.0 co-simulation FMU in native C"),
+    "reduce": ("wirestate.commands.reduce", "balanced order reduction with an error bound"),
 }
 
 EXIT_USER_ERROR = 2
@@ -81,7 +83,19 @@ def _selected_command(argv: Sequence[str], available: dict[str, object]) -> str 
     return None
 
 
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    # a WirestateWarning is for the user: one line, like the errors, without source lines
+    if issubclass(category, WirestateWarning):
+        print(f"warning: {message}", file=sys.stderr)
+    else:
+        _default_show_warning(message, category, filename, lineno, file, line)
+
+
+_default_show_warning = warnings.showwarning
+
+
 def main(argv: Sequence[str] | None = None) -> int:
+    warnings.showwarning = _show_warning
     words = list(sys.argv[1:] if argv is None else argv)
     available = _available_commands()
     selected = _selected_command(words, available)

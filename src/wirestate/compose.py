@@ -27,7 +27,7 @@ from wirestate.blocks import NonlinearBlock, PIDController
 from wirestate.blocks import controllers as _controllers
 from wirestate.blocks import mechanical as _mechanical
 from wirestate.errors import CompositionError, WirestateError
-from wirestate.lti import CircuitBlock, named_state_space
+from wirestate.lti import CircuitBlock, load_state_space_block, named_state_space
 from wirestate.reduce import compile_circuit
 from wirestate.spec import load_circuit
 from wirestate.spec.system import SystemSpec, load_system_spec
@@ -533,6 +533,11 @@ def build_block(name: str, spec: Any, base: Path | None = None) -> Any:
     kind = spec.kind
     if kind == "circuit":
         block = compile_circuit(block_circuit(name, spec, base)[0])
+        block.name = name
+        return block
+    if kind == "state_space":
+        path = Path(spec.file)
+        block = load_state_space_block(base / path if base and not path.is_absolute() else path)
         block.name = name
         return block
     if kind == "rotary_inertia":

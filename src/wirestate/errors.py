@@ -78,6 +78,11 @@ ERROR_CODES: dict[str, str] = {
     # order reduction and sensitivities (issue 15)
     "reduction_not_converged": "the Gramian iteration of a large block did not converge",
     "block_too_large": "a block with more states than sensitivities of every mode are computed for",
+    "invalid_order": "a reduced order not below the block's order or below its kept modes",
+    "error_unreachable": "a relative error bound that no order below the full one meets",
+    "no_stable_part": "a block with no stable input-output part to reduce",
+    "unstable_block": "a large block with modes at or right of the imaginary axis",
+    "stale_source": "a reduced state-space file whose source model changed since the reduction",
     # FMU export (wirestate export)
     "not_exportable": "a model with blocks an FMU cannot reproduce (non-linear blocks)",
     "no_c_compiler": "no C compiler to build the FMU binary ($CC, then cc)",
@@ -144,6 +149,11 @@ class WirestateError(Exception):
             "location": list(self.location),
             "message": self.message,
         }
+
+
+class WirestateWarning(UserWarning):
+    """Something the user should know that does not stop the work (a stale reduced file);
+    the command line prints it as one line ``warning: <where>: <what>``."""
 
 
 class ModelFileError(WirestateError):

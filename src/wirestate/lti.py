@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 import warnings
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -295,3 +296,73 @@ def modes(poles: np.ndarray) -> list[dict[str, float]]:
         zeta = float(-p.real / wn) if wn > 0 else float("nan")
         rows.append({"real": float(p.real), "imag": float(p.imag), "wn": wn, "zeta": zeta})
     return rows
+
+
+def block_from_state_space(
+    spec: Any, *, file: str | Path | None = None, on_stale: str = "warn"
+) -> CircuitBlock:
+    """The block of a validated state-space file (:mod:`wirestate.spec.state_space`).
+
+    A reduced block records its source file's SHA-256 digest. When the source, looked up
+    relative to ``file``, has changed since, the stored error bound no longer describes
+    it: ``on_stale="warn"`` issues a :class:`~wirestate.errors.WirestateWarning` (and a
+    note), ``"error"`` raises ``stale_source``. A missing source only adds a note.
+    """
+    import warnings
+
+    from wirestate.errors import ModelFileError, WirestateWarning
+    from wirestate.spec.state_space import file_digest
+
+    head, m = spec.state_space, spec.matrices
+    notes: list[str] = []
+    record = spec.reduction
+    if record is not None:
+        notes.append(
+            f"reduced from {record.source.file} ({record.source.states} states) by "
+            f"{record.method.replace('_', ' ')}; H-infinity error bound "
+            f"{record.error_bound:.6g} ({record.relative_error_bound:.3g} of the full "
+            "block's norm)"
+        )
+        if file is not None:
+            source = Path(file).parent / record.source.file
+            if not source.is_file():
+                notes.append(f"source {record.source.file} not found: digest not checked")
+            elif file_digest(source) != record.source.sha256:
+                message = (
+                    f"the source {record.source.file} changed since this block was reduced "
+                    "from it (SHA-256 differs): the stored error bound no longer describes "
+                    "it; run `wirestate reduce` again"
+                )
+                if on_stale == "error":
+                    raise ModelFileError(
+                        "stale_source",
+                        message,
+                        file=str(file),
+                        location=("reduction", "source", "sha256"),
+                    )
+                warnings.warn(WirestateWarning(f"{file}: {message}"), stacklevel=2)
+                notes.append(f"stale: {message}")
+    n = len(head.states)
+    return CircuitBlock(
+        name=head.name,
+        A=np.array(m.A, dtype=float).reshape(n, n),
+        B=np.array(m.B, dtype=float).reshape(n, len(head.inputs)),
+        C=np.array(m.C, dtype=float).reshape(len(head.outputs), n),
+        D=np.array(m.D, dtype=float).reshape(len(head.outputs), len(head.inputs)),
+        states=list(head.states),
+        inputs=list(head.inputs),
+        outputs=list(head.outputs),
+        x0=None if m.initial is None else np.array(m.initial, dtype=float),
+        input_defaults=dict(head.input_defaults),
+        units=dict(head.units),
+        spec=spec,
+        notes=notes,
+    )
+
+
+def load_state_space_block(path: str | Path, *, on_stale: str = "warn") -> CircuitBlock:
+    """Read, validate and load a state-space file as a block (see
+    :func:`block_from_state_space`)."""
+    from wirestate.spec.state_space import load_state_space_spec
+
+    return block_from_state_space(load_state_space_spec(path), file=path, on_stale=on_stale)

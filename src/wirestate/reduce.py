@@ -33,7 +33,7 @@ from scipy.sparse.linalg import splu
 from wirestate.equations import Backend, Equations, assemble, nominal_values, part_parameter
 from wirestate.errors import CompileError, TopologyError, WirestateError
 from wirestate.lti import CircuitBlock
-from wirestate.spec import CircuitSpec, load_circuit
+from wirestate.spec import CircuitSpec, parse_circuit
 from wirestate.topology import Topology, analyse, excess_notes, excess_through
 
 #: entries of B1 below this (relative to the largest) are round-off, not a loop with a source
@@ -344,8 +344,17 @@ def _initial_state(topology: Topology) -> tuple[np.ndarray, list[str]]:
 
 
 def load_block(path: str | Path) -> CircuitBlock:
-    """Read, validate and compile a circuit model file."""
-    spec = load_circuit(path)
+    """Read, validate and compile a circuit model file, or load a state-space file
+    (``[state_space]`` table, see :func:`wirestate.lti.load_state_space_block`)."""
+    from wirestate.spec.load import read_toml
+    from wirestate.spec.state_space import is_state_space_file, parse_state_space
+
+    data = read_toml(path)
+    if is_state_space_file(data):
+        from wirestate.lti import block_from_state_space
+
+        return block_from_state_space(parse_state_space(data, file=str(path)), file=path)
+    spec = parse_circuit(data, file=str(path))
     try:
         return compile_circuit(spec)
     except WirestateError as exc:

@@ -20,7 +20,7 @@ FILES = sorted(p for p in MODELS.rglob("*.toml") if "golden" not in p.parts)
 
 
 def _kind(data: dict) -> str:
-    for kind in ("tuning", "system", "circuit"):
+    for kind in ("tuning", "system", "circuit", "state_space"):
         if kind in data:
             return kind
     raise AssertionError("a model file without [circuit], [system] or [tuning]")

@@ -12,6 +12,7 @@ FORMATS = {
     "circuit": ("wirestate.spec.circuit", "CircuitSpec"),
     "system": ("wirestate.spec.system", "SystemSpec"),
     "tuning": ("wirestate.spec.tuning", "TuningSpec"),
+    "state_space": ("wirestate.spec.state_space", "StateSpaceSpec"),
 }
 
 

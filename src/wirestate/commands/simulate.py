@@ -19,7 +19,11 @@ CAUTION = (
 
 
 def configure(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("model", help="circuit file ([circuit] table) or system file ([system])")
+    parser.add_argument(
+        "model",
+        help="circuit file ([circuit] table), system file ([system]) or state-space file "
+        "([state_space])",
+    )
     parser.add_argument("--until", required=True, help="horizon, e.g. 20ms")
     parser.add_argument("--step", required=True, help="output step, e.g. 1us")
     parser.add_argument(
@@ -70,11 +74,13 @@ def run(args: argparse.Namespace) -> int:
     # imported here, not at module level: the CLI imports this module to configure the
     # parser, and `wirestate simulate --help` should not pay for control/scipy
     from wirestate.compose import is_system_file, system_from_spec
+    from wirestate.lti import block_from_state_space
     from wirestate.reduce import compile_circuit
     from wirestate.simulate import simulate
     from wirestate.simulate.inputs import parse_assignment
     from wirestate.spec import parse_circuit
     from wirestate.spec.load import read_toml
+    from wirestate.spec.state_space import is_state_space_file, parse_state_space
     from wirestate.spec.system import parse_system
 
     path = Path(args.model)
@@ -86,6 +92,9 @@ def run(args: argparse.Namespace) -> int:
     if is_system_file(data):
         model = system_from_spec(parse_system(data, file=str(path)), file=path)
         options = {"rtol": args.rtol, "atol": args.atol} if not model.is_linear else {}
+    elif is_state_space_file(data):
+        model = block_from_state_space(parse_state_space(data, file=str(path)), file=path)
+        options = {}
     else:
         model = compile_circuit(parse_circuit(data, file=str(path)))
         options = {}

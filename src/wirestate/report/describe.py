@@ -587,9 +587,28 @@ def _indent(text: str, by: str = "  ") -> str:
 
 
 #: file kind -> reader; a new file kind adds its reader here
+def _state_space(path: Path, data: dict[str, Any]) -> Inspection:
+    """A state-space file (written by ``wirestate reduce`` or by hand) reads like a circuit
+    block: its states, modes and DC gains (the block's notes name the reduction and its
+    bound); the JSON adds the reduction record when there is one."""
+    from wirestate.lti import load_state_space_block
+
+    found = circuit_inspection(load_state_space_block(path))
+    found.data["kind"] = "state_space"
+    record = data.get("reduction")
+    if isinstance(record, dict):
+        found.data["reduction"] = {
+            k: record[k]
+            for k in ("method", "gramians", "error_bound", "relative_error_bound")
+            if k in record
+        }
+    return found
+
+
 INSPECTORS: dict[str, Callable[[Path, dict[str, Any]], Inspection]] = {
     "tuning": _tuning,
     "system": _system,
+    "state_space": _state_space,
     "circuit": _circuit,
 }
 

@@ -219,7 +219,7 @@ def format_table(
 
 #: top-level table -> file kind, checked in this order (a tuning file may also name a
 #: circuit or system table inside it)
-FILE_KINDS = ("tuning", "system", "circuit")
+FILE_KINDS = ("tuning", "system", "circuit", "state_space")
 
 
 #: preferred-value series used when regressing tuning files (the default of `wirestate tune`)
@@ -231,7 +231,8 @@ class _Unsupported(Exception):
 
 
 def detect_kind(path: str | Path) -> str:
-    """``"circuit"``, ``"system"``, ``"tuning"`` from the file's top-level table, else ``""``."""
+    """``"circuit"``, ``"system"``, ``"tuning"``, ``"state_space"`` from the file's
+    top-level table, else ``""``."""
     from wirestate.spec import load as spec_load
 
     data = spec_load.read_toml(path)
@@ -245,7 +246,8 @@ def _check_supported(kind: str) -> None:
     # raise _Unsupported before any golden file is looked at
     if kind not in FILE_KINDS:
         raise _Unsupported(
-            "not a circuit, system or tuning file (no [circuit], [system] or [tuning] table)"
+            "not a circuit, system, tuning or state-space file (no [circuit], [system], "
+            "[tuning] or [state_space] table)"
         )
 
 
@@ -265,6 +267,11 @@ def file_signature(path: str | Path, kind: str, grid: dict | None) -> dict[str, 
         from wirestate.reduce import load_block
 
         return sig.linear_signature(load_block(path), grid)
+    if kind == "state_space":
+        from wirestate.lti import load_state_space_block
+
+        # a reduced block whose source changed no longer matches its stored bound: refused
+        return sig.linear_signature(load_state_space_block(path, on_stale="error"), grid)
     if kind == "system":
         from wirestate.compose import load_system
 

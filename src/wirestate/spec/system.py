@@ -11,6 +11,10 @@ A system file is TOML with these tables::
     file = "armature.toml"
     values = { Ra = "1.2ohm" }        # optional part value replacements
 
+    [blocks.feeder]
+    kind = "state_space"              # a state-space file (wirestate reduce writes them)
+    file = "feeder_reduced.toml"
+
     [blocks.rotor]
     kind = "rotary_inertia"           # rotary_inertia | gear | torsional_shaft |
     inertia = "2.5e-3 kg*m^2"         #   mass_spring_damper | pi | pid | state_feedback |
@@ -101,6 +105,17 @@ class CircuitBlockSpec(_Block):
     file: str = Field(description="circuit model file, relative to the system file")
     values: dict[str, str | float] = Field(
         default_factory=dict, description="part value replacements, e.g. { Rd = '2.2ohm' }"
+    )
+
+
+class StateSpaceBlockSpec(_Block):
+    """A state-space file as a block. Inputs: the file's inputs, outputs: its outputs,
+    states: its states (bal1, bal2... for a reduced block), each with the unit its units
+    table gives."""
+
+    kind: Literal["state_space"]
+    file: str = Field(
+        description="state-space file (written by `wirestate reduce`), relative to the system file"
     )
 
 
@@ -217,6 +232,7 @@ class GainSpec(_Block):
 
 BlockSpec = Annotated[
     CircuitBlockSpec
+    | StateSpaceBlockSpec
     | RotaryInertiaSpec
     | GearSpec
     | TorsionalShaftSpec
@@ -231,6 +247,7 @@ BlockSpec = Annotated[
 
 BLOCK_KINDS: tuple[str, ...] = (
     "circuit",
+    "state_space",
     "rotary_inertia",
     "gear",
     "torsional_shaft",
