@@ -89,14 +89,19 @@ def eliminate(
         if done[j] or count != len(column_rows[j]):
             continue  # a stale heap entry; the current count was pushed again
         members = column_rows[j]
-        largest = max((abs(R[i][j]) for i in members), default=0.0)
-        if largest == 0.0:
-            raise SingularEquations(j)
-        floor = PIVOT_THRESHOLD * largest
-        p = min(
-            (i for i in members if abs(R[i][j]) >= floor),
-            key=lambda i: (len(R[i]) + len(K[i]), -abs(R[i][j])),
-        )
+        if len(members) == 1:  # most unknowns of a circuit: no choice to make
+            p = next(iter(members))
+            if R[p][j] == 0.0:  # pragma: no cover - exact zeros are dropped on creation
+                raise SingularEquations(j)
+        else:
+            largest = max((abs(R[i][j]) for i in members), default=0.0)
+            if largest == 0.0:
+                raise SingularEquations(j)
+            floor = PIVOT_THRESHOLD * largest
+            p = min(
+                (i for i in members if abs(R[i][j]) >= floor),
+                key=lambda i: (len(R[i]) + len(K[i]), -abs(R[i][j])),
+            )
         done[j] = True
         pivots.append((p, j))
         pivot_row, pivot_known = R[p], K[p]

@@ -24,7 +24,9 @@ it sparse (:attr:`wirestate.lti.CircuitBlock.sparse_A`).
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+import gc
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -357,8 +359,23 @@ def compile_circuit(spec: CircuitSpec) -> CircuitBlock:
         sources (and electromechanical speeds), outputs from ``[outputs]`` plus
         electromechanical torques or forces.
     """
-    topology = analyse(spec)
-    return block_from_equations(assemble(topology, nominal_values(topology)))
+    with _no_cyclic_collection():
+        topology = analyse(spec)
+        return block_from_equations(assemble(topology, nominal_values(topology)))
+
+
+@contextmanager
+def _no_cyclic_collection() -> Iterator[None]:
+    """Pause Python's cyclic garbage collector: compiling a large circuit creates hundreds
+    of thousands of small dictionaries, none in a reference cycle, and the collector's
+    passes over them took a third of the time of a 4000-section ladder (measured)."""
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
 
 
 def block_from_equations(eq: Equations) -> CircuitBlock:

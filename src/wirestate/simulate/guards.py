@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 import os
 import shutil
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -183,13 +184,19 @@ def check_tolerances(options: dict[str, Any]) -> None:
 
 
 def check_finite_result(
-    name: str, time: np.ndarray, arrays: list[np.ndarray], poles: np.ndarray | None, step: float
+    name: str,
+    time: np.ndarray,
+    arrays: list[np.ndarray],
+    poles: np.ndarray | Callable[[], np.ndarray | None] | None,
+    step: float,
 ) -> None:
     """Stop when a run left the floating-point range, naming the mode responsible.
 
     An unstable mode (pole with positive real part ``sigma``) grows as ``exp(sigma t)``; a
     stable mode faster than the double range allows at this step (``|lambda| dt`` beyond
-    about 700, where ``exp`` overflows) breaks the matrix exponential instead.
+    about 700, where ``exp`` overflows) breaks the matrix exponential instead. ``poles``
+    may be a function: it is then called only when the result is not finite (the
+    eigenvalues of a large block cost more than its whole run).
     """
     first = None
     for data in arrays:
@@ -201,6 +208,8 @@ def check_finite_result(
             first = column if first is None else min(first, column)
     if first is None:
         return
+    if callable(poles):
+        poles = poles()
     when = float(time[min(first, len(time) - 1)]) if len(time) else 0.0
     message = f"{name}: the result leaves the floating-point range at t = {when:g} s"
     if poles is not None and len(poles):
@@ -226,9 +235,32 @@ def _pole_text(p: complex) -> str:
 
 
 def model_poles(model: Any) -> np.ndarray | None:
-    """Poles of a circuit block, ``StateSpace`` or LTI system; ``None`` when not linear."""
+    """Poles of a circuit block, ``StateSpace`` or LTI system; ``None`` when not linear.
+
+    A large sparse block gives its fastest modes and those of largest real part (sparse
+    Arnoldi), the candidates for a run that left the floating-point range.
+    """
+    sparse = getattr(model, "sparse_A", None)
+    if sparse is not None:
+        return _sparse_candidate_poles(sparse)
     try:
         poles = model.poles()
     except Exception:  # a nonlinear or sampled system has no single set of poles
         return None
     return np.asarray(poles, dtype=complex).ravel()
+
+
+def _sparse_candidate_poles(A: Any) -> np.ndarray:
+    from scipy.sparse.linalg import ArpackNoConvergence, eigs
+
+    from wirestate.lti import extreme_poles, single_threaded_blas
+
+    _, fastest = extreme_poles(A, 6)
+    with single_threaded_blas():
+        try:  # an error message needs the sign of the rightmost real part, not 8 digits
+            rightmost = eigs(
+                A.tocsc(), k=6, which="LR", return_eigenvectors=False, tol=1e-6, maxiter=300
+            )
+        except ArpackNoConvergence as exc:
+            rightmost = exc.eigenvalues
+    return np.concatenate([fastest, rightmost])
