@@ -25,6 +25,7 @@ it sparse (:attr:`wirestate.lti.CircuitBlock.sparse_A`).
 from __future__ import annotations
 
 import gc
+import math
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -161,8 +162,31 @@ def _solve_numeric(eq: Equations, layout: _Layout) -> _Solution:
     )
     finite = np.isfinite(Wd.data if hasattr(Wd, "data") else Wd).all()
     if not (finite and np.isfinite(Y).all()):
-        raise _singular_error(eq)
+        # every pivot was non-zero, so the equations are regular: the numbers overflowed
+        raise _overflow_error(eq)
     return _split_solution(Wd, Y, Y_size, layout)
+
+
+def _overflow_error(eq: Equations) -> CompileError:
+    """``out_of_range`` naming the smallest and the largest part value (by magnitude)."""
+    values = {
+        name: abs(v)
+        for name, v in nominal_values(eq.topology).items()
+        if isinstance(v, float) and v != 0.0
+    }
+    spread = ""
+    location: tuple[str, ...] = ("parts",)
+    if values:
+        low, high = min(values, key=values.get), max(values, key=values.get)
+        decades = math.log10(values[high] / values[low])
+        spread = f": part values span {decades:.0f} decades, from {low} to {high}"
+        location = ("parts", low)
+    return CompileError(
+        "out_of_range",
+        f"the state equations leave the floating-point range{spread} (a part far smaller or "
+        "larger than the rest; check its value and unit prefix)",
+        location=location,
+    )
 
 
 def _from_forms(forms: list[dict], width: int, *, sparse: bool) -> Any:

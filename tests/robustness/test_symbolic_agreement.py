@@ -117,7 +117,8 @@ def test_numeric_compile_is_accurate_entry_by_entry(decades):
             }
             varied = spec.with_values(values)
             block = compile_circuit(varied)
-            for got, want in zip((block.A, block.B, block.C, block.D), _reference(varied)):
+            matrices = (block.A, block.B, block.C, block.D)
+            for got, want in zip(matrices, _reference(varied), strict=True):
                 zero = want == 0.0
                 assert np.all(got[zero] == 0.0), f"{spec.name}: round-off in exact zeros"
                 error = np.abs(got - want)[~zero] / np.abs(want)[~zero]

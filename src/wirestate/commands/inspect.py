@@ -35,6 +35,7 @@ def run(args: argparse.Namespace) -> int:
 
         figure_format(args.plot)  # a bad file name fails before any output
     block = load_block(args.model)
+    pairs = [_pair(text, block) for text in args.pair] or None  # checked with or without --plot
     if args.json:
         json.dump(block_json(block), sys.stdout, indent=2)
         sys.stdout.write("\n")
@@ -43,7 +44,6 @@ def run(args: argparse.Namespace) -> int:
     if args.plot:
         from wirestate.report.inspect_plot import plot_inspect
 
-        pairs = [_pair(text, block) for text in args.pair] or None
         plot_inspect(block, args.plot, pairs=pairs)
         print(f"wrote {args.plot}", file=sys.stderr)
     return 0

@@ -23,6 +23,8 @@ from wirestate.errors import SimulationError, WirestateError
 from wirestate.lti import CircuitBlock
 from wirestate.simulate.discretize import zoh
 from wirestate.simulate.hybrid import _Engine
+from wirestate.spec.circuit import SWITCHING_KINDS
+from wirestate.switching import is_switched
 
 #: where a signal comes from: the FMU inputs, the held sampled outputs, a linear output row
 FROM_INPUT, FROM_HELD, FROM_LINEAR = 0, 1, 2
@@ -101,9 +103,24 @@ def _check_step(step: float) -> float:
     return step
 
 
+def _refuse_switched(block: CircuitBlock, where: str) -> None:
+    # a circuit with switches or diodes compiles to the block of its all-off mode; as an
+    # FMU its gates would be inputs that change nothing, a silently wrong model
+    spec = getattr(block, "spec", None)
+    if spec is not None and is_switched(spec):
+        parts = [n for n, p in spec.parts.items() if p.kind in SWITCHING_KINDS]
+        raise ExportError(
+            "not_exportable",
+            f"{where}: switches and diodes ({', '.join(parts)}) change the circuit's mode, and "
+            "an FMU holds one linear model; only circuits without them can be exported",
+            location=("parts", parts[0]),
+        )
+
+
 def plan_circuit(block: CircuitBlock, step: float) -> ExportPlan:
     """The plan of a compiled circuit block at the default communication step ``step`` (s)."""
     step = _check_step(step)
+    _refuse_switched(block, block.name)
     parts = getattr(block.spec, "parts", {}) or {}
     inputs = [
         Variable(
@@ -137,6 +154,8 @@ def plan_circuit(block: CircuitBlock, step: float) -> ExportPlan:
 def _refuse(cs: ComposedSystem) -> None:
     bad = []
     for b in cs.blocks.values():
+        if isinstance(b.source, CircuitBlock):
+            _refuse_switched(b.source, f"{cs.name}: block {b.name}")
         if b.category == NONLINEAR:
             what = (
                 "a continuous controller with output limits"

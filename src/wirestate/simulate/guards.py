@@ -113,13 +113,19 @@ def check_run_size(
     if needed > budget:
         raise SimulationError(
             "run_too_large",
-            f"{n + 1:,} samples of {step:g} s to {until:g} s would need about "
+            f"{_count(n + 1)} samples of {step:g} s to {until:g} s would need about "
             f"{format_bytes(needed)} of memory ({format_bytes(budget)} may be used): take a "
             f"larger --step (for example {_fitting_step(until, step, needed, budget):g} s), "
             "a shorter --until, or write the run to --csv without --plot, which streams it "
             "in blocks",
         )
     return n
+
+
+def _count(n: int) -> str:
+    """``1,000,000`` up to a trillion, ``1e+300`` style beyond (a count of hundreds of
+    digits reads as noise)."""
+    return f"{n:,}" if n < 10**12 else f"{float(n):.3g}"
 
 
 def _fitting_step(until: float, step: float, needed: float, budget: float) -> float:
@@ -151,10 +157,11 @@ def check_output_path(path: str | Path, option: str) -> Path:
             "unwritable_output", f"{option} names a folder, not a file", file=str(path)
         )
     if not folder.is_dir():
+        problem = (
+            "is a file, not a folder" if folder.exists() else "does not exist (create it first)"
+        )
         raise SimulationError(
-            "unwritable_output",
-            f"{option}: the folder {str(folder)!r} does not exist (create it first)",
-            file=str(path),
+            "unwritable_output", f"{option}: the folder {str(folder)!r} {problem}", file=str(path)
         )
     if not os.access(folder, os.W_OK | os.X_OK):
         raise SimulationError(
