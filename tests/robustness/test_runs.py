@@ -202,3 +202,26 @@ def test_a_killed_write_leaves_an_obviously_disposable_file_that_the_next_write_
     write_atomic(target, "complete\n")
     assert target.read_text() == "complete\n"
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(["result.csv", alive.name])
+
+
+def test_a_switched_run_beyond_memory_is_refused_before_its_grid():
+    # found by make fuzz: a 1e-300 s step gave numpy's "Maximum allowed size exceeded"
+    # from the time grid of the switched engine, which the run-size check did not cover
+    from wirestate.reduce import compile_circuit
+    from wirestate.simulate.switched import simulate_switched
+    from wirestate.spec import parse_circuit
+
+    buck = circuit(
+        "buck",
+        {"V1": part("voltage_source", ["a", "gnd"], value="48V"),
+         "Q1": part("switch", ["a", "b"]),
+         "D1": part("diode", ["gnd", "b"]),
+         "L1": part("inductor", ["b", "c"], value="22uH"),
+         "C1": part("capacitor", ["c", "gnd"], value="47uF"),
+         "R1": part("resistor", ["c", "gnd"], value="4ohm")},
+        {"v": {"voltage": "c"}},
+    )  # fmt: skip
+    block = compile_circuit(parse_circuit(buck))
+    with pytest.raises(WirestateError) as err:
+        simulate_switched(block, 4e-5, 1e-300, {"Q1": "pwm:100kHz,duty=0.5"})
+    assert err.value.code == "run_too_large"

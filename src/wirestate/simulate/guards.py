@@ -122,6 +122,18 @@ def check_run_size(
     return n
 
 
+def check_grid_size(n_samples: int, until: float, step: float) -> None:
+    """Refuse a time grid that alone would not fit in memory (8 bytes per sample)."""
+    budget = memory_budget()
+    if 8 * n_samples > budget:
+        raise SimulationError(
+            "run_too_large",
+            f"{_count(n_samples)} samples of {step:g} s to {until:g} s would not fit in "
+            f"memory ({format_bytes(budget)} may be used): take a larger step or a shorter "
+            "horizon",
+        )
+
+
 def _count(n: int) -> str:
     """``1,000,000`` up to a trillion, ``1e+300`` style beyond (a count of hundreds of
     digits reads as noise)."""

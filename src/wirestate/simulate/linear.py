@@ -29,7 +29,7 @@ from wirestate.errors import SimulationError
 from wirestate.lti import CircuitBlock
 from wirestate.simulate.discretize import Discretization
 from wirestate.simulate.exponential_action import SparseHold, is_cheaper_than_dense
-from wirestate.simulate.guards import step_count
+from wirestate.simulate.guards import check_grid_size, step_count
 from wirestate.simulate.inputs import InputSet, Waveform, build_inputs
 from wirestate.simulate.results import SimulationResult
 
@@ -141,6 +141,9 @@ def time_grid(until: float, step: float) -> np.ndarray:
     """``0, step, 2 step, ...`` up to ``until`` (s); ``until`` must be a whole number of steps
     to within 1e-9 relative (common practice, no source: guards against rounding only)."""
     n = step_count(until, step)
+    # every engine makes this grid first: a count beyond memory is refused here too (the
+    # run-size check of wirestate.simulate.simulate covers only the runs it dispatches)
+    check_grid_size(n + 1, until, step)
     return np.arange(n + 1) * step
 
 
