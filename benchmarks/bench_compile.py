@@ -18,8 +18,7 @@ import json
 import statistics
 import time
 
-import numpy as np
-
+from scaling import scaling_result
 from wirestate.equations import assemble, nominal_values
 from wirestate.reduce import _layout, _sparse, _triplets, compile_circuit
 from wirestate.spec.generate import ladder
@@ -88,19 +87,8 @@ def run() -> list[dict]:
                 },
             }
         )
-    sizes = [n for n in medians if n >= 100]
-    slope = float(np.polyfit(np.log(sizes), np.log([medians[n] for n in sizes]), 1)[0])
     results.append(
-        {
-            "name": "compile_ladder_scaling",
-            "median_s": medians[max(sizes)],
-            "reference_median_s": medians[min(sizes)],
-            "ratio": medians[max(sizes)] / medians[min(sizes)],
-            "higher_is_better": False,
-            "target": "near-linear: scaling exponent <= 1.2 from 100 to 8000 states",
-            "meets_target": slope <= 1.2,
-            "details": {"exponent": slope, "states": sizes},
-        }
+        scaling_result("compile_ladder_scaling", {n: medians[n] for n in medians if n >= 100})
     )
     return results
 

@@ -25,6 +25,8 @@ import time
 
 import numpy as np
 
+from scaling import scaling_result
+
 SECTIONS = (50, 100, 250, 500, 1000, 2000, 4000)
 STEPS, DT = 200, 20e-9
 DENSE_MAX_STATES = 2000
@@ -129,20 +131,7 @@ def run() -> list[dict]:
                 "details": details,
             }
         )
-    sizes = sorted(medians)
-    slope = float(np.polyfit(np.log(sizes), np.log([medians[n] for n in sizes]), 1)[0])
-    results.append(
-        {
-            "name": "large_simulate_scaling",
-            "median_s": medians[sizes[-1]],
-            "reference_median_s": medians[sizes[0]],
-            "ratio": medians[sizes[-1]] / medians[sizes[0]],
-            "higher_is_better": False,
-            "target": "near-linear: scaling exponent <= 1.2 from 100 to 8000 states",
-            "meets_target": slope <= 1.2,
-            "details": {"exponent": slope, "states": sizes},
-        }
-    )
+    results.append(scaling_result("large_simulate_scaling", medians))
     return results
 
 

@@ -15,7 +15,7 @@ import warnings
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from tests.robustness.conftest import toml_text
+from tests.robustness.conftest import buck, toml_text
 from wirestate.errors import WirestateError
 
 EXAMPLES = int(os.environ.get("WIRESTATE_FUZZ_EXAMPLES", "60"))
@@ -144,18 +144,6 @@ def test_generated_pwm_waveforms_give_gates_or_our_error(text):
     assert np.all((values == 0.0) | (values == 1.0)), "a gate is on or off"
 
 
-BUCK = {
-    "circuit": {"name": "buck"},
-    "parts": {"V1": {"kind": "voltage_source", "nodes": ["a", "gnd"], "value": "48V"},
-              "Q1": {"kind": "switch", "nodes": ["a", "b"]},
-              "D1": {"kind": "diode", "nodes": ["gnd", "b"], "forward_voltage": "0.7V"},
-              "L1": {"kind": "inductor", "nodes": ["b", "c"], "value": "22uH"},
-              "C1": {"kind": "capacitor", "nodes": ["c", "gnd"], "value": "47uF"},
-              "R1": {"kind": "resistor", "nodes": ["c", "gnd"], "value": "4ohm"}},
-    "outputs": {"v_out": {"voltage": "c"}},
-}  # fmt: skip
-
-
 @settings(FUZZ, max_examples=max(5, EXAMPLES // 20))
 @given(pwm_texts, st.sampled_from(["40us", "20us", "0s", "-1us", "nan", "1e999s"]),
        st.sampled_from(["1us", "5us", "3us", "0s", "1e-300s"]))  # fmt: skip
@@ -168,7 +156,7 @@ def test_a_switched_run_gives_a_result_or_our_error(text, until, step):
     from wirestate.spec import parse_circuit
     from wirestate.units import parse_quantity
 
-    block = compile_circuit(parse_circuit(BUCK))
+    block = compile_circuit(parse_circuit(buck()))
     try:
         horizon = parse_quantity(until, "s", field="until")
         result = simulate_switched(block, horizon, parse_quantity(step, "s"), {"Q1": text})

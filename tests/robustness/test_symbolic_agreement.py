@@ -34,18 +34,21 @@ def _specs():
         yield load_circuit(path)
 
 
+def _spread(spec, rng, decades: float) -> dict[str, float]:
+    """Every resistor, inductor and capacitor scaled by 10^u, u uniform over +-decades/2."""
+    return {
+        n: float(p.value * 10 ** rng.uniform(-decades / 2, decades / 2))
+        for n, p in spec.parts.items()
+        if p.kind in ("resistor", "inductor", "capacitor")
+    }
+
+
 @pytest.mark.parametrize("decades", [6, 9, 12])
 def test_symbolic_and_numeric_agree_normwise(decades):
     rng = np.random.default_rng(decades)
     for spec in _specs():
-        passive = {
-            n: p for n, p in spec.parts.items() if p.kind in ("resistor", "inductor", "capacitor")
-        }
         for _ in range(3):
-            values = {
-                n: float(p.value * 10 ** rng.uniform(-decades / 2, decades / 2))
-                for n, p in passive.items()
-            }
+            values = _spread(spec, rng, decades)
             numeric = compile_circuit(spec.with_values(values))
             symbols = {n: casadi.SX.sym(n) for n in values}
             ss = symbolic_state_space(spec, symbols)
@@ -107,14 +110,8 @@ def test_numeric_compile_is_accurate_entry_by_entry(decades):
     specs = [ladder(6, resistance=1.0, inductance=1e-6, capacitance=1e-6, load_resistance=5.0)]
     specs += [load_circuit(path) for path in MODELS + MORE_MODELS]
     for spec in specs:
-        passive = {
-            n: p for n, p in spec.parts.items() if p.kind in ("resistor", "inductor", "capacitor")
-        }
         for _ in range(2):
-            values = {
-                n: float(p.value * 10 ** rng.uniform(-decades / 2, decades / 2))
-                for n, p in passive.items()
-            }
+            values = _spread(spec, rng, decades)
             varied = spec.with_values(values)
             block = compile_circuit(varied)
             matrices = (block.A, block.B, block.C, block.D)
