@@ -15,6 +15,7 @@ LAYERS = [
     {"topology"},
     {"equations"},
     {"lti"},
+    {"elimination"},
     {"reduce"},
     {"balanced"},
     {"switching"},

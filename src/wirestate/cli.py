@@ -14,6 +14,7 @@ import importlib.util
 import sys
 import warnings
 from collections.abc import Sequence
+from typing import NoReturn
 
 from wirestate import __version__
 from wirestate.errors import WirestateError, WirestateWarning
@@ -35,6 +36,14 @@ COMMANDS: dict[str, tuple[str, str]] = {
 EXIT_USER_ERROR = 2
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with a mistake in the arguments reported like every other user mistake:
+    one line ``error: ...`` and status 2 (argparse itself prints its usage block first)."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(EXIT_USER_ERROR, f"error: {self.prog}: {message} (see: {self.prog} --help)\n")
+
+
 def build_parser(
     available: dict[str, object], selected: str | None = None
 ) -> argparse.ArgumentParser:
@@ -44,7 +53,7 @@ def build_parser(
     not been imported: ``wirestate --help`` lists every command from ``COMMANDS`` without
     importing any of them (start-up time), and ``wirestate CMD ...`` imports only CMD.
     """
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="wirestate",
         description="Circuit model files as named state-space blocks: inspect, simulate, "
         "tune damping parts, keep responses under regression.",

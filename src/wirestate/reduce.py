@@ -14,22 +14,27 @@ standard removal of input derivatives, e.g. Chua and Lin 1975, sec. 8-4). An out
 The order equals the number of normal-tree capacitors plus link inductors, i.e.
 ``capacitors + inductors - C/V loops - L/I cutsets``.
 
-The numeric path uses a sparse LU factorisation (SuperLU via SciPy); the symbolic path runs
-the same stamps with CasADi values and solves with CasADi, so optimisation sees exactly the
-compiled equations.
+The numeric path eliminates the unknowns one at a time on the sparse rows
+(:mod:`wirestate.elimination`: linear time for ladder-like circuits, no SciPy import for a
+small one) and falls back to a sparse LU factorisation (SuperLU via SciPy) when the solution
+is dense; the symbolic path runs the same stamps with CasADi values and solves with CasADi,
+so optimisation sees exactly the compiled equations. Large blocks with a sparse ``A`` keep
+it sparse (:attr:`wirestate.lti.CircuitBlock.sparse_A`).
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Mapping
+import gc
+import math
+from collections.abc import Iterable, Iterator, Mapping
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
-import scipy.sparse as sp
-from scipy.sparse.linalg import splu
 
+from wirestate.elimination import SingularEquations, eliminate
 from wirestate.equations import Backend, Equations, assemble, nominal_values, part_parameter
 from wirestate.errors import CompileError, TopologyError, WirestateError
 from wirestate.lti import CircuitBlock
@@ -81,7 +86,24 @@ def _triplets(forms: list[dict], layout: _Layout) -> tuple[list, list]:
     return w_part, known_part
 
 
-def _sparse(triplets: list, shape: tuple[int, int]) -> sp.csc_matrix:
+def _rows(forms: list[dict], layout: _Layout) -> tuple[list[dict], list[dict]]:
+    """Split linear forms into their ``w`` part and their known part, by column index."""
+    unknown, known = [], []
+    for form in forms:
+        w_row, k_row = {}, {}
+        for (kind, index), value in form.items():
+            if kind == "w":
+                w_row[index] = value
+            else:
+                k_row[layout.column(kind, index)] = value
+        unknown.append(w_row)
+        known.append(k_row)
+    return unknown, known
+
+
+def _sparse(triplets: list, shape: tuple[int, int]) -> Any:
+    import scipy.sparse as sp
+
     if not triplets:
         return sp.csc_matrix(shape)
     rows, cols, vals = zip(*triplets, strict=True)
@@ -99,7 +121,112 @@ class _Solution:
     D1_magnitude: Any = None
 
 
+#: blocks with more states than this whose A has at most ``SPARSE_MAX_DENSITY`` of its
+#: entries non-zero keep A sparse (a ladder of thousands of sections: a dense A alone would
+#: be hundreds of megabytes); see :attr:`wirestate.lti.CircuitBlock.sparse_A`
+SPARSE_MIN_STATES = 400
+SPARSE_MAX_DENSITY = 0.05
+
+
+def _elimination_budget(n_w: int, width: int) -> int:
+    # entries the plain-Python elimination may create before a general sparse LU is faster:
+    # ~50 per unknown covers ladders, filters and windings with room to spare; a small
+    # circuit never falls back (so compiling it never imports SciPy). No source: measured.
+    return max(200_000, 50 * (n_w + width))
+
+
 def _solve_numeric(eq: Equations, layout: _Layout) -> _Solution:
+    n_x, width = layout.n_x, layout.width
+    rows, known = _rows(eq.rows, layout)
+    try:
+        solution = eliminate(rows, known, eq.n_w, budget=_elimination_budget(eq.n_w, width))
+    except SingularEquations:
+        raise _singular_error(eq) from None
+    if solution is None:
+        return _solve_superlu(eq, layout)
+    y_unknown, y_known = _rows(eq.outputs, layout)
+    Y = np.zeros((len(eq.outputs), width))
+    Y_size = np.zeros((len(eq.outputs), width))  # the terms' sizes, for _check_output_...
+    for r, (w_row, k_row) in enumerate(zip(y_unknown, y_known, strict=True)):
+        for c, v in k_row.items():
+            Y[r, c] += v
+            Y_size[r, c] += abs(v)
+        for w, factor in w_row.items():
+            for c, v in solution[w].items():
+                Y[r, c] += factor * v
+                Y_size[r, c] += abs(factor * v)
+    d_forms = solution[eq.d_offset : eq.d_offset + n_x]
+    in_a = sum(1 for form in d_forms for c in form if c < n_x)
+    Wd = _from_forms(
+        d_forms, width, sparse=n_x > SPARSE_MIN_STATES and in_a <= SPARSE_MAX_DENSITY * n_x**2
+    )
+    finite = np.isfinite(Wd.data if hasattr(Wd, "data") else Wd).all()
+    if not (finite and np.isfinite(Y).all()):
+        # every pivot was non-zero, so the equations are regular: the numbers overflowed
+        raise _overflow_error(eq)
+    return _split_solution(Wd, Y, Y_size, layout)
+
+
+def _overflow_error(eq: Equations) -> CompileError:
+    """``out_of_range`` naming the smallest and the largest part value (by magnitude)."""
+    values = {
+        name: abs(v)
+        for name, v in nominal_values(eq.topology).items()
+        if isinstance(v, float) and v != 0.0
+    }
+    spread = ""
+    location: tuple[str, ...] = ("parts",)
+    if values:
+        low, high = min(values, key=values.get), max(values, key=values.get)
+        decades = math.log10(values[high] / values[low])
+        spread = f": part values span {decades:.0f} decades, from {low} to {high}"
+        location = ("parts", low)
+    return CompileError(
+        "out_of_range",
+        f"the state equations leave the floating-point range{spread} (a part far smaller or "
+        "larger than the rest; check its value and unit prefix)",
+        location=location,
+    )
+
+
+def _from_forms(forms: list[dict], width: int, *, sparse: bool) -> Any:
+    """Rows ``{column: value}`` as a dense array, or (large, sparse) a SciPy CSR matrix."""
+    if not sparse:
+        out = np.zeros((len(forms), width))
+        for r, form in enumerate(forms):
+            if form:
+                out[r, list(form)] = list(form.values())
+        return out
+    import scipy.sparse as sp
+
+    counts = np.fromiter((len(form) for form in forms), dtype=np.int64, count=len(forms))
+    indptr = np.concatenate([[0], np.cumsum(counts)])
+    indices = np.fromiter((c for form in forms for c in form), dtype=np.int64, count=indptr[-1])
+    data = np.fromiter((v for form in forms for v in form.values()), float, count=indptr[-1])
+    out = sp.csr_matrix((data, indices, indptr), shape=(len(forms), width))
+    out.sort_indices()
+    return out
+
+
+def _split_solution(Wd: Any, Y: np.ndarray, Y_size: np.ndarray, layout: _Layout) -> _Solution:
+    x_cols = slice(0, layout.n_x)
+    u_cols = slice(layout.n_x, layout.n_x + layout.n_u)
+    du_cols = slice(layout.n_x + layout.n_u, layout.width)
+    dense = Wd if isinstance(Wd, np.ndarray) else None
+    return _Solution(
+        A=Wd[:, x_cols] if dense is not None else Wd[:, x_cols].tocsr(),
+        B0=dense[:, u_cols] if dense is not None else Wd[:, u_cols].toarray(),
+        B1=dense[:, du_cols] if dense is not None else Wd[:, du_cols].toarray(),
+        C=Y[:, x_cols],
+        D0=Y[:, u_cols],
+        D1=Y[:, du_cols],
+        D1_magnitude=Y_size[:, du_cols],
+    )
+
+
+def _solve_superlu(eq: Equations, layout: _Layout) -> _Solution:
+    """Rows of ``M^-1 N`` by SuperLU, for circuits whose solution is too dense for
+    :func:`wirestate.elimination.eliminate`."""
     n_rows, n_w = len(eq.rows), eq.n_w
     w_t, k_t = _triplets(eq.rows, layout)
     M = _sparse(w_t, (n_rows, n_w))
@@ -113,25 +240,14 @@ def _solve_numeric(eq: Equations, layout: _Layout) -> _Solution:
     try:
         W = _solve_rows(M, -N, needed)
     except RuntimeError:
-        raise _singular_error(eq, M) from None
+        raise _singular_error(eq) from None
     if not np.all(np.isfinite(W)):
-        raise _singular_error(eq, M)
+        raise _singular_error(eq)
     Wd, Wy = W[: layout.n_x], W[layout.n_x :]
     Yw_used = Yw[:, output_rows]
     Y = Yw_used @ Wy + Yk
-    x_cols = slice(0, layout.n_x)
-    u_cols = slice(layout.n_x, layout.n_x + layout.n_u)
-    du_cols = slice(layout.n_x + layout.n_u, layout.width)
-    magnitude = abs(Yw_used) @ np.abs(Wy[:, du_cols]) + np.abs(Yk[:, du_cols])
-    return _Solution(
-        A=Wd[:, x_cols],
-        B0=Wd[:, u_cols],
-        B1=Wd[:, du_cols],
-        C=Y[:, x_cols],
-        D0=Y[:, u_cols],
-        D1=Y[:, du_cols],
-        D1_magnitude=magnitude,
-    )
+    Y_size = abs(Yw_used) @ np.abs(Wy) + np.abs(Yk)
+    return _split_solution(Wd, Y, Y_size, layout)
 
 
 #: above this many unknowns the singular-equation message names no parts (an SVD would
@@ -139,7 +255,7 @@ def _solve_numeric(eq: Equations, layout: _Layout) -> _Solution:
 _NAME_PARTS_MAX = 3000
 
 
-def _singular_error(eq: Equations, M: sp.csc_matrix) -> CompileError:
+def _singular_error(eq: Equations) -> CompileError:
     """``singular_equations`` naming the parts whose equations depend on each other.
 
     The left null vector of ``M`` (from its SVD) weights the equations that combine to
@@ -148,8 +264,13 @@ def _singular_error(eq: Equations, M: sp.csc_matrix) -> CompileError:
     """
     location: tuple[str, ...] = ("parts",)
     named = ""
-    if M.shape[0] <= _NAME_PARTS_MAX and eq.row_labels:
-        U, sigma, _ = np.linalg.svd(M.toarray())
+    if len(eq.rows) <= _NAME_PARTS_MAX and eq.row_labels:
+        M = np.zeros((len(eq.rows), eq.n_w))
+        for r, form in enumerate(eq.rows):
+            for (kind, index), value in form.items():
+                if kind == "w":
+                    M[r, index] += value
+        U, sigma, _ = np.linalg.svd(M)
         weights = np.abs(U[:, -1])
         involved = [eq.row_labels[k] for k in np.flatnonzero(weights > 1e-6 * weights.max())]
         parts = [label.split()[-1] for label in involved if not label.startswith("KCL at")]
@@ -168,13 +289,15 @@ def _singular_error(eq: Equations, M: sp.csc_matrix) -> CompileError:
     )
 
 
-def _solve_rows(M: sp.csc_matrix, N: sp.csc_matrix, rows: np.ndarray, batch: int = 16):
+def _solve_rows(M: Any, N: Any, rows: np.ndarray, batch: int = 16) -> np.ndarray:
     """Rows ``rows`` of ``M^-1 N`` as a dense array (sparse LU, SuperLU via SciPy).
 
     SuperLU solves a handful of dense right-hand sides at a time much faster than one wide
     block (16 columns per call measured fastest on 1000-section ladders), and only the
     state-derivative and output rows are kept, so memory stays at the size of the result.
     """
+    from scipy.sparse.linalg import splu
+
     lu = splu(M, permc_spec="MMD_AT_PLUS_A")
     N = N.tocsc()
     n, width = N.shape
@@ -253,7 +376,8 @@ def compile_circuit(spec: CircuitSpec) -> CircuitBlock:
     """Compile a validated circuit into an explicit, minimal, named state-space block.
 
     Method: normal-tree state selection (Bryant 1962; Chua and Lin 1975) and modified nodal
-    analysis stamping (Ho, Ruehli and Brennan 1975), solved by sparse LU.
+    analysis stamping (Ho, Ruehli and Brennan 1975), solved by sparse Gaussian elimination
+    (:mod:`wirestate.elimination`, or SuperLU when the solution is dense).
 
     Parameters
     ----------
@@ -267,8 +391,23 @@ def compile_circuit(spec: CircuitSpec) -> CircuitBlock:
         sources (and electromechanical speeds), outputs from ``[outputs]`` plus
         electromechanical torques or forces.
     """
-    topology = analyse(spec)
-    return block_from_equations(assemble(topology, nominal_values(topology)))
+    with _no_cyclic_collection():
+        topology = analyse(spec)
+        return block_from_equations(assemble(topology, nominal_values(topology)))
+
+
+@contextmanager
+def _no_cyclic_collection() -> Iterator[None]:
+    """Pause Python's cyclic garbage collector: compiling a large circuit creates hundreds
+    of thousands of small dictionaries, none in a reference cycle, and the collector's
+    passes over them took a third of the time of a 4000-section ladder (measured)."""
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
 
 
 def block_from_equations(eq: Equations) -> CircuitBlock:
@@ -287,8 +426,8 @@ def block_from_equations(eq: Equations) -> CircuitBlock:
     scale = max(1.0, float(np.abs(B1).max(initial=0.0)))
     B1[np.abs(B1) <= _SHIFT_TOLERANCE * scale] = 0.0
     shifted = np.any(B1 != 0.0, axis=1)
-    A = np.asarray(sol.A)
-    B = A @ B1 + sol.B0
+    A = sol.A  # a numpy array, or a SciPy CSR matrix for a large sparse block
+    B = np.asarray(A @ B1) + sol.B0
     C = np.asarray(sol.C)
     D = sol.D0 + C @ B1
     states = _state_names(topology, shifted)

@@ -18,6 +18,8 @@ from __future__ import annotations
 
 import math
 import re
+import sys
+from typing import Any
 
 from wirestate.errors import QuantityError
 
@@ -133,7 +135,7 @@ def parse_quantity(text: str | float | int, unit: str, *, field: str = "value") 
         value = float(text)
         if not math.isfinite(value):
             raise QuantityError("invalid_quantity", f"{_lead(field)}expected a finite number")
-        return value
+        return _normal(value, text, field)
     if not isinstance(text, str):
         raise QuantityError(
             "invalid_quantity",
@@ -162,6 +164,21 @@ def parse_quantity(text: str | float | int, unit: str, *, field: str = "value") 
     value = number * scale
     if not math.isfinite(value):
         raise QuantityError("invalid_quantity", f"{_lead(field)}{text!r} is not finite")
+    if value == 0.0 and any(c in "123456789" for c in match.group(1).split("e")[0].lower()):
+        value = math.ulp(0.0)  # rounded to zero: refused below like any subnormal value
+    return _normal(value, text, field)
+
+
+def _normal(value: float, text: Any, field: str) -> float:
+    """``value``, unless it is a subnormal double (0 < |value| < 2.2e-308, or a non-zero
+    number that rounded to 0): no part is that small, and its reciprocal (a conductance,
+    a time constant) would overflow to infinity in the equations."""
+    if value != 0.0 and abs(value) < sys.float_info.min:
+        raise QuantityError(
+            "invalid_quantity",
+            f"{_lead(field)}{text!r} is below the smallest normal double "
+            f"({sys.float_info.min:.3g}); no physical value is that small",
+        )
     return value
 
 

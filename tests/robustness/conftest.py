@@ -18,6 +18,30 @@ def circuit(name: str, parts: dict[str, dict], outputs: dict[str, dict] | None =
     return {"circuit": {"name": name}, "parts": parts, "outputs": outputs or {}}
 
 
+#: V1 (5 V) - R1 (1 kohm) - C1 (1 uF) to ground, output the capacitor voltage
+RC = circuit(
+    "rc",
+    {"V1": part("voltage_source", ["a", "gnd"], value="5V"),
+     "R1": part("resistor", ["a", "b"], value="1kohm"),
+     "C1": part("capacitor", ["b", "gnd"], value="1uF")},
+    {"v": {"voltage": "b"}},
+)  # fmt: skip
+
+
+def buck(inductance: str = "22uH") -> dict:
+    """A buck converter (a switch Q1, a diode D1, an LC filter, a 4 ohm load), as a dict."""
+    return circuit(
+        "buck",
+        {"V1": part("voltage_source", ["a", "gnd"], value="48V"),
+         "Q1": part("switch", ["a", "b"]),
+         "D1": part("diode", ["gnd", "b"], forward_voltage="0.7V"),
+         "L1": part("inductor", ["b", "c"], value=inductance),
+         "C1": part("capacitor", ["c", "gnd"], value="47uF"),
+         "R1": part("resistor", ["c", "gnd"], value="4ohm")},
+        {"v_out": {"voltage": "c"}},
+    )  # fmt: skip
+
+
 def toml_text(data: dict[str, Any]) -> str:
     """A small TOML writer for the test files (tables of scalars, arrays and inline tables)."""
     lines: list[str] = []

@@ -183,8 +183,12 @@ def test_regress_update_takes_zero_state_and_no_input_blocks(tmp_path):
         toml_text(circuit("divider", DIVIDER, {"v": {"voltage": "b"}}))
     )
     (models / "rc.toml").write_text(toml_text(circuit("rc", RC, {"v": {"voltage": "a"}})))
-    assert main(["regress", str(models / "divider.toml"), str(models / "rc.toml"), "--update"]) == 0
-    assert main(["regress", str(models / "divider.toml"), str(models / "rc.toml")]) == 0
+    # golden files in the test's own folder: the default, models/golden, is the project's
+    files = [str(models / "divider.toml"), str(models / "rc.toml")]
+    golden = ["--golden", str(tmp_path / "golden")]
+    assert main(["regress", *files, *golden, "--update"]) == 0
+    assert list((tmp_path / "golden").rglob("rc.json"))
+    assert main(["regress", *files, *golden]) == 0
 
 
 def test_no_states_and_no_inputs_converts():

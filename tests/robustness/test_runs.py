@@ -11,17 +11,9 @@ import sys
 import numpy as np
 import pytest
 
-from tests.robustness.conftest import circuit, part, toml_text
+from tests.robustness.conftest import RC, buck, circuit, part, toml_text
 from wirestate.cli import main
 from wirestate.errors import WirestateError
-
-RC = circuit(
-    "rc",
-    {"V1": part("voltage_source", ["a", "gnd"], value="5V"),
-     "R1": part("resistor", ["a", "b"], value="1kohm"),
-     "C1": part("capacitor", ["b", "gnd"], value="1uF")},
-    {"v": {"voltage": "b"}},
-)  # fmt: skip
 
 # a non-inverting amplifier of gain 3.5 feeding its own RC: dv/dt = (3.5 - 1) v / (R C),
 # a pole at +2500 1/s for R C = 1 ms (first-order closed form)
@@ -202,3 +194,16 @@ def test_a_killed_write_leaves_an_obviously_disposable_file_that_the_next_write_
     write_atomic(target, "complete\n")
     assert target.read_text() == "complete\n"
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(["result.csv", alive.name])
+
+
+def test_a_switched_run_beyond_memory_is_refused_before_its_grid():
+    # found by make fuzz: a 1e-300 s step gave numpy's "Maximum allowed size exceeded"
+    # from the time grid of the switched engine, which the run-size check did not cover
+    from wirestate.reduce import compile_circuit
+    from wirestate.simulate.switched import simulate_switched
+    from wirestate.spec import parse_circuit
+
+    block = compile_circuit(parse_circuit(buck()))
+    with pytest.raises(WirestateError) as err:
+        simulate_switched(block, 4e-5, 1e-300, {"Q1": "pwm:100kHz,duty=0.5"})
+    assert err.value.code == "run_too_large"

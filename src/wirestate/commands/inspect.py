@@ -45,6 +45,7 @@ def run(args: argparse.Namespace) -> int:
 
         figure_format(args.plot)  # a bad file name fails before any output
     found = inspect_file(args.model)
+    pairs = [_pair(text, found.linear) for text in args.pair] or None  # with or without --plot
     sensitivity = _sensitivity(found, args.model) if args.sensitivity else None
     if args.json:
         data = dict(found.data)
@@ -64,7 +65,6 @@ def run(args: argparse.Namespace) -> int:
     if args.plot:
         from wirestate.report.inspect_plot import plot_inspection
 
-        pairs = [_pair(text, found.linear) for text in args.pair] or None
         plot_inspection(found, args.plot, pairs=pairs)
         print(f"wrote {args.plot}", file=sys.stderr)
     return 0

@@ -159,16 +159,11 @@ def _start(model, args: argparse.Namespace, assignments: dict, path: Path):
 
 def _check_before_work(args: argparse.Namespace) -> None:
     # every check that needs no model runs before the model is read or any step taken
-    from wirestate.simulate.guards import check_output_path, check_tolerances
+    from wirestate.commands.outputs import check_outputs
+    from wirestate.simulate.guards import check_tolerances
 
     check_tolerances({"rtol": args.rtol, "atol": args.atol})
-    if args.csv:
-        check_output_path(args.csv, "--csv")
-    if args.plot:
-        from wirestate.report.figure import figure_format
-
-        check_output_path(args.plot, "--plot")
-        figure_format(args.plot)
+    check_outputs(csv=args.csv, plot=args.plot, figures=("plot",))
 
 
 def _streams(model, until: float, step: float) -> bool:

@@ -101,9 +101,18 @@ def format_yield(report: dict) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
+    from wirestate.commands.outputs import check_outputs
+    from wirestate.errors import WirestateError
     from wirestate.explore import tolerance_yield
     from wirestate.tune import load_tuning
 
+    check_outputs(json=args.json, plot=args.plot, figures=("plot",))
+    if args.seed < 0:  # numpy's SeedSequence takes whole numbers of 0 or more
+        raise WirestateError(
+            "out_of_range",
+            f"the seed must be a whole number of 0 or more, got {args.seed}",
+            location=("seed",),
+        )
     spec = load_tuning(args.spec)
     parts = [p.strip() for p in args.parts.split(",") if p.strip()] if args.parts else None
     with progress_bar("yield", args.quiet) as bar:

@@ -139,6 +139,13 @@ def export_fmu(
         ``not_exportable`` (non-linear blocks, named), ``no_c_compiler``,
         ``build_failed`` or ``unwritable_output``.
     """
+    if Path(out).suffix.lower() != ".fmu":
+        # FMI 2.0 (sec. 2.3, from memory): an FMU is a zip archive with the extension .fmu
+        raise ExportError(
+            "unwritable_output",
+            f"an FMU file name ends in .fmu, got {Path(out).name!r}",
+            file=str(out),
+        )
     file = None
     if isinstance(model, str | Path):
         file = str(model)

@@ -62,6 +62,20 @@ def load_results(path: str | Path) -> dict[str, Any]:
                 file=str(path),
                 location=("results", index),
             )
+        ratio = entry.get("ratio")
+        # a ratio is a positive finite number, or null where the benchmark gave none
+        if ratio is not None and (
+            isinstance(ratio, bool)
+            or not isinstance(ratio, int | float)
+            or not math.isfinite(ratio)
+            or ratio <= 0
+        ):
+            raise RegressionError(
+                "invalid_benchmark_file",
+                f"the ratio of {entry['name']!r} must be a positive number or null, got {ratio!r}",
+                file=str(path),
+                location=("results", index, "ratio"),
+            )
     failures = document.get("failures", [])
     if not isinstance(failures, list):
         raise RegressionError(

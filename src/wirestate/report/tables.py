@@ -67,10 +67,10 @@ def block_summary(block: CircuitBlock) -> str:
     out.append("")
     large = block.n_states > LARGE_BLOCK_STATES
     if large:
-        slowest, fastest = extreme_poles(block.A, 10)
+        slowest, fastest = extreme_poles(_state_matrix(block), 10)
         out.append(
             f"modes (poles of A): {block.n_states} states; the 10 slowest, then the 10 "
-            "fastest (sparse Arnoldi; the full list with --json)"
+            "fastest (shift-invert Arnoldi)"
         )
         shown = np.concatenate([slowest, fastest])
     else:
@@ -101,7 +101,7 @@ def block_summary(block: CircuitBlock) -> str:
         out.append("  (no states)")
     out.append("")
     out.append("DC gain (output per input, SI units)")
-    gain = zero_round_off(block.dc_gain(), dc_gain_term_sizes(block.A, block.B, block.C, block.D))
+    gain = shown_dc_gain(block)
     if block.inputs and block.outputs:
         rows = [[name, *map(_gain_cell, gain[i])] for i, name in enumerate(block.outputs)]
         out.append(table(("output \\ input", *block.inputs), rows))
@@ -124,25 +124,51 @@ def _gain_cell(value: float) -> float | str:
 
 
 def block_json(block: CircuitBlock) -> dict[str, Any]:
-    """JSON-ready description: names, matrices (SI), poles, modes, DC gain."""
-    poles = block.poles()
-    gain = zero_round_off(block.dc_gain(), dc_gain_term_sizes(block.A, block.B, block.C, block.D))
+    """JSON-ready description: names, matrices (SI), poles, modes, DC gain.
+
+    A block with more than :data:`~wirestate.lti.LARGE_BLOCK_STATES` states lists its 10
+    slowest, then its 10 fastest poles (``"poles_listed"`` says so) and gives ``A`` in
+    coordinate form (``{"shape", "row", "col", "value"}``, its non-zero entries): every
+    pole and a dense ``A`` of thousands of states would be hundreds of megabytes of text.
+    """
+    large = block.n_states > LARGE_BLOCK_STATES
+    if large:
+        slowest, fastest = extreme_poles(_state_matrix(block), 10)
+        entries = pole_entries(np.concatenate([slowest, fastest]))
+        entries["pole_count"] = block.n_states
+        entries["poles_listed"] = (
+            f"the 10 slowest, then the 10 fastest of {block.n_states}; " + entries["poles_listed"]
+        )
+    else:
+        entries = pole_entries(block.poles())
+    gain = shown_dc_gain(block)
     return {
         "name": block.name,
         "states": list(block.states),
         "inputs": list(block.inputs),
         "outputs": list(block.outputs),
         "units": dict(block.units),
-        "A": _rows(block.A),
+        "A": _coordinates(_state_matrix(block)) if large else _rows(block.A),
         "B": _rows(block.B),
         "C": _rows(block.C),
         "D": _rows(block.D),
         "x0": [float(v) for v in block.x0],
         "state_offset": _rows(block.state_offset),
-        **pole_entries(poles),
+        **entries,
         "dc_gain": [[_json_float(v) for v in row] for row in gain],
         "notes": list(block.notes),
     }
+
+
+def shown_dc_gain(block: CircuitBlock) -> np.ndarray:
+    """The DC gain as tables and JSON show it: entries that are round-off of terms that
+    cancel are 0 (:func:`dc_gain_term_sizes`). Above
+    :data:`~wirestate.lti.LARGE_BLOCK_STATES` states, where the term sizes would need a
+    dense inverse, entries below 1e-12 of the largest finite entry count as round-off."""
+    gain = block.dc_gain()
+    if block.n_states > LARGE_BLOCK_STATES:
+        return _clean(gain)
+    return zero_round_off(gain, dc_gain_term_sizes(block.A, block.B, block.C, block.D))
 
 
 def dc_gain_term_sizes(A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray) -> np.ndarray:
@@ -168,6 +194,35 @@ def dc_gain_term_sizes(A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarra
     if inner is None or not np.isfinite(inner).all():
         return np.abs(dc_gain_limit(A, B, C, D))
     return np.abs(D) + np.abs(C) @ inner
+
+
+def _state_matrix(block: CircuitBlock) -> Any:
+    """``A`` in the form the block holds it: SciPy sparse for a large sparse block."""
+    return block.A if block.sparse_A is None else block.sparse_A
+
+
+def _coordinates(A: Any) -> dict[str, Any]:
+    if not hasattr(A, "tocoo"):
+        rows, cols = np.nonzero(A)
+        values = A[rows, cols]
+    else:
+        coo = A.tocoo()
+        rows, cols, values = coo.row, coo.col, coo.data
+    return {
+        "shape": [int(v) for v in A.shape],
+        "row": [int(v) for v in rows],
+        "col": [int(v) for v in cols],
+        "value": [float(v) for v in values],
+    }
+
+
+def _clean(matrix: np.ndarray) -> np.ndarray:
+    """For display: entries below 1e-12 of the largest finite entry are round-off."""
+    out = np.array(matrix, dtype=float)
+    finite = np.isfinite(out)
+    scale = np.abs(out[finite]).max(initial=0.0)
+    out[finite & (np.abs(out) < 1e-12 * scale)] = 0.0
+    return out
 
 
 def _rows(matrix: np.ndarray) -> list[list[float]]:

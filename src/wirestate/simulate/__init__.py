@@ -77,8 +77,9 @@ def simulate(
     with np.errstate(over="ignore", invalid="ignore"):  # a non-finite run is reported below
         result = _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, options)
     guards.check_finite_result(
-        result.name, result.time, [result.states, result.outputs], guards.model_poles(model), step
-    )
+        result.name, result.time, [result.states, result.outputs],
+        lambda: guards.model_poles(model), step,
+    )  # fmt: skip
     return result
 
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 import os
 import shutil
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -112,13 +113,31 @@ def check_run_size(
     if needed > budget:
         raise SimulationError(
             "run_too_large",
-            f"{n + 1:,} samples of {step:g} s to {until:g} s would need about "
+            f"{_count(n + 1)} samples of {step:g} s to {until:g} s would need about "
             f"{format_bytes(needed)} of memory ({format_bytes(budget)} may be used): take a "
             f"larger --step (for example {_fitting_step(until, step, needed, budget):g} s), "
             "a shorter --until, or write the run to --csv without --plot, which streams it "
             "in blocks",
         )
     return n
+
+
+def check_grid_size(n_samples: int, until: float, step: float) -> None:
+    """Refuse a time grid that alone would not fit in memory (8 bytes per sample)."""
+    budget = memory_budget()
+    if 8 * n_samples > budget:
+        raise SimulationError(
+            "run_too_large",
+            f"{_count(n_samples)} samples of {step:g} s to {until:g} s would not fit in "
+            f"memory ({format_bytes(budget)} may be used): take a larger step or a shorter "
+            "horizon",
+        )
+
+
+def _count(n: int) -> str:
+    """``1,000,000`` up to a trillion, ``1e+300`` style beyond (a count of hundreds of
+    digits reads as noise)."""
+    return f"{n:,}" if n < 10**12 else f"{float(n):.3g}"
 
 
 def _fitting_step(until: float, step: float, needed: float, budget: float) -> float:
@@ -150,10 +169,11 @@ def check_output_path(path: str | Path, option: str) -> Path:
             "unwritable_output", f"{option} names a folder, not a file", file=str(path)
         )
     if not folder.is_dir():
+        problem = (
+            "is a file, not a folder" if folder.exists() else "does not exist (create it first)"
+        )
         raise SimulationError(
-            "unwritable_output",
-            f"{option}: the folder {str(folder)!r} does not exist (create it first)",
-            file=str(path),
+            "unwritable_output", f"{option}: the folder {str(folder)!r} {problem}", file=str(path)
         )
     if not os.access(folder, os.W_OK | os.X_OK):
         raise SimulationError(
@@ -183,13 +203,19 @@ def check_tolerances(options: dict[str, Any]) -> None:
 
 
 def check_finite_result(
-    name: str, time: np.ndarray, arrays: list[np.ndarray], poles: np.ndarray | None, step: float
+    name: str,
+    time: np.ndarray,
+    arrays: list[np.ndarray],
+    poles: np.ndarray | Callable[[], np.ndarray | None] | None,
+    step: float,
 ) -> None:
     """Stop when a run left the floating-point range, naming the mode responsible.
 
     An unstable mode (pole with positive real part ``sigma``) grows as ``exp(sigma t)``; a
     stable mode faster than the double range allows at this step (``|lambda| dt`` beyond
-    about 700, where ``exp`` overflows) breaks the matrix exponential instead.
+    about 700, where ``exp`` overflows) breaks the matrix exponential instead. ``poles``
+    may be a function: it is then called only when the result is not finite (the
+    eigenvalues of a large block cost more than its whole run).
     """
     first = None
     for data in arrays:
@@ -201,6 +227,8 @@ def check_finite_result(
             first = column if first is None else min(first, column)
     if first is None:
         return
+    if callable(poles):
+        poles = poles()
     when = float(time[min(first, len(time) - 1)]) if len(time) else 0.0
     message = f"{name}: the result leaves the floating-point range at t = {when:g} s"
     if poles is not None and len(poles):
@@ -226,9 +254,32 @@ def _pole_text(p: complex) -> str:
 
 
 def model_poles(model: Any) -> np.ndarray | None:
-    """Poles of a circuit block, ``StateSpace`` or LTI system; ``None`` when not linear."""
+    """Poles of a circuit block, ``StateSpace`` or LTI system; ``None`` when not linear.
+
+    A large sparse block gives its fastest modes and those of largest real part (sparse
+    Arnoldi), the candidates for a run that left the floating-point range.
+    """
+    sparse = getattr(model, "sparse_A", None)
+    if sparse is not None:
+        return _sparse_candidate_poles(sparse)
     try:
         poles = model.poles()
     except Exception:  # a nonlinear or sampled system has no single set of poles
         return None
     return np.asarray(poles, dtype=complex).ravel()
+
+
+def _sparse_candidate_poles(A: Any) -> np.ndarray:
+    from scipy.sparse.linalg import ArpackNoConvergence, eigs
+
+    from wirestate.lti import extreme_poles, single_threaded_blas
+
+    _, fastest = extreme_poles(A, 6)
+    with single_threaded_blas():
+        try:  # an error message needs the sign of the rightmost real part, not 8 digits
+            rightmost = eigs(
+                A.tocsc(), k=6, which="LR", return_eigenvectors=False, tol=1e-6, maxiter=300
+            )
+        except ArpackNoConvergence as exc:
+            rightmost = exc.eigenvalues
+    return np.concatenate([fastest, rightmost])

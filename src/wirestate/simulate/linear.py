@@ -28,7 +28,8 @@ from wirestate.compose import ComposedSystem
 from wirestate.errors import SimulationError
 from wirestate.lti import CircuitBlock
 from wirestate.simulate.discretize import Discretization
-from wirestate.simulate.guards import step_count
+from wirestate.simulate.exponential_action import SparseHold, is_cheaper_than_dense
+from wirestate.simulate.guards import check_grid_size, step_count
 from wirestate.simulate.inputs import InputSet, Waveform, build_inputs
 from wirestate.simulate.results import SimulationResult
 
@@ -62,9 +63,13 @@ class LinearModel:
         return len(self.states)
 
 
-def as_linear_model(system: Any) -> LinearModel:
+def as_linear_model(system: Any, *, keep_sparse: bool = False) -> LinearModel:
     """A :class:`LinearModel` from a ``CircuitBlock``, a ``control.StateSpace`` (continuous
     time) or a composed LTI system (:class:`~wirestate.compose.ComposedSystem`).
+
+    With ``keep_sparse``, a large circuit block that holds a sparse ``A``
+    (:attr:`~wirestate.lti.CircuitBlock.sparse_A`) gives a model whose ``A`` is that SciPy
+    sparse matrix (for :func:`simulate_arrays`); otherwise ``A`` is always dense.
 
     Raises
     ------
@@ -89,9 +94,10 @@ def as_linear_model(system: Any) -> LinearModel:
             dict(system.input_defaults),
         )
     if isinstance(system, CircuitBlock):
+        sparse = system.sparse_A if keep_sparse else None
         return LinearModel(
             system.name,
-            system.A,
+            system.A if sparse is None else sparse,
             system.B,
             system.C,
             system.D,
@@ -135,6 +141,9 @@ def time_grid(until: float, step: float) -> np.ndarray:
     """``0, step, 2 step, ...`` up to ``until`` (s); ``until`` must be a whole number of steps
     to within 1e-9 relative (common practice, no source: guards against rounding only)."""
     n = step_count(until, step)
+    # every engine makes this grid first: a count beyond memory is refused here too (the
+    # run-size check of wirestate.simulate.simulate covers only the runs it dispatches)
+    check_grid_size(n + 1, until, step)
     return np.arange(n + 1) * step
 
 
@@ -274,7 +283,7 @@ def simulate_linear(
     SimulationResult
         Outputs ``y[k] = C x[k] + D u[k]`` at every grid point including ``t = 0``.
     """
-    model = as_linear_model(system)
+    model = as_linear_model(system, keep_sparse=True)
     t = time_grid(until, step)
     input_set = build_inputs(
         inputs or {},
@@ -284,6 +293,8 @@ def simulate_linear(
         base=base,
     )
     U = input_set.matrix(model.inputs, t)
+    if hasattr(model.A, "tocsr") and not is_cheaper_than_dense(model.A, step, len(t) - 1):
+        model.A = model.A.toarray()  # a long run of a mid-sized block: the dense hold
     x_init = model.x0 if x0 is None else np.asarray(x0, dtype=float)
     if x_init.shape != (model.n_states,):
         raise SimulationError(
@@ -340,10 +351,20 @@ def simulate_arrays(
     step: float,
     *,
     hold: str = "zoh",
-    discretization: Discretization | None = None,
+    discretization: Discretization | SparseHold | None = None,
     progress: Callable[[float], None] | None = None,
 ) -> np.ndarray:
-    """States ``(n, N)`` on a uniform grid for the input samples ``U`` ``(m, N)``."""
+    """States ``(n, N)`` on a uniform grid for the input samples ``U`` ``(m, N)``.
+
+    A SciPy sparse ``A`` (a large sparse circuit block) is stepped by the action of the
+    matrix exponential (:mod:`wirestate.simulate.exponential_action`): the same exact hold,
+    in time linear in the number of states, without ever forming ``exp(A dt)``.
+    """
+    if hasattr(A, "tocsr"):
+        if hold not in ("zoh", "foh"):
+            raise SimulationError("invalid_field", f"hold must be 'zoh' or 'foh', got {hold!r}")
+        plan = discretization if isinstance(discretization, SparseHold) else None
+        return (plan or SparseHold(A, B, step, hold)).propagate(x0, U, progress)
     disc = discretization or _discretization(A, B)
     N = U.shape[1]
     if hold == "zoh":

@@ -152,4 +152,6 @@ def parse_pwm(rest: str) -> PulseWidth:
     if carrier not in CARRIERS:
         raise ValueError(f"carrier must be one of {', '.join(CARRIERS)}, got {carrier!r}")
     phase = float(options.get("phase", "0")) / 360.0
+    if not math.isfinite(phase):  # float() reads "nan" and "inf" as numbers
+        raise ValueError(f"phase must be a finite angle in degrees, got {options['phase']!r}")
     return PulseWidth(frequency, duty, dead, phase % 1.0, side, carrier)

@@ -17,6 +17,7 @@ import numpy as np
 
 from wirestate.errors import SimulationError
 from wirestate.simulate import guards
+from wirestate.simulate.exponential_action import SparseHold, is_cheaper_than_dense
 from wirestate.simulate.inputs import build_inputs
 from wirestate.simulate.linear import _discretization, apply, as_linear_model, simulate_arrays
 from wirestate.simulate.results import write_csv_header, write_csv_rows
@@ -63,15 +64,23 @@ def stream_linear_to_csv(
 
     block_samples = block_samples or BLOCK_SAMPLES
 
-    model = as_linear_model(system)
+    model = as_linear_model(system, keep_sparse=True)
     n = guards.step_count(until, step)
     guards.check_csv_space(path, n + 1, len(model.outputs))
     input_set = build_inputs(
         inputs or {}, model.inputs, model.units,
         defaults=model.input_defaults if use_defaults else None, base=base,
     )  # fmt: skip
-    disc = _discretization(model.A, model.B)
-    poles = np.linalg.eigvals(model.A) if model.n_states else np.zeros(0)
+    if hasattr(model.A, "tocsr") and not is_cheaper_than_dense(model.A, step, n):
+        model.A = model.A.toarray()  # a long run of a mid-sized block: the dense hold
+    if hasattr(model.A, "tocsr"):  # a large sparse block: the exponential action
+        disc = SparseHold(model.A, model.B, step, hold)
+    else:
+        disc = _discretization(model.A, model.B)
+
+    def poles() -> np.ndarray:  # only needed to explain a non-finite result
+        return guards.model_poles(system)
+
     p = len(model.outputs)
     final, low, high = np.zeros(p), np.full(p, np.inf), np.full(p, -np.inf)
     x = np.asarray(model.x0, dtype=float)
