@@ -99,6 +99,16 @@ class PulseWidth(Waveform):
                 on |= (local + back >= s) & (local + back < e)
         return on.astype(float)
 
+    def value_at(self, t: float) -> float:
+        """The gate at one time (1.0 or 0.0); plain arithmetic, for the event loop."""
+        T = self.period
+        shifted = t - self.phase * T
+        local = shifted - math.floor(shifted / T) * T
+        for s, e in self.local_intervals():
+            if s <= local < e or s <= local + T < e:
+                return 1.0
+        return 0.0
+
     def expression(self, t):
         import casadi as ca
 
