@@ -348,3 +348,36 @@ def test_mistyped_key_is_named_with_a_suggestion(tmp_path):
     assert info.value.code == "unknown_field"
     assert "'vaule'" in info.value.message and "did you mean 'value'" in info.value.message
     assert info.value.location == ("parts", "R1", "vaule")
+
+
+def test_switched_system_with_a_continuous_nonlinear_block():
+    # issue 12: the switched engine runs linear, sampled and modulator blocks beside
+    # switched circuits; a continuous limited controller is refused by name
+    from wirestate.blocks import Modulator, PIDController
+    from wirestate.compose import compose
+    from wirestate.reduce import compile_circuit
+    from wirestate.simulate import simulate
+
+    stage = compile_circuit(
+        parse_circuit(
+            {
+                "circuit": {"name": "stage"},
+                "parts": {
+                    "Vs": {"kind": "voltage_source", "nodes": ["in", "gnd"], "value": 12},
+                    "Q1": {"kind": "switch", "nodes": ["in", "out"]},
+                    "R1": {"kind": "resistor", "nodes": ["out", "gnd"], "value": 10},
+                },
+                "outputs": {"v": {"voltage": "out"}},
+            }
+        )
+    )
+    loop = PIDController("loop", kp=0.1, ki=10.0, output_limits=(0.0, 1.0))
+    system = compose(
+        [stage, Modulator("pwm", 1e5), loop],
+        {"stage.Q1": "pwm.gate", "pwm.duty": "loop.command", "loop.measurement": "stage.v"},
+        {"Vs": "stage.Vs", "ref": "loop.reference"},
+    )
+    with pytest.raises(WirestateError) as info:
+        simulate(system, 1e-4, 1e-6)
+    assert info.value.code == "unsupported_switched_system"
+    assert info.value.location == ("blocks", "loop")

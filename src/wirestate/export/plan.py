@@ -18,11 +18,12 @@ import control
 import numpy as np
 
 from wirestate.blocks import PIDController
-from wirestate.compose import NONLINEAR, SAMPLED, ComposedSystem
+from wirestate.compose import MODULATOR, NONLINEAR, SAMPLED, SWITCHED, ComposedSystem
 from wirestate.errors import SimulationError, WirestateError
 from wirestate.lti import CircuitBlock
 from wirestate.simulate.discretize import zoh
 from wirestate.simulate.hybrid import _Engine
+from wirestate.switching import is_switched
 
 #: where a signal comes from: the FMU inputs, the held sampled outputs, a linear output row
 FROM_INPUT, FROM_HELD, FROM_LINEAR = 0, 1, 2
@@ -104,6 +105,13 @@ def _check_step(step: float) -> float:
 def plan_circuit(block: CircuitBlock, step: float) -> ExportPlan:
     """The plan of a compiled circuit block at the default communication step ``step`` (s)."""
     step = _check_step(step)
+    if is_switched(block.spec):  # issue 12: the FMU runtime has no switching yet
+        raise ExportError(
+            "not_exportable",
+            f"{block.name}: a circuit with switches or diodes cannot be exported yet (the FMU "
+            "steps one linear block); export a circuit without them",
+            location=("parts",),
+        )
     parts = getattr(block.spec, "parts", {}) or {}
     inputs = [
         Variable(
@@ -146,6 +154,10 @@ def _refuse(cs: ComposedSystem) -> None:
             bad.append(f"{b.name} ({what})")
         elif b.category == SAMPLED and not isinstance(b.source, PIDController | control.StateSpace):
             bad.append(f"{b.name} (a sampled block of type {type(b.source).__name__})")
+        elif b.category in (SWITCHED, MODULATOR):  # issue 12: no switching in the FMU yet
+            bad.append(
+                f"{b.name} (a {'switched circuit' if b.category == SWITCHED else b.category})"
+            )
     if bad:
         raise ExportError(
             "not_exportable",

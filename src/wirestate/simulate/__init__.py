@@ -70,6 +70,12 @@ def simulate(
 
 
 def _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, options):
+    switched = _switched_run(model, hold, options)
+    if switched is not None:
+        return switched(
+            model, until, step, inputs, use_defaults=use_defaults, base=base,
+            progress=progress, **options,
+        )  # fmt: skip
     if isinstance(model, ComposedSystem) and not model.is_linear:
         if hold != "zoh":
             # the hybrid engines hold the sampled outputs by construction and take the
@@ -89,3 +95,28 @@ def _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, op
         model, until, step, inputs, hold=hold, use_defaults=use_defaults, base=base,
         progress=progress, **options,
     )  # fmt: skip
+
+
+def _switched_run(model: Any, hold: str, options: dict) -> Callable | None:
+    """The switched engine for circuits with switches or diodes and systems with them or
+    with a modulator (issue 12); ``None`` for every other model."""
+    from wirestate.simulate.switched import simulate_switched
+    from wirestate.simulate.switched_system import has_switching, simulate_switched_system
+    from wirestate.switching import switched_circuit
+
+    if has_switching(model):
+        run = simulate_switched_system
+    elif switched_circuit(model) is not None:
+        run = simulate_switched
+    else:
+        return None
+    if hold != "zoh":
+        raise SimulationError(
+            "invalid_field",
+            f"{getattr(model, 'name', 'model')}: hold {hold!r} applies to linear "
+            "time-invariant models only; a switched run holds its inputs over each output "
+            "step and takes gates exactly",
+        )
+    for name in ("rtol", "atol"):  # tolerances of the CVODES integrator, unused here
+        options.pop(name, None)
+    return run

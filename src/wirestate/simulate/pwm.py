@@ -17,7 +17,8 @@ Text form (``simulate --input`` and scenarios), values 1 (on) and 0 (off)::
 
 Regular-sampled PWM as in digital converter controllers (Holmes and Lipo, Pulse Width
 Modulation for Power Converters, 2003, ch. 1): the duty is constant here; the modulator
-block of a system file latches a new duty at every carrier period start.
+block of a system file (:mod:`wirestate.blocks.modulator`, the same comparator) latches a
+new duty at every carrier period start.
 """
 
 from __future__ import annotations
@@ -27,10 +28,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from wirestate.blocks.modulator import CARRIERS, comparator_interval
 from wirestate.simulate.inputs import Waveform, _arguments, _degrees
 from wirestate.units import parse_quantity
 
-CARRIERS = ("sawtooth", "triangle")
 SIDES = ("high", "low")
 
 
@@ -51,11 +52,8 @@ class PulseWidth(Waveform):
 
     def local_intervals(self) -> list[tuple[float, float]]:
         """On intervals relative to a carrier period start, over this and the next period."""
-        T, D = self.period, self.duty
-        if self.carrier == "sawtooth":
-            a, b = 0.0, D * T
-        else:
-            a, b = (1.0 - D) * T / 2.0, (1.0 + D) * T / 2.0
+        T = self.period
+        a, b = comparator_interval(self.carrier, self.duty, T)
         if self.side == "high":
             start, end = a, b
         else:

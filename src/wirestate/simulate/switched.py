@@ -630,44 +630,38 @@ def simulate_switched(
 SNAP = 1e-9
 
 
-class _Run:
-    """One run of :func:`simulate_switched`: boundaries, sampling and recording.
+class SampleClock:
+    """Where a switched run records: the output steps, and every ``fine_step`` for
+    ``fine_window`` after the latest event of ``engine``.
 
-    The run is cut at *boundaries* only: gate edges (closed form), the output steps where a
-    held input changes, and the horizon. Between boundaries the inputs are constant, and
-    the engine advances in one go, splitting only at located diode events; output samples
-    inside are evaluated together on the exact in-mode solution.
+    Times within ``snap`` (``1e-9`` of the output step) of each other are one instant.
     """
 
-    def __init__(self, circuit, grid, step, input_set, fine_step, fine_window, x0, max_changes):
-        self.circuit = circuit
+    def __init__(
+        self, grid: np.ndarray, step: float, engine: SwitchedEngine, fine: tuple | None
+    ) -> None:
         self.grid = grid
         self.step = step
         self.snap = SNAP * step
         self.until = float(grid[-1])
-        self.U = input_set.matrix(circuit.inputs, grid)
-        gates = sorted({d.gate for d in circuit.devices if d.gate is not None})
-        waves = input_set.waveforms
-        self.gate_rows = [(circuit.inputs.index(g), waves[g]) for g in gates if g in waves]
-        pwm_rows = [row for row, wave in self.gate_rows if isinstance(wave, PulseWidth)]
-        held = np.delete(self.U, pwm_rows, axis=0)
-        changes = np.flatnonzero(np.any(held[:, 1:] != held[:, :-1], axis=0)) + 1
-        edges = _gate_edges(waves, gates, self.until)
-        self.boundaries = self._merge(np.concatenate([edges, grid[changes], [self.until]]))
-        self.fine = (fine_step, fine_window) if fine_step else None
-        self.engine = SwitchedEngine(circuit, x0, max_changes=max_changes)
-        self.extra = device_output_names(circuit)
-        self.chunks: list[Chunk] = []
+        self.engine = engine
+        self.fine = fine
 
-    def _merge(self, times: np.ndarray) -> np.ndarray:
+    def merge(self, times: np.ndarray) -> np.ndarray:
         """Sorted times with those within ``snap`` of an output step moved onto it and
         near-duplicates dropped."""
+        times = np.asarray(times, dtype=float)
+        if not len(times):
+            return times
         k = np.clip(np.rint(times / self.step).astype(int), 0, len(self.grid) - 1)
         near = np.abs(times - self.grid[k]) <= self.snap
         times = np.sort(np.where(near, self.grid[k], times))
         return times[np.concatenate([[True], np.diff(times) > self.snap])]
 
-    # -- sampling --------------------------------------------------------------------------
+    def index(self, t: float) -> int:
+        """The output step holding ``t`` (inputs are held over output steps)."""
+        return min(len(self.grid) - 1, int(math.floor(t / self.step + SNAP)))
+
     def _fine_times(self, t0: float, t1: float) -> np.ndarray:
         events = self.engine.events
         if not self.fine or not events:
@@ -684,7 +678,7 @@ class _Run:
 
     def sample(self, t0: float, t1: float, include_start: bool) -> np.ndarray:
         """Output steps and fine samples in ``(t0, t1)`` (``[t0, t1)`` with
-        ``include_start``), each at most once."""
+        ``include_start``), each at most once (a :data:`Sampler`)."""
         low = t0 - self.snap if include_start else t0 + self.snap
         lo = int(np.searchsorted(self.grid, low, side="left"))
         hi = int(np.searchsorted(self.grid, t1 - self.snap, side="left"))
@@ -697,17 +691,54 @@ class _Run:
         return times
 
     def is_sample(self, t: float) -> bool:
+        """True when ``t`` is an output step or a fine sample."""
         k = min(len(self.grid) - 1, round(t / self.step))
         if abs(self.grid[k] - t) <= self.snap:
             return True
         fine = self._fine_times(t - self.snap, t + 2 * self.snap)
         return bool(len(fine) and np.min(np.abs(fine - t)) <= self.snap)
 
-    def inputs_over(self, a: float, b: float) -> np.ndarray:
-        """Inputs held over ``[a, b)``: the output step's held values, gates at the
-        middle of the stretch (they do not change inside it)."""
-        k = min(len(self.grid) - 1, int(math.floor(a / self.step + SNAP)))
-        u = self.U[:, k].copy()
+
+class HeldInputs:
+    """Input values of a switched run: waveforms held over each output step, and gate
+    waveforms exact between their edges (they are evaluated in the middle of a stretch
+    that no edge cuts).
+
+    Parameters
+    ----------
+    names
+        Input names, in order.
+    input_set
+        Their waveforms.
+    gates
+        The names among them that drive switch gates.
+    clock
+        The run's :class:`SampleClock`.
+    """
+
+    def __init__(
+        self, names: list[str], input_set: InputSet, gates: list[str], clock: SampleClock
+    ) -> None:
+        self.clock = clock
+        self.U = input_set.matrix(names, clock.grid)
+        waves = input_set.waveforms
+        self.gate_rows = [(names.index(g), waves[g]) for g in sorted(set(gates)) if g in waves]
+        pwm_rows = [row for row, wave in self.gate_rows if isinstance(wave, PulseWidth)]
+        held = np.delete(self.U, pwm_rows, axis=0)
+        changes = np.flatnonzero(np.any(held[:, 1:] != held[:, :-1], axis=0)) + 1
+        edges = _gate_edges(waves, gates, clock.until)
+        #: times where an input may change: gate edges and output steps where a held input
+        #: changes, merged onto the output steps (see :meth:`SampleClock.merge`)
+        self.boundaries = clock.merge(np.concatenate([edges, clock.grid[changes]]))
+
+    def next_boundary(self, t: float) -> float:
+        """The first input boundary later than ``t`` (infinity if none)."""
+        j = int(np.searchsorted(self.boundaries, t + self.clock.snap, side="right"))
+        return float(self.boundaries[j]) if j < len(self.boundaries) else math.inf
+
+    def over(self, a: float, b: float) -> np.ndarray:
+        """Inputs held over ``[a, b)``, a stretch that no input boundary cuts."""
+        u = self.U[:, self.clock.index(a)].copy()
         mid = 0.5 * (a + b)
         for row, wave in self.gate_rows:
             if isinstance(wave, PulseWidth):
@@ -715,6 +746,31 @@ class _Run:
             else:
                 u[row] = float(wave.values(np.array([mid]))[0])
         return u
+
+
+class _Run:
+    """One run of :func:`simulate_switched`: boundaries, sampling and recording.
+
+    The run is cut at *boundaries* only: gate edges (closed form), the output steps where a
+    held input changes, and the horizon. Between boundaries the inputs are constant, and
+    the engine advances in one go, splitting only at located diode events; output samples
+    inside are evaluated together on the exact in-mode solution.
+    """
+
+    def __init__(self, circuit, grid, step, input_set, fine_step, fine_window, x0, max_changes):
+        self.circuit = circuit
+        self.until = float(grid[-1])
+        self.engine = SwitchedEngine(circuit, x0, max_changes=max_changes)
+        fine = (fine_step, fine_window) if fine_step else None
+        self.clock = SampleClock(grid, step, self.engine, fine)
+        gates = [d.gate for d in circuit.devices if d.gate is not None]
+        self.inputs = HeldInputs(circuit.inputs, input_set, gates, self.clock)
+        self.boundaries = np.append(
+            self.inputs.boundaries[self.inputs.boundaries < self.until - self.clock.snap],
+            self.until,
+        )
+        self.extra = device_output_names(circuit)
+        self.chunks: list[Chunk] = []
 
     def record_now(self) -> None:
         e = self.engine
@@ -724,16 +780,16 @@ class _Run:
     def execute(self, progress) -> SimulationResult:
         e = self.engine
         bounds = self.boundaries
-        e.apply(self.inputs_over(0.0, float(bounds[0])), record=False)
+        e.apply(self.inputs.over(0.0, float(bounds[0])), record=False)
         self.initial_on = tuple(e.on)
         self.record_now()
         next_report = 0.05
         for i, b in enumerate(bounds):
             b = float(b)
-            self.chunks.extend(e.advance_to(b, self.sample))
+            self.chunks.extend(e.advance_to(b, self.clock.sample))
             after = float(bounds[i + 1]) if i + 1 < len(bounds) else b
-            e.apply(self.inputs_over(b, after))
-            if self.is_sample(b):
+            e.apply(self.inputs.over(b, after))
+            if self.clock.is_sample(b):
                 self.record_now()
             if progress is not None and b >= next_report * self.until:
                 progress(b / self.until)
