@@ -80,12 +80,13 @@ class SystemPart:
     model with the interface of :class:`~wirestate.switching.SwitchedCircuit` (devices,
     ``gate_index``, ``mode(on)``, ``x0``), so :class:`SwitchedEngine` runs it.
 
-    Devices are named ``block.part``; inputs are the external inputs that reach a
+    Devices are named ``block.part`` (``part`` with ``prefixed=False``, for one switched
+    block wrapped with its modulator); inputs are the external inputs that reach a
     continuous block and the outputs of sampled blocks and modulators that drive one;
     outputs are every output of every continuous block (``block.signal``).
     """
 
-    def __init__(self, system: ComposedSystem) -> None:
+    def __init__(self, system: ComposedSystem, *, prefixed: bool = True) -> None:
         self.system = system
         self.name = system.name
         self.circuits = {
@@ -94,7 +95,7 @@ class SystemPart:
             if b.category == SWITCHED
         }
         self.devices = [
-            dataclasses.replace(d, name=f"{block}.{d.name}")
+            dataclasses.replace(d, name=f"{block}.{d.name}" if prefixed else d.name)
             for block, sc in self.circuits.items()
             for d in sc.devices
         ]
@@ -116,7 +117,8 @@ class SystemPart:
             for d in sc.devices:
                 if d.kind == "switch":
                     source = self._gate_source(f"{block}.{d.gate}")
-                    self.gate_index[f"{block}.{d.name}"] = self.inputs.index(source)
+                    name = f"{block}.{d.name}" if prefixed else d.name
+                    self.gate_index[name] = self.inputs.index(source)
         self._offset = self._state_offset()
 
     @property
