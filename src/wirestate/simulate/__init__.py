@@ -55,7 +55,12 @@ def simulate(
     LTI models run by exact ZOH (or FOH with ``hold="foh"``), see
     :func:`~wirestate.simulate.linear.simulate_linear`; systems with sampled or nonlinear
     blocks by :func:`~wirestate.simulate.hybrid.simulate_system` (``options``: ``rtol``,
-    ``atol``).
+    ``atol``). Circuits with switches or diodes run exactly with their events
+    (:func:`~wirestate.simulate.switched.simulate_switched`; ``options``: ``fine_step``,
+    ``fine_window``, ``x0``, ``max_changes``, or ``averaged=True`` for the state-space
+    average, :func:`~wirestate.simulate.averaged.simulate_averaged`), and systems with them
+    or with a modulator by
+    :func:`~wirestate.simulate.switched_system.simulate_switched_system`.
     """
     guards.check_tolerances(options)
     # a run that cannot fit is refused before any array is made (issue 10.10)
@@ -100,14 +105,28 @@ def _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, op
 def _switched_run(model: Any, hold: str, options: dict) -> Callable | None:
     """The switched engine for circuits with switches or diodes and systems with them or
     with a modulator (issue 12); ``None`` for every other model."""
+    from wirestate.simulate.averaged import simulate_averaged
     from wirestate.simulate.switched import simulate_switched
     from wirestate.simulate.switched_system import has_switching, simulate_switched_system
     from wirestate.switching import switched_circuit
 
+    averaged = options.pop("averaged", False)
     if has_switching(model):
         run = simulate_switched_system
+        if averaged:
+            raise SimulationError(
+                "invalid_field",
+                f"{model.name}: the averaged model applies to a circuit with pwm gates; "
+                "simulate the system switched",
+            )
     elif switched_circuit(model) is not None:
-        run = simulate_switched
+        run = simulate_averaged if averaged else simulate_switched
+    elif averaged:
+        raise SimulationError(
+            "invalid_field",
+            f"{getattr(model, 'name', 'model')}: the averaged model applies to a circuit "
+            "with switches or diodes",
+        )
     else:
         return None
     if hold != "zoh":
