@@ -498,7 +498,9 @@ class SwitchedEngine:
                     count = min(count, budget)
                     budget -= count
                     pieces.append(np.linspace(0.0, span, count + 1)[1:])
-        return np.unique(np.concatenate(pieces))
+        grid = np.concatenate(pieces)
+        grid.sort()  # repeated points cost one evaluation each and change nothing
+        return grid
 
     @staticmethod
     def _modal_values(m: _Modal, z0: np.ndarray, b: np.ndarray, tau: np.ndarray) -> np.ndarray:
@@ -527,35 +529,44 @@ class SwitchedEngine:
         if m.ok:
             z0 = m.Vinv @ self.x
             bb = m.Vinv @ (data.mode.B @ self._u + data.mode.f)
-            r = m.R[row]
+            rz, rb = m.R[row] * z0, m.R[row] * bb
+            slope = rz * m.lam + rb  # d/dtau of r z(tau) is slope @ e^{lambda tau}
 
         def value(tau: float) -> tuple[float, float]:
             if not m.ok:
                 x = self._exact_state(data, tau)
                 mm = data.mode
                 rate = data.Pv[row] @ (mm.A @ x + mm.B @ self._u + mm.f)
-                return sign * (data.Pv[row] @ x + q), sign * rate
+                return sign * (data.Pv[row] @ x + q) - level, sign * rate
             w = m.lam * tau
-            zt = np.exp(w) * z0 + tau * _phi1(w) * bb
-            rate = (r @ (m.lam * zt + bb)).real
-            return sign * ((r @ zt).real + q), sign * rate
+            e = np.exp(w)
+            v = (rz @ e + tau * (rb @ _phi1(w))).real
+            return sign * (v + q) - level, sign * (slope @ e).real
 
-        fa, _ = value(a)
-        level = 0.0 if fa > 0.0 else -tol_v
-        if fa <= level:
-            return a
-        tau = 0.5 * (a + b)
+        level = 0.0
+        fa, dfa = value(a)
+        if fa <= 0.0:
+            level = -tol_v
+            fa, dfa = value(a)
+            if fa <= 0.0:
+                return a
+        # safeguarded Newton from the side where the function is still positive; once a
+        # step is shorter than the tolerance, one probe just past it closes the bracket
+        tau, f, df = a, fa, dfa
         for _ in range(100):
+            step = tau - f / df if df < 0.0 else 0.5 * (a + b)
+            tau = step if a < step < b else 0.5 * (a + b)
             f, df = value(tau)
-            f -= level
             if f > 0.0:
                 a = tau
+                if b - a > tol_t and df < 0.0 and f / -df < 0.5 * tol_t:
+                    probe = min(b, tau + tol_t)
+                    if value(probe)[0] <= 0.0:
+                        return probe
             else:
                 b = tau
             if b - a <= tol_t:
                 break
-            step = tau - f / df if df != 0.0 else 0.5 * (a + b)
-            tau = step if a < step < b else 0.5 * (a + b)
         return b
 
     # -- reading and restoring -----------------------------------------------------------
