@@ -28,11 +28,10 @@ import numpy as np
 
 from wirestate.errors import SimulationError
 from wirestate.simulate.discretize import Discretization
-from wirestate.simulate.inputs import InputSet, Waveform, build_inputs
-from wirestate.simulate.linear import time_grid
+from wirestate.simulate.inputs import InputSet, Waveform
 from wirestate.simulate.pwm import PulseWidth
 from wirestate.simulate.results import SimulationResult
-from wirestate.simulate.switched import SwitchedEngine, device_output_names
+from wirestate.simulate.switched import SwitchedEngine, device_output_names, run_setup
 from wirestate.switching import switched_circuit
 
 
@@ -154,14 +153,7 @@ def simulate_averaged(
     circuit = switched_circuit(model)
     if circuit is None:
         raise SimulationError("invalid_field", "the model has no switches or diodes")
-    grid = time_grid(until, step)
-    input_set = build_inputs(
-        inputs or {},
-        circuit.inputs,
-        circuit.units,
-        defaults=circuit.input_defaults if use_defaults else None,
-        base=base,
-    )
+    grid, input_set, _ = run_setup(circuit, until, step, inputs, use_defaults, base)
     gates = sorted({d.gate for d in circuit.devices if d.gate is not None})
     U = input_set.matrix(circuit.inputs, grid)
     averaged = AveragedModel(circuit)

@@ -680,6 +680,25 @@ def simulate_switched(
     circuit = switched_circuit(model)
     if circuit is None:
         raise SimulationError("invalid_field", "the model has no switches or diodes")
+    grid, input_set, fine = run_setup(
+        circuit, until, step, inputs, use_defaults, base, fine_step, fine_window
+    )
+    run = _Run(circuit, grid, step, input_set, fine, x0, max_changes)
+    return run.execute(progress)
+
+
+def run_setup(
+    model: Any,
+    until: float,
+    step: float,
+    inputs: Any,
+    use_defaults: bool,
+    base: Path | None,
+    fine_step: float | None = None,
+    fine_window: float | None = None,
+) -> tuple[np.ndarray, InputSet, tuple[float, float] | None]:
+    """The output grid, the input waveforms and the fine sampling of a switched run (a
+    circuit or a system: anything with ``inputs``, ``units``, ``input_defaults``)."""
     if (fine_step is None) != (fine_window is None) or (fine_step is not None and not (
         0 < fine_step <= step and fine_window > 0
     )):  # fmt: skip
@@ -690,13 +709,12 @@ def simulate_switched(
     grid = time_grid(until, step)
     input_set = build_inputs(
         inputs or {},
-        circuit.inputs,
-        circuit.units,
-        defaults=circuit.input_defaults if use_defaults else None,
+        model.inputs,
+        model.units,
+        defaults=model.input_defaults if use_defaults else None,
         base=base,
     )
-    run = _Run(circuit, grid, step, input_set, fine_step, fine_window, x0, max_changes)
-    return run.execute(progress)
+    return grid, input_set, ((fine_step, fine_window) if fine_step else None)
 
 
 #: boundaries and samples closer than this fraction of the output step are one instant
@@ -830,11 +848,10 @@ class _Run:
     inside are evaluated together on the exact in-mode solution.
     """
 
-    def __init__(self, circuit, grid, step, input_set, fine_step, fine_window, x0, max_changes):
+    def __init__(self, circuit, grid, step, input_set, fine, x0, max_changes):
         self.circuit = circuit
         self.until = float(grid[-1])
         self.engine = SwitchedEngine(circuit, x0, max_changes=max_changes)
-        fine = (fine_step, fine_window) if fine_step else None
         self.clock = SampleClock(grid, step, self.engine, fine)
         gates = [d.gate for d in circuit.devices if d.gate is not None]
         self.inputs = HeldInputs(circuit.inputs, input_set, gates, self.clock)

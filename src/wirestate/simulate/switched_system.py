@@ -53,8 +53,7 @@ from wirestate.compose import (
 from wirestate.errors import SimulationError
 from wirestate.lti import named_state_space
 from wirestate.simulate.hybrid import _Engine
-from wirestate.simulate.inputs import InputSet, Waveform, build_inputs
-from wirestate.simulate.linear import time_grid
+from wirestate.simulate.inputs import InputSet, Waveform
 from wirestate.simulate.results import SimulationResult
 from wirestate.simulate.switched import (
     Chunk,
@@ -62,6 +61,7 @@ from wirestate.simulate.switched import (
     SampleClock,
     SwitchedEngine,
     mode_sequence,
+    run_setup,
 )
 from wirestate.switching import ModeModel, switched_circuit
 
@@ -295,22 +295,9 @@ def simulate_switched_system(
             file=system.file,
             location=("blocks", bad[0]),
         )
-    if (fine_step is None) != (fine_window is None) or (
-        fine_step is not None and not (0 < fine_step <= step and fine_window > 0)
-    ):
-        raise SimulationError(
-            "invalid_step",
-            "fine_step and fine_window go together, with 0 < fine_step <= step < horizon",
-        )
-    grid = time_grid(until, step)
-    input_set = build_inputs(
-        inputs or {},
-        system.inputs,
-        system.units,
-        defaults=system.input_defaults if use_defaults else None,
-        base=base,
+    grid, input_set, fine = run_setup(
+        system, until, step, inputs, use_defaults, base, fine_step, fine_window
     )
-    fine = (fine_step, fine_window) if fine_step else None
     return _SystemRun(system, grid, step, input_set, fine, max_changes).execute(progress)
 
 
