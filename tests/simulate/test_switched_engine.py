@@ -68,3 +68,37 @@ def test_save_and_restore_bring_back_state_mode_and_events():
     engine.advance(3e-6)
     assert np.array_equal(engine.x, after_once[0]) and tuple(engine.on) == after_once[1]
     assert engine.events == after_once[2]
+
+
+@pytest.mark.parametrize("kind", ["SX", "MX"])
+def test_symbolic_modes_come_from_the_same_compile_path(kind):
+    # every mode of a snubbed buck as CasADi expressions of two part values equals the
+    # numeric mode at other values. Two eliminations (CasADi's QR, SuperLU) of a stiff
+    # system (10 kohm off states against 20 nH: 5e11 /s beside 1e4 /s) differ by about
+    # 1e-9 of the largest entry of the rows (measured 1.2e-9); 1e-8 keeps a margin, while a
+    # different stamp or formula would differ by order one
+    import casadi
+
+    from wirestate.spec import parse_circuit
+    from wirestate.switching import SwitchedCircuit
+
+    symbol = getattr(casadi, kind).sym
+    sc = snubbed_buck(off=1e4)
+    assert sc.spec.parts["Rs"].value != 33.0 and sc.spec.parts["Cs"].value != 3.3e-9
+    Rs, Cs = symbol("Rs"), symbol("Cs")
+    for on in [(False, False), (False, True), (True, False), (True, True)]:
+        sym = sc.symbolic_mode(on, {"Rs": Rs, "Cs": Cs})
+        f = casadi.Function("m", [Rs, Cs], [sym.A, sym.B, sym.C, sym.D])
+        got = [np.array(m) for m in f(33.0, 3.3e-9)]
+        data = {"circuit": {"name": "c"}, "parts": dict(sc.spec.model_dump(
+            exclude_none=True)["parts"]), "outputs": sc.spec.model_dump(exclude_none=True)[
+            "outputs"]}  # fmt: skip
+        data["parts"]["Rs"]["value"], data["parts"]["Cs"]["value"] = 33.0, 3.3e-9
+        mode = SwitchedCircuit(parse_circuit(data)).mode(on)
+        want = [mode.A, mode.B_affine, np.vstack([mode.C, mode.P]),
+                np.block([[mode.D, mode.g[:, None]], [mode.Q, mode.p[:, None]]])]  # fmt: skip
+        # state rows against the state rows' largest entry, output rows against theirs
+        scales = [max(np.abs(want[0]).max(), np.abs(want[1]).max())] * 2
+        scales += [max(np.abs(want[2]).max(), np.abs(want[3]).max())] * 2
+        for g, w, scale in zip(got, want, scales, strict=True):
+            assert np.allclose(g, w, rtol=1e-8, atol=1e-8 * max(1.0, scale))
