@@ -408,3 +408,36 @@ def test_stale_source_code(tmp_path):
     with pytest.raises(WirestateError) as info:
         load_state_space_block(tmp_path / "reduced.toml", on_stale="error")
     assert info.value.code == "stale_source" and info.value.location[0] == "reduction"
+
+
+def test_switched_system_with_a_continuous_nonlinear_block():
+    # issue 12: the switched engine runs linear, sampled and modulator blocks beside
+    # switched circuits; a continuous limited controller is refused by name
+    from wirestate.blocks import Modulator, PIDController
+    from wirestate.compose import compose
+    from wirestate.reduce import compile_circuit
+    from wirestate.simulate import simulate
+
+    stage = compile_circuit(
+        parse_circuit(
+            {
+                "circuit": {"name": "stage"},
+                "parts": {
+                    "Vs": {"kind": "voltage_source", "nodes": ["in", "gnd"], "value": 12},
+                    "Q1": {"kind": "switch", "nodes": ["in", "out"]},
+                    "R1": {"kind": "resistor", "nodes": ["out", "gnd"], "value": 10},
+                },
+                "outputs": {"v": {"voltage": "out"}},
+            }
+        )
+    )
+    loop = PIDController("loop", kp=0.1, ki=10.0, output_limits=(0.0, 1.0))
+    system = compose(
+        [stage, Modulator("pwm", 1e5), loop],
+        {"stage.Q1": "pwm.gate", "pwm.duty": "loop.command", "loop.measurement": "stage.v"},
+        {"Vs": "stage.Vs", "ref": "loop.reference"},
+    )
+    with pytest.raises(WirestateError) as info:
+        simulate(system, 1e-4, 1e-6)
+    assert info.value.code == "unsupported_switched_system"
+    assert info.value.location == ("blocks", "loop")

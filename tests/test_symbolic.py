@@ -17,7 +17,15 @@ def _valued_parts(spec):
     return [n for n, p in spec.parts.items() if part_parameter(p.kind) is not None]
 
 
-@pytest.mark.parametrize("path", CIRCUIT_FILES, ids=lambda p: p.name)
+#: circuits with switches or diodes are compared per mode in tests/simulate/
+#: test_switched_engine.py: their 10 Mohm off states make the stamped system too stiff
+#: for a 1e-9 comparison of two different eliminations (measured: QR and LU differ by
+#: 8e-9 of the largest entry, 5.7e14 /s, on the bundled buck's all-off mode)
+LINEAR_FILES = [p for p in CIRCUIT_FILES if "switch" not in p.read_text("utf-8")
+                and "diode" not in p.read_text("utf-8")]  # fmt: skip
+
+
+@pytest.mark.parametrize("path", LINEAR_FILES, ids=lambda p: p.name)
 @pytest.mark.parametrize("kind", [casadi.SX, casadi.MX])
 def test_symbolic_equals_numeric_at_perturbed_values(path, kind):
     spec = load_circuit(path)

@@ -23,7 +23,7 @@ from typing import Any
 import control
 import numpy as np
 
-from wirestate.blocks import NonlinearBlock, PIDController
+from wirestate.blocks import Modulator, NonlinearBlock, PIDController
 from wirestate.blocks import controllers as _controllers
 from wirestate.blocks import mechanical as _mechanical
 from wirestate.errors import CompositionError, WirestateError
@@ -31,8 +31,12 @@ from wirestate.lti import CircuitBlock, load_state_space_block, named_state_spac
 from wirestate.reduce import compile_circuit
 from wirestate.spec import load_circuit
 from wirestate.spec.system import SystemSpec, load_system_spec
+from wirestate.switching import switched_circuit
 
 LINEAR, SAMPLED, NONLINEAR = "linear", "sampled", "nonlinear"
+#: a circuit with switches or diodes, and a pulse-width modulator (issue 12): run by
+#: :mod:`wirestate.simulate.switched_system`
+SWITCHED, MODULATOR = "switched", "modulator"
 
 
 @dataclass
@@ -40,8 +44,9 @@ class BlockView:
     """A block as composition and simulation see it.
 
     ``category`` is ``"linear"`` (continuous LTI, ``system`` is a ``control.StateSpace``),
-    ``"sampled"`` (runs at ``sample_time``) or ``"nonlinear"`` (continuous, CasADi
-    right-hand side).
+    ``"sampled"`` (runs at ``sample_time``), ``"nonlinear"`` (continuous, CasADi
+    right-hand side), ``"switched"`` (a circuit with switches or diodes; ``system`` is its
+    mode with every device off) or ``"modulator"`` (a :class:`~wirestate.blocks.Modulator`).
     """
 
     name: str
@@ -58,7 +63,7 @@ class BlockView:
 
     def feedthrough(self) -> set[tuple[str, str]]:
         """Pairs ``(input, output)`` with a direct path (no state in between)."""
-        if self.category == LINEAR:
+        if self.category in (LINEAR, SWITCHED):
             D = np.asarray(self.system.D)
             return {
                 (self.inputs[j], self.outputs[i])
@@ -91,10 +96,16 @@ def view(block: Any, name: str | None = None) -> BlockView:
         return block
     if isinstance(block, CircuitBlock):
         sys = block.state_space()
+        category = LINEAR if switched_circuit(block) is None else SWITCHED
         return BlockView(
-            name or block.name, LINEAR, list(block.inputs), list(block.outputs),
+            name or block.name, category, list(block.inputs), list(block.outputs),
             list(block.states), dict(block.units), np.array(block.x0, dtype=float), block,
             sys, dict(block.input_defaults),
+        )  # fmt: skip
+    if isinstance(block, Modulator):
+        return BlockView(
+            name or block.name, MODULATOR, list(block.inputs), list(block.outputs), [],
+            block.units, np.zeros(0), block,
         )  # fmt: skip
     if isinstance(block, PIDController):
         units = block.units
@@ -132,7 +143,7 @@ def view(block: Any, name: str | None = None) -> BlockView:
     raise CompositionError(
         "unknown_kind",
         f"cannot use a {type(block).__name__} as a block; expected a CircuitBlock, "
-        "control.StateSpace, PIDController or NonlinearBlock",
+        "control.StateSpace, PIDController, Modulator or NonlinearBlock",
         location=("blocks", name or "?"),
     )
 
@@ -334,7 +345,8 @@ def compose(
     ----------
     blocks
         Blocks (``CircuitBlock``, ``control.StateSpace``, :class:`PIDController`,
-        :class:`NonlinearBlock`) in a list (named by their own names) or a mapping by name.
+        :class:`Modulator`, :class:`NonlinearBlock`) in a list (named by their own names)
+        or a mapping by name.
     wiring
         ``{"block.input": "block.output"}`` or ``[(destination, source), ...]``.
     inputs
@@ -571,6 +583,11 @@ def build_block(name: str, spec: Any, base: Path | None = None) -> Any:
         )
     if kind == "gain":
         return _controllers.static_gain(name, spec.gain, spec.unit)
+    if kind == "modulator":
+        return Modulator(
+            name, spec.frequency, spec.carrier, spec.dead_time, spec.complementary,
+            spec.phase / 360.0,
+        )  # fmt: skip
     if kind == "sensor_filter":
         return _controllers.sensor_filter(name, spec.time_constant, spec.gain, spec.unit)
     raise CompositionError(

@@ -53,6 +53,8 @@ ERROR_CODES: dict[str, str] = {
     "switch_resistance": "a switch or diode whose off_resistance is not larger than on_resistance",
     "invalid_gate": "a switch gate that is not an input of its own (a source, speed or output)",
     "switching_chatter": "switches or diodes that keep changing mode at one instant",
+    "unsupported_switched_system": "a system with switched circuits and blocks the switched "
+    "engine cannot run with them (continuous nonlinear blocks)",
     # tuning
     "unknown_variable": "a design variable that names no part value",
     "invalid_limit": "a limit that names an unknown output or has inconsistent bounds",

@@ -8,6 +8,7 @@ import numpy as np
 import pytest
 
 from tests.conftest import MODELS
+from tests.simulate.test_switched_system import BUCK
 from wirestate.cli import main
 
 
@@ -67,3 +68,42 @@ def test_first_order_hold_on_a_sampled_system_is_refused(capsys):
     err = capsys.readouterr().err
     assert err.startswith("error: ") and "foh" in err and "Traceback" not in err
     assert "linear time-invariant models only" in err
+
+
+def test_switched_circuit_writes_every_output_and_marks_events(tmp_path, capsys):
+    # issue 12: the switched run, not the all-off mode; the CSV has the file's outputs
+    # and the current, voltage and conduction of every switch and diode; fine samples
+    # after each event; the figure is drawn with the events marked
+    model = tmp_path / "buck.toml"
+    model.write_text(BUCK)
+    out, png = tmp_path / "buck.csv", tmp_path / "buck.png"
+    code = main(["simulate", str(model), "--until", "100us", "--step", "1us",
+                 "--input", "g=pwm:100kHz,duty=0.4", "--fine-step", "10ns",
+                 "--fine-window", "100ns", "--csv", str(out), "--plot", str(png)])  # fmt: skip
+    assert code == 0
+    text = capsys.readouterr().out
+    assert "switching events" in text and "fine samples" in text
+    rows = list(csv.reader(out.open()))
+    assert rows[0] == ["time", "v_out", "i_L", "i_Q1", "v_Q1", "on_Q1", "i_D1", "v_D1", "on_D1"]
+    data = np.array(rows[1:], dtype=float)
+    assert len(data) > 101 and np.all(np.diff(data[:, 0]) > 0)
+    on_q1 = data[:, 5]
+    assert set(on_q1) == {0.0, 1.0}
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_switched_circuit_averaged_and_never_streamed(tmp_path, capsys):
+    from wirestate.commands.simulate import _streams
+    from wirestate.reduce import load_block
+
+    model = tmp_path / "buck.toml"
+    model.write_text(BUCK)
+    assert not _streams(load_block(model), 1e3, 1e-9)  # too large, yet not the linear path
+    code = main(["simulate", str(model), "--until", "1ms", "--step", "10us",
+                 "--input", "g=pwm:100kHz,duty=0.4", "--averaged"])  # fmt: skip
+    assert code == 0
+    assert "state-space average" in capsys.readouterr().out
+    code = main(["simulate", str(model), "--until", "1ms", "--step", "10us",
+                 "--input", "g=pwm:100kHz,duty=0.4", "--fine-step", "1ns"])  # fmt: skip
+    assert code == 2
+    assert "--fine-window" in capsys.readouterr().err

@@ -202,10 +202,14 @@ def _bundled_circuits():
 
     if not MODELS.is_dir():
         return []
+    from wirestate.spec import load_circuit
+    from wirestate.switching import is_switched
+
+    # switched circuits have their own signature (poles of every mode), tested below
     return [
         p
         for p in golden.discover_models(MODELS, MODELS / "golden")
-        if golden.detect_kind(p) == "circuit"
+        if golden.detect_kind(p) == "circuit" and not is_switched(load_circuit(p))
     ]
 
 
@@ -238,3 +242,52 @@ def test_tolerances_ignore_rounding_but_catch_a_small_design_change(model):
 
 def _models_root(model):
     return next(p for p in model.parents if p.name == "models")
+
+
+def test_switched_circuit_signature_keeps_every_mode_and_names_the_one_that_moved():
+    # the bundled buck stage: 2 devices, 4 modes, each mode's poles from the one compile
+    # path; a 1 % snubber resistor moves the snubbed ring's poles beyond the default
+    # tolerance, and the drift names the mode
+    from tests.conftest import MODELS
+    from wirestate.reduce import compile_circuit
+    from wirestate.spec import load_circuit
+
+    spec = load_circuit(MODELS / "aux_buck.toml")
+    stored = sig.switched_circuit_signature(compile_circuit(spec), None)
+    assert list(stored["modes"]) == ["Q1 off, D1 off", "Q1 off, D1 on", "Q1 on, D1 off",
+                                     "Q1 on, D1 on"]  # fmt: skip
+    grid = sig.signature_grid(stored)
+    same = sig.switched_circuit_signature(compile_circuit(spec), grid)
+    tolerances = sig.default_tolerances(stored)
+    assert sig.compare_signatures(stored, same, tolerances) == []
+    changed = spec.with_values({"Rsnub": spec.parts["Rsnub"].value * 1.01})
+    drifts = sig.compare_signatures(
+        stored, sig.switched_circuit_signature(compile_circuit(changed), grid), tolerances
+    )
+    assert any(d.quantity == "poles" and d.item.startswith("Q1 on, D1 off:") for d in drifts)
+
+
+def test_switched_run_signature_catches_a_small_change_and_not_a_rerun(tmp_path):
+    # the bundled closed loop, on a short grid: the same run twice agrees exactly; a
+    # 0.1 % larger output inductor moves the samples or the event times beyond the stated
+    # tolerances (1e-6 of full scale, 1e-10 s)
+    from tests.conftest import MODELS
+    from wirestate.compose import load_system
+
+    system = load_system(MODELS / "systems" / "aux_buck_loop.toml")
+    grid = sig.derive_switched_grid(system)
+    grid["until_s"] = 1e-3
+    grid["sample_indices"] = [k for k in grid["sample_indices"] if k <= 1000]
+    stored = sig.switched_signature(system, grid)
+    tolerances = sig.default_tolerances(stored)
+    assert set(tolerances) == {"switched.samples", "switched.events"}
+    assert stored["events"]["count"] > 100 and len(stored["events"]["first"]) == 40
+    assert sig.compare_signatures(stored, sig.switched_signature(system, grid), tolerances) == []
+    circuit = (MODELS / "aux_buck.toml").read_text().replace('value = "33uH"', 'value = "33.033uH"')
+    (tmp_path / "aux_buck.toml").write_text(circuit)
+    (tmp_path / "systems").mkdir()
+    text = (MODELS / "systems" / "aux_buck_loop.toml").read_text()
+    (tmp_path / "systems" / "loop.toml").write_text(text)
+    changed = load_system(tmp_path / "systems" / "loop.toml")
+    drifts = sig.compare_signatures(stored, sig.switched_signature(changed, grid), tolerances)
+    assert {"switched.samples", "switched.events"} & {d.quantity for d in drifts}

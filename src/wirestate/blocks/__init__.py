@@ -4,7 +4,8 @@ Linear continuous blocks are named-signal ``control.StateSpace`` systems; PI/PID
 are :class:`PIDController` objects (sampled and/or limited ones are simulated by
 :mod:`wirestate.simulate`; their unsaturated matrices come from
 :meth:`PIDController.matrices` / :meth:`PIDController.state_space`); user nonlinear
-blocks are :class:`NonlinearBlock` objects.
+blocks are :class:`NonlinearBlock` objects; a pulse-width :class:`Modulator` turns a duty
+cycle into switch gates.
 """
 
 from wirestate.blocks.controllers import (
@@ -16,10 +17,12 @@ from wirestate.blocks.controllers import (
     static_gain,
 )
 from wirestate.blocks.mechanical import gear, mass_spring_damper, rotary_inertia, torsional_shaft
+from wirestate.blocks.modulator import Modulator
 from wirestate.blocks.nonlinear import NonlinearBlock
 
 __all__ = [
     "ANTI_WINDUP_METHODS",
+    "Modulator",
     "NonlinearBlock",
     "PIDController",
     "gear",

@@ -32,8 +32,8 @@ def configure(parser: argparse.ArgumentParser) -> None:
         default=[],
         metavar="NAME=WAVEFORM",
         help="drive an input, e.g. Vs=step:48V,at=1ms, Vs=ramp:48V,end=5ms, "
-        "Vs=sinusoid:10V,50Hz,mean=48V, Vs=points:0s=0V,1ms=48V, Vs=csv:drive.csv "
-        "(repeatable); sources with a 'value' "
+        "Vs=sinusoid:10V,50Hz,mean=48V, Vs=points:0s=0V,1ms=48V, Vs=csv:drive.csv, "
+        "Q1=pwm:100kHz,duty=0.42 (repeatable); sources with a 'value' "
         "default are driven by it otherwise",
     )
     parser.add_argument(
@@ -61,6 +61,21 @@ def configure(parser: argparse.ArgumentParser) -> None:
             "input hold for LTI models: zero-order (default) or first-order; systems "
             "with sampled or nonlinear blocks take zoh only"
         ),
+    )
+    parser.add_argument(
+        "--fine-step",
+        metavar="TIME",
+        help="switched circuits: also record every TIME after each switching event, "
+        "e.g. 1ns (with --fine-window)",
+    )
+    parser.add_argument(
+        "--fine-window", metavar="TIME", help="how long after each event --fine-step applies"
+    )
+    parser.add_argument(
+        "--averaged",
+        action="store_true",
+        help="switched circuits with pwm gates: the state-space average (no ripple; "
+        "continuous conduction)",
     )
     parser.add_argument("--rtol", type=float, default=1e-8, help="CVODES relative tolerance")
     parser.add_argument("--atol", type=float, default=1e-10, help="CVODES absolute tolerance")
@@ -98,6 +113,7 @@ def run(args: argparse.Namespace) -> int:
     else:
         model = compile_circuit(parse_circuit(data, file=str(path)))
         options = {}
+    options.update(_switched_options(args))
     if args.initial != "parts" or args.initial_value:
         model = _start(model, args, assignments, path)
     steps = until / step
@@ -117,9 +133,15 @@ def run(args: argparse.Namespace) -> int:
         )
     except SimulationError as exc:
         raise exc.with_file(str(path)) from None
-    print(f"{result.name}: {format_count(len(result.time) - 1, 'step')} of "
-          f"{format_quantity(step, 's')} "
+    extra = len(result.time) - 1 - round(until / step)
+    more = f" and {format_count(extra, 'fine sample')} after events" if extra > 0 else ""
+    print(f"{result.name}: {format_count(round(until / step), 'step')} of "
+          f"{format_quantity(step, 's')}{more} "
           f"to {format_quantity(until, 's')}; {result.method}")  # fmt: skip
+    if result.events:
+        last = result.events[-1]
+        print(f"  {len(result.events)} switching events; the last: {last.part} {last.change} "
+              f"at {format_quantity(last.time, 's')}")  # fmt: skip
     rows = [(row[-1], row.min(), row.max()) for row in result.outputs]
     _print_summary(result.output_names, result.units, rows)
     if args.csv:
@@ -169,8 +191,11 @@ def _check_before_work(args: argparse.Namespace) -> None:
 def _streams(model, until: float, step: float) -> bool:
     """True for an LTI run too large for memory: it is streamed to the CSV instead."""
     from wirestate.simulate import guards
+    from wirestate.switching import switched_circuit
 
-    linear = not hasattr(model, "is_linear") or model.is_linear
+    linear = (not hasattr(model, "is_linear") or model.is_linear) and switched_circuit(
+        model
+    ) is None
     n = guards.step_count(until, step)
     return linear and guards.run_bytes(n + 1, *guards.signal_counts(model)) > (
         guards.memory_budget()
@@ -208,6 +233,23 @@ def _print_summary(names: list[str], units: dict[str, str], rows: list[tuple]) -
         unit = units.get(name, "")
         cells = [format_quantity(float(v), unit) for v in values]
         print(f"  {name:<{width}}  {cells[0]:>14}  {cells[1]:>14}  {cells[2]:>14}")
+
+
+def _switched_options(args: argparse.Namespace) -> dict:
+    """``fine_step``/``fine_window``/``averaged`` for the switched engine, when given."""
+    options: dict = {}
+    if args.fine_step or args.fine_window:
+        if not (args.fine_step and args.fine_window):
+            raise SimulationError(
+                "invalid_step",
+                "--fine-step and --fine-window go together",
+                location=("--fine-step",),
+            )
+        options["fine_step"] = _time(args.fine_step, "fine-step")
+        options["fine_window"] = _time(args.fine_window, "fine-window")
+    if args.averaged:
+        options["averaged"] = True
+    return options
 
 
 def _time(text: str, field: str) -> float:

@@ -18,7 +18,7 @@ import control
 import numpy as np
 
 from wirestate.blocks import PIDController
-from wirestate.compose import NONLINEAR, SAMPLED, ComposedSystem
+from wirestate.compose import MODULATOR, NONLINEAR, SAMPLED, SWITCHED, ComposedSystem
 from wirestate.errors import SimulationError, WirestateError
 from wirestate.lti import CircuitBlock
 from wirestate.simulate.discretize import zoh
@@ -187,6 +187,10 @@ def _refuse(cs: ComposedSystem) -> None:
             bad.append(f"{b.name} ({what})")
         elif b.category == SAMPLED and not isinstance(b.source, PIDController | control.StateSpace):
             bad.append(f"{b.name} (a sampled block of type {type(b.source).__name__})")
+        elif b.category in (SWITCHED, MODULATOR):  # issue 12: no switching in the FMU yet
+            bad.append(
+                f"{b.name} (a {'switched circuit' if b.category == SWITCHED else b.category})"
+            )
     if bad:
         raise ExportError(
             "not_exportable",

@@ -265,8 +265,12 @@ def file_signature(path: str | Path, kind: str, grid: dict | None) -> dict[str, 
     _check_supported(kind)
     if kind == "circuit":
         from wirestate.reduce import load_block
+        from wirestate.switching import switched_circuit
 
-        return sig.linear_signature(load_block(path), grid)
+        block = load_block(path)
+        if switched_circuit(block) is not None:  # issue 12: poles of every mode too
+            return sig.switched_circuit_signature(block, grid)
+        return sig.linear_signature(block, grid)
     if kind == "state_space":
         from wirestate.lti import load_state_space_block
 
@@ -274,8 +278,11 @@ def file_signature(path: str | Path, kind: str, grid: dict | None) -> dict[str, 
         return sig.linear_signature(load_state_space_block(path, on_stale="error"), grid)
     if kind == "system":
         from wirestate.compose import load_system
+        from wirestate.simulate.switched_system import has_switching
 
         system = load_system(path)
+        if has_switching(system):  # issue 12: one exact switched run
+            return sig.switched_signature(system, grid)
         if system.is_linear:
             return sig.linear_signature(system.state_space(), grid)
         return sig.simulated_signature(system, grid)

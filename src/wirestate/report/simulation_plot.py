@@ -56,7 +56,27 @@ def plot_simulation(result: Any, path: str | Path, *, title: str | None = None) 
         style_axes(ax)
         if rows:
             legend_outside(ax)
+    _mark_events(axes[:, 0], getattr(result, "events", None) or [], scale)
     axes[-1, 0].set_xlabel(axis_label("time", label))
     fig.suptitle(title or result.name, x=0.02, ha="left", fontsize=11)
     save_figure(fig, path, dpi=110)
     return path
+
+
+def _mark_events(axes: Any, events: list, scale: float) -> None:
+    """Switching events as short ticks along the top of every panel, one colour per part
+    (turn-on ticks full height, turn-off ticks half height), named in the top legend."""
+    if not events:
+        return
+    parts = list(dict.fromkeys(e.part for e in events))
+    for ax in axes:
+        for n, part in enumerate(parts):
+            colour = PALETTE[(n + 2) % len(PALETTE)]
+            label = f"{part} on / off" if ax is axes[0] else None
+            for after, low in (("on", 0.94), ("off", 0.97)):
+                times = [e.time / scale for e in events if e.part == part and e.after == after]
+                if times:
+                    ax.vlines(times, low, 1.0, transform=ax.get_xaxis_transform(),
+                              colors=colour, linewidth=0.8, alpha=0.9, label=label)  # fmt: skip
+                    label = None
+    legend_outside(axes[0])

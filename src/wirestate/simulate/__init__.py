@@ -61,10 +61,15 @@ def simulate(
     LTI models run by exact ZOH (or FOH with ``hold="foh"``), see
     :func:`~wirestate.simulate.linear.simulate_linear`; systems with sampled or nonlinear
     blocks by :func:`~wirestate.simulate.hybrid.simulate_system` (``options``: ``rtol``,
-    ``atol``). The run starts from ``initial`` (``"parts"``: the parts' ``initial``
-    fields; ``"zero"``; ``"steady_state"``: the equilibrium at the inputs at t = 0) with
-    ``initial_values`` set by state name on top (see
-    :func:`~wirestate.simulate.initial.start_from`).
+    ``atol``). Circuits with switches or diodes run exactly with their events
+    (:func:`~wirestate.simulate.switched.simulate_switched`; ``options``: ``fine_step``,
+    ``fine_window``, ``x0``, ``max_changes``, or ``averaged=True`` for the state-space
+    average, :func:`~wirestate.simulate.averaged.simulate_averaged`), and systems with them
+    or with a modulator by
+    :func:`~wirestate.simulate.switched_system.simulate_switched_system`. The run starts from
+    ``initial`` (``"parts"``: the parts' ``initial`` fields; ``"zero"``; ``"steady_state"``:
+    the equilibrium at the inputs at t = 0) with ``initial_values`` set by state name on top
+    (see :func:`~wirestate.simulate.initial.start_from`).
     """
     guards.check_tolerances(options)
     if initial != "parts" or initial_values:
@@ -84,6 +89,12 @@ def simulate(
 
 
 def _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, options):
+    switched = _switched_run(model, hold, options)
+    if switched is not None:
+        return switched(
+            model, until, step, inputs, use_defaults=use_defaults, base=base,
+            progress=progress, **options,
+        )  # fmt: skip
     if isinstance(model, ComposedSystem) and not model.is_linear:
         if hold != "zoh":
             # the hybrid engines hold the sampled outputs by construction and take the
@@ -103,3 +114,42 @@ def _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, op
         model, until, step, inputs, hold=hold, use_defaults=use_defaults, base=base,
         progress=progress, **options,
     )  # fmt: skip
+
+
+def _switched_run(model: Any, hold: str, options: dict) -> Callable | None:
+    """The switched engine for circuits with switches or diodes and systems with them or
+    with a modulator (issue 12); ``None`` for every other model."""
+    from wirestate.simulate.averaged import simulate_averaged
+    from wirestate.simulate.switched import simulate_switched
+    from wirestate.simulate.switched_system import has_switching, simulate_switched_system
+    from wirestate.switching import switched_circuit
+
+    averaged = options.pop("averaged", False)
+    if has_switching(model):
+        run = simulate_switched_system
+        if averaged:
+            raise SimulationError(
+                "invalid_field",
+                f"{model.name}: the averaged model applies to a circuit with pwm gates; "
+                "simulate the system switched",
+            )
+    elif switched_circuit(model) is not None:
+        run = simulate_averaged if averaged else simulate_switched
+    elif averaged:
+        raise SimulationError(
+            "invalid_field",
+            f"{getattr(model, 'name', 'model')}: the averaged model applies to a circuit "
+            "with switches or diodes",
+        )
+    else:
+        return None
+    if hold != "zoh":
+        raise SimulationError(
+            "invalid_field",
+            f"{getattr(model, 'name', 'model')}: hold {hold!r} applies to linear "
+            "time-invariant models only; a switched run holds its inputs over each output "
+            "step and takes gates exactly",
+        )
+    for name in ("rtol", "atol"):  # tolerances of the CVODES integrator, unused here
+        options.pop(name, None)
+    return run

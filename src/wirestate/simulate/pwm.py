@@ -4,7 +4,7 @@ Text form (``simulate --input`` and scenarios), values 1 (on) and 0 (off)::
 
     pwm:100kHz,duty=0.42                      high-side gate, sawtooth carrier
     pwm:100kHz,duty=42%,side=low,dead=40ns    the other switch of the leg, 40 ns dead time
-    pwm:100kHz,duty=0.42,carrier=triangle,phase=90
+    pwm:100kHz,duty=0.42,carrier=triangle,phase=90deg
 
 * ``duty``: on-time fraction of the high-side gate (0..1, or a percentage).
 * ``carrier``: ``sawtooth`` (default; the high side turns on at each period start, trailing
@@ -13,11 +13,12 @@ Text form (``simulate --input`` and scenarios), values 1 (on) and 0 (off)::
 * ``side``: ``high`` (default) or ``low``, the complement of the high side.
 * ``dead``: dead time; every turn-on edge of this gate is delayed by it, so a high and a
   low gate of one leg with the same ``dead`` are never on together.
-* ``phase``: carrier delay in degrees of a period.
+* ``phase``: carrier delay as an angle of a period (``90deg``, or ``90`` in degrees).
 
 Regular-sampled PWM as in digital converter controllers (Holmes and Lipo, Pulse Width
 Modulation for Power Converters, 2003, ch. 1): the duty is constant here; the modulator
-block of a system file latches a new duty at every carrier period start.
+block of a system file (:mod:`wirestate.blocks.modulator`, the same comparator) latches a
+new duty at every carrier period start.
 """
 
 from __future__ import annotations
@@ -27,10 +28,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from wirestate.simulate.inputs import Waveform
+from wirestate.blocks.modulator import CARRIERS, comparator_interval
+from wirestate.simulate.inputs import Waveform, _arguments, _degrees
 from wirestate.units import parse_quantity
 
-CARRIERS = ("sawtooth", "triangle")
 SIDES = ("high", "low")
 
 
@@ -51,11 +52,8 @@ class PulseWidth(Waveform):
 
     def local_intervals(self) -> list[tuple[float, float]]:
         """On intervals relative to a carrier period start, over this and the next period."""
-        T, D = self.period, self.duty
-        if self.carrier == "sawtooth":
-            a, b = 0.0, D * T
-        else:
-            a, b = (1.0 - D) * T / 2.0, (1.0 + D) * T / 2.0
+        T = self.period
+        a, b = comparator_interval(self.carrier, self.duty, T)
         if self.side == "high":
             start, end = a, b
         else:
@@ -99,6 +97,16 @@ class PulseWidth(Waveform):
                 on |= (local + back >= s) & (local + back < e)
         return on.astype(float)
 
+    def value_at(self, t: float) -> float:
+        """The gate at one time (1.0 or 0.0); plain arithmetic, for the event loop."""
+        T = self.period
+        shifted = t - self.phase * T
+        local = shifted - math.floor(shifted / T) * T
+        for s, e in self.local_intervals():
+            if s <= local < e or s <= local + T < e:
+                return 1.0
+        return 0.0
+
     def expression(self, t):
         import casadi as ca
 
@@ -117,31 +125,25 @@ class PulseWidth(Waveform):
 
 
 def parse_pwm(rest: str) -> PulseWidth:
-    """Read the arguments of ``pwm:...`` (after the colon); ``ValueError`` on a mistake."""
-    items = [item.strip() for item in rest.split(",")]
-    if not items or not items[0] or "=" in items[0]:
-        raise ValueError("pwm needs the carrier frequency first, e.g. pwm:100kHz,duty=0.42")
-    frequency = parse_quantity(items[0], "Hz", field="")
-    if not frequency > 0:
-        raise ValueError(f"the pwm frequency must be positive, got {items[0]!r}")
-    options: dict[str, str] = {}
-    for item in items[1:]:
-        key, sep, value = item.partition("=")
-        if not sep:
-            raise ValueError(f"expected KEY=VALUE after the frequency, got {item!r}")
-        options[key.strip().lower()] = value.strip()
-    allowed = {"duty", "dead", "phase", "side", "carrier"}
-    unknown = sorted(set(options) - allowed)
-    if unknown:
+    """Read the arguments of ``pwm:...`` (after the colon); ``ValueError`` on a mistake.
+
+    Same reading rules as the other waveforms (:func:`~wirestate.simulate.inputs.
+    parse_waveform`): the carrier frequency first, then ``key=value`` options, each once.
+    """
+    positional, options = _arguments(rest)
+    if len(positional) != 1:
         raise ValueError(
-            f"pwm has no option {unknown[0]!r} (options: {', '.join(sorted(allowed))})"
+            "pwm takes the carrier frequency first and options after it, e.g. pwm:100kHz,duty=0.42"
         )
+    frequency = parse_quantity(positional[0], "Hz", field="")
+    if not frequency > 0:
+        raise ValueError(f"the pwm frequency must be positive, got {positional[0]!r}")
+    unknown = sorted(set(options) - set(PWM_OPTIONS))
+    if unknown:
+        raise ValueError(f"pwm has no option {unknown[0]!r} (options: {', '.join(PWM_OPTIONS)})")
     if "duty" not in options:
         raise ValueError("pwm needs duty=..., e.g. duty=0.42 or duty=42%")
-    text = options["duty"]
-    duty = float(text[:-1]) / 100.0 if text.endswith("%") else float(text)
-    if not 0.0 <= duty <= 1.0:
-        raise ValueError(f"duty must lie in 0..1 (or 0..100 %), got {text!r}")
+    duty = _duty(options["duty"])
     dead = parse_quantity(options.get("dead", "0"), "s", field="")
     if not 0.0 <= dead < 1.0 / frequency:
         raise ValueError(f"dead time must lie in [0, one period), got {options.get('dead')!r}")
@@ -151,7 +153,18 @@ def parse_pwm(rest: str) -> PulseWidth:
         raise ValueError(f"side must be one of {', '.join(SIDES)}, got {side!r}")
     if carrier not in CARRIERS:
         raise ValueError(f"carrier must be one of {', '.join(CARRIERS)}, got {carrier!r}")
-    phase = float(options.get("phase", "0")) / 360.0
-    if not math.isfinite(phase):  # float() reads "nan" and "inf" as numbers
-        raise ValueError(f"phase must be a finite angle in degrees, got {options['phase']!r}")
+    phase = _degrees(options.get("phase", "0")) / 360.0
     return PulseWidth(frequency, duty, dead, phase % 1.0, side, carrier)
+
+
+#: the options of ``pwm:``, in the order the messages list them
+PWM_OPTIONS = ("duty", "dead", "side", "carrier", "phase")
+
+
+def _duty(text: str) -> float:
+    percent = text.endswith("%")
+    duty = parse_quantity(text[:-1] if percent else text, "1", field="duty")
+    duty = duty / 100.0 if percent else duty
+    if not 0.0 <= duty <= 1.0:
+        raise ValueError(f"duty must lie in 0..1 (or 0..100 %), got {text!r}")
+    return duty

@@ -42,6 +42,9 @@ class SimulationResult:
     events
         Switching events of a switched circuit, ``(time, part, "off -> on")`` in time
         order (empty otherwise).
+    modes
+        For a switched circuit, the mode between events: ``(start, end, on)`` intervals
+        covering the run, ``on`` the conduction of every switch and diode (empty otherwise).
     """
 
     name: str
@@ -56,6 +59,7 @@ class SimulationResult:
     method: str = ""
     state_offset: np.ndarray | None = None
     events: list = field(default_factory=list)
+    modes: list = field(default_factory=list)
 
     def physical_states(self) -> tuple[list[str], np.ndarray]:
         """Capacitor voltages and inductor currents: every state plus ``state_offset @ u``,

@@ -35,11 +35,26 @@ class Stepper:
     x0
         Initial state (default: the block's initial state).
 
+    A circuit with switches or diodes, a system with them or with a modulator, or a
+    ``modulator=`` argument gives a
+    :class:`~wirestate.simulate.switched_stepper.SwitchedStepper` instead: the same
+    interface, with the switching events inside each step.
+
     Notes
     -----
     The input passed to :meth:`step` is held constant over the step, which is exact for
     the zero-order hold. Inputs never given keep their source default (``value``) or 0.
     """
+
+    def __new__(cls, system: Any = None, *args: Any, **kwargs: Any) -> Stepper:
+        # a circuit with switches or diodes, or a modulator inside, steps with its events
+        # (issue 12): the switched stepper is a subclass, so isinstance() still holds
+        if cls is Stepper:
+            from wirestate.simulate.switched_stepper import SwitchedStepper, is_switched_model
+
+            if is_switched_model(system, kwargs.get("modulator")):
+                return super().__new__(SwitchedStepper)
+        return super().__new__(cls)
 
     def __init__(self, system: Any, dt: float, *, x0: Sequence[float] | None = None) -> None:
         model = as_linear_model(system)

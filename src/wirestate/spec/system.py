@@ -18,7 +18,15 @@ A system file is TOML with these tables::
     [blocks.rotor]
     kind = "rotary_inertia"           # rotary_inertia | gear | torsional_shaft |
     inertia = "2.5e-3 kg*m^2"         #   mass_spring_damper | pi | pid | state_feedback |
-    friction = "1e-4 N*m*s/rad"       #   sensor_filter | gain | circuit
+    friction = "1e-4 N*m*s/rad"       #   sensor_filter | gain | modulator | circuit
+
+    [blocks.pwm]                      # a pulse-width modulator: duty -> gate (or high, low)
+    kind = "modulator"
+    frequency = "100kHz"
+    carrier = "triangle"              # | "sawtooth" (default)
+    complementary = true              # outputs high and low
+    dead_time = "50ns"
+    phase = 0                         # carrier delay in degrees
 
     [blocks.speed_loop]
     kind = "pi"
@@ -51,7 +59,7 @@ import re
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator, model_validator
 
 from wirestate.errors import WirestateError
 from wirestate.spec.load import QuantityInput, read_toml, validate
@@ -230,6 +238,28 @@ class GainSpec(_Block):
     unit: str = ""
 
 
+class ModulatorSpec(_Block):
+    """A pulse-width modulator: input ``duty``; output ``gate``, or ``high`` and ``low``."""
+
+    kind: Literal["modulator"]
+    frequency: Annotated[float, _q("Hz")] = Field(gt=0, description="carrier frequency")
+    carrier: Literal["sawtooth", "triangle"] = "sawtooth"
+    complementary: bool = Field(
+        default=False, description="two outputs, high and low, instead of one gate"
+    )
+    dead_time: Seconds = Field(default=0.0, ge=0, description="turn-on delay of each output")
+    phase: Gain = Field(default=0.0, description="carrier delay in degrees of a period")
+
+    @model_validator(mode="after")
+    def _dead_time_within_a_period(self):
+        if not self.dead_time < 1.0 / self.frequency:
+            raise ValueError(
+                f"dead_time ({self.dead_time:g} s) must be shorter than the carrier period "
+                f"({1.0 / self.frequency:g} s)"
+            )
+        return self
+
+
 BlockSpec = Annotated[
     CircuitBlockSpec
     | StateSpaceBlockSpec
@@ -241,7 +271,8 @@ BlockSpec = Annotated[
     | PIDSpec
     | StateFeedbackSpec
     | SensorFilterSpec
-    | GainSpec,
+    | GainSpec
+    | ModulatorSpec,
     Field(discriminator="kind"),
 ]
 
@@ -257,6 +288,7 @@ BLOCK_KINDS: tuple[str, ...] = (
     "state_feedback",
     "sensor_filter",
     "gain",
+    "modulator",
 )
 
 
