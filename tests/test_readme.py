@@ -242,6 +242,7 @@ _VARIANTS = {
     ],  # fmt: skip
     "sensor_filter": [{"time_constant": "1ms", "unit": "V"}],
     "gain": [{"gain": 2.0, "unit": "V"}],
+    "modulator": [{"frequency": "100kHz"}, {"frequency": "100kHz", "complementary": True}],
 }
 
 
@@ -269,7 +270,7 @@ def test_the_signal_table_lists_what_each_block_offers(kind):
         for name, unit in listed[role]:
             if unit == "measured":
                 continue  # the unit of whatever is wired to the input
-            expected = "V" if unit == "`unit`" else unit
+            expected = "V" if unit == "`unit`" else unit  # the variants' unit is V
             got = {b.units.get(name, "") for b in built if name in getattr(b, role)}
             assert got == {expected}, (kind, role, name, got)
 

@@ -24,7 +24,10 @@ def run_cli(capsys, *args):
         (str(MODELS / "systems" / "focus_stage.toml"), "position_loop"),
         # issue 12: no switching inside the FMU runtime yet
         (str(MODELS / "aux_buck.toml"), "switches or diodes"),
-        (str(MODELS / "systems" / "aux_buck_loop.toml"), "stage (a switched circuit)"),
+        (
+            str(MODELS / "systems" / "aux_buck_loop.toml"),
+            "stage (a switched circuit: switches or diodes Q1 (switch), D1 (diode))",
+        ),
     ],
 )
 def test_bad_models_give_one_line_and_leave_the_old_fmu(tmp_path, capsys, model, code_text):

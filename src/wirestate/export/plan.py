@@ -173,9 +173,6 @@ def plan_circuit(block: CircuitBlock, step: float) -> ExportPlan:
 
 
 def _refuse(cs: ComposedSystem) -> None:
-    for b in cs.blocks.values():
-        if isinstance(b.source, CircuitBlock):
-            refuse_switched(b.source, f"{cs.name}: block {b.name}", cs.file)
     bad = []
     for b in cs.blocks.values():
         if b.category == NONLINEAR:
@@ -187,10 +184,11 @@ def _refuse(cs: ComposedSystem) -> None:
             bad.append(f"{b.name} ({what})")
         elif b.category == SAMPLED and not isinstance(b.source, PIDController | control.StateSpace):
             bad.append(f"{b.name} (a sampled block of type {type(b.source).__name__})")
-        elif b.category in (SWITCHED, MODULATOR):  # issue 12: no switching in the FMU yet
-            bad.append(
-                f"{b.name} (a {'switched circuit' if b.category == SWITCHED else b.category})"
-            )
+        elif b.category == SWITCHED:  # issue 12: no switching in the FMU yet
+            devices = ", ".join(switching_parts(b.source))
+            bad.append(f"{b.name} (a switched circuit: switches or diodes {devices})")
+        elif b.category == MODULATOR:
+            bad.append(f"{b.name} (a modulator)")
     if bad:
         raise ExportError(
             "not_exportable",
