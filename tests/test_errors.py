@@ -408,3 +408,34 @@ def test_stale_source_code(tmp_path):
     with pytest.raises(WirestateError) as info:
         load_state_space_block(tmp_path / "reduced.toml", on_stale="error")
     assert info.value.code == "stale_source" and info.value.location[0] == "reduction"
+
+
+# review of the newest features: an output that would replace an input, a switched circuit
+# given to reduce
+def test_output_is_input_code(tmp_path):
+    from wirestate.simulate import guards
+
+    model = tmp_path / "rc.toml"
+    model.write_text('[circuit]\nname = "rc"\n')
+    with pytest.raises(WirestateError) as info:
+        guards.check_output_path(model, "--csv", inputs=(model,))
+    assert info.value.code == "output_is_input" and info.value.file == str(model)
+    other = tmp_path / "other.toml"
+    other.write_text('[circuit]\nname = "other"\n')
+    with pytest.raises(WirestateError) as info:
+        guards.check_output_path(other, "--csv")
+    assert info.value.code == "output_is_input" and "circuit file" in info.value.message
+
+
+def test_not_reducible_code(tmp_path, capsys):
+    from wirestate.cli import main
+
+    model = tmp_path / "rect.toml"
+    model.write_text(
+        '[circuit]\nname = "rect"\n[parts.Vac]\nkind = "voltage_source"\nnodes = ["a", "gnd"]\n'
+        '[parts.D1]\nkind = "diode"\nnodes = ["a", "b"]\n[parts.C1]\nkind = "capacitor"\n'
+        'nodes = ["b", "gnd"]\nvalue = "1uF"\n[parts.R1]\nkind = "resistor"\n'
+        'nodes = ["b", "gnd"]\nvalue = "1kohm"\n[outputs.v]\nvoltage = "b"\n'
+    )
+    assert main(["reduce", str(model), "--order", "0", "--out", str(tmp_path / "r.toml")]) == 2
+    assert "parts.D1" in capsys.readouterr().err

@@ -682,6 +682,15 @@ def _check_request(block: Any, order: int | None, error: float | None, gramians:
             "error_unreachable",
             f"--error {error!r}: give a positive relative bound such as 1e-3",
         )
+    elif error >= 1:
+        # a bound of the whole norm or more allows an error as large as the block itself
+        # (order 0 may meet it); most likely a percentage typed as a number
+        raise ReductionError(
+            "error_unreachable",
+            f"--error {error!r}: the bound is a fraction of the block's H-infinity norm, so "
+            "1 or more allows an error as large as the block; give a fraction below 1, "
+            "e.g. 0.05 for 5 %",
+        )
 
 
 def sparse_balance_scaling(A: sp.spmatrix, sweeps: int = 20) -> np.ndarray:

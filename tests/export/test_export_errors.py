@@ -48,7 +48,8 @@ def test_unwritable_output_path(tmp_path, capsys):
         capsys, str(MODELS / "servo_armature.toml"), "--fmu", str(blocker / "x.fmu"),
         "--sources-only",
     )  # fmt: skip
-    assert status == 2 and "cannot write the FMU" in err and err.count("\n") == 1
+    # the command checks the path before any work and names the option
+    assert status == 2 and "--fmu" in err and err.count("\n") == 1
     with pytest.raises(WirestateError) as info:
         export_fmu(MODELS / "servo_armature.toml", blocker / "x.fmu", sources_only=True)
     assert info.value.code == "unwritable_output"

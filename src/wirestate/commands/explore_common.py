@@ -168,6 +168,20 @@ def run_options(args: argparse.Namespace, progress: ProgressBar | None) -> dict[
     }
 
 
+def check_outputs(args: argparse.Namespace) -> None:
+    """The result files of ``--json``, ``--csv`` and ``--plot``, checked before any sample
+    is drawn: a folder that exists, no model file replaced, a figure suffix we write."""
+    from wirestate.report.figure import figure_format
+    from wirestate.simulate.guards import check_output_path
+
+    for option in ("json", "csv", "plot"):
+        path = getattr(args, option, None)
+        if path:
+            check_output_path(path, f"--{option}", inputs=(args.spec,))
+    if args.plot:
+        figure_format(args.plot)
+
+
 def write_text(path: str, text: str | bytes) -> None:
     """Write a result file atomically: an interrupted run leaves the old file or none."""
     try:

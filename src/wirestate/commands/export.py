@@ -38,6 +38,9 @@ def run(args: argparse.Namespace) -> int:
             raise SimulationError(
                 "invalid_step", f"step must be a positive time, got {args.step!r}"
             )
+    from wirestate.simulate.guards import check_output_path
+
+    check_output_path(args.fmu, "--fmu", inputs=(args.model,))
     result = export_fmu(args.model, args.fmu, step=step, sources_only=args.sources_only)
     plan = result.plan
     print(

@@ -12,6 +12,7 @@ import argparse
 
 from wirestate.commands.explore_common import (
     add_cluster_options,
+    check_outputs,
     progress_bar,
     run_options,
     write_json,
@@ -66,6 +67,7 @@ def run(args: argparse.Namespace) -> int:
     from wirestate.explore import parse_grid, sweep
     from wirestate.tune import load_tuning
 
+    check_outputs(args)
     spec = load_tuning(args.spec)
     with progress_bar("sweep", args.quiet) as bar:
         result = sweep(spec, parse_grid(args.grid), log=args.log, **run_options(args, bar))

@@ -12,6 +12,7 @@ import argparse
 
 from wirestate.commands.explore_common import (
     add_cluster_options,
+    check_outputs,
     progress_bar,
     run_options,
     write_json,
@@ -104,6 +105,7 @@ def run(args: argparse.Namespace) -> int:
     from wirestate.explore import tolerance_yield
     from wirestate.tune import load_tuning
 
+    check_outputs(args)
     spec = load_tuning(args.spec)
     parts = [p.strip() for p in args.parts.split(",") if p.strip()] if args.parts else None
     with progress_bar("yield", args.quiet) as bar:

@@ -133,6 +133,9 @@ def error_from_validation(
     elif first["type"] == "union_tag_not_found":
         message = "missing field 'kind'"
         location = location + ("kind",)
+    elif first["type"] == "float_type":
+        # strict numbers (state-space matrices): say what was given instead
+        message = f"expected a number (SI base units), got {first.get('input')!r}"
     elif first["type"] == "missing":
         message = f"missing required field {location[-1]!r}" if location else "missing field"
     elif first["type"] == "extra_forbidden":
