@@ -1222,6 +1222,13 @@ CASES: list[Case] = [
         where=("--csv",),
     ),
     Case(
+        "tune_json_is_the_circuit",
+        "tune",
+        {"t.toml": TUNING, "rc.toml": RC},
+        ["tune", "{t.toml}", "--json", "{rc.toml}", "--quiet"],
+        where=("--json", "circuit"),
+    ),
+    Case(
         "sweep_grid_reversed",
         "yield/sweep",
         {"t.toml": TUNING, "rc.toml": RC_TOLERANCE},

@@ -186,6 +186,9 @@ def write_json_atomically(path: str | Path, data: dict[str, Any]) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from wirestate.commands.explore_common import check_outputs
+
+    check_outputs(args)  # before the solve: --json/--plot never replace a model file
     spec = load_tuning(args.spec)
     progress = _progress(args.quiet)
     try:
