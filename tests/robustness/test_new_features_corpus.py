@@ -1229,6 +1229,13 @@ CASES: list[Case] = [
         where=("--json", "circuit"),
     ),
     Case(
+        "regress_junit_is_the_model",
+        "regress",
+        {"rc.toml": RC},
+        ["regress", "{rc.toml}", "--golden", "{golden}", "--junit", "{rc.toml}"],
+        where=("--junit",),
+    ),
+    Case(
         "sweep_grid_reversed",
         "yield/sweep",
         {"t.toml": TUNING, "rc.toml": RC_TOLERANCE},
