@@ -623,12 +623,14 @@ CASES: list[Case] = [
         "reduce_system_file",
         ["--order", "2", "--out", "{r.toml}"],
         "sys.toml",
+        "a system file",
         files={"sys.toml": SYSTEM_SS, "ss.toml": SS},
     ),
     _reduce(
         "reduce_tuning_file",
         ["--order", "2", "--out", "{r.toml}"],
         "t.toml",
+        "a tuning file",
         files={"t.toml": TUNING, "rc.toml": RC_TOLERANCE},
     ),
     _reduce(
@@ -1133,6 +1135,13 @@ CASES: list[Case] = [
         "ok",
         check=_in_output("1 input, 1 output, 1 continuous"),
         creates=("r.fmu",),
+    ),
+    Case(
+        "export_tuning_file",
+        "export",
+        {"t.toml": TUNING, "rc.toml": RC},
+        ["export", "{t.toml}", "--fmu", "{r.fmu}", "--sources-only"],
+        where=("t.toml", "a tuning file"),
     ),
     Case(
         "export_fmu_is_another_model",
