@@ -922,6 +922,13 @@ CASES: list[Case] = [
         where=("ss.toml",),
     ),
     Case(
+        "system_block_file_is_a_system_file",
+        "system",
+        {"sys.toml": SYSTEM_SS.replace('"ss.toml"', '"sys.toml"')},
+        ["inspect", "{sys.toml}"],
+        where=("sys.toml", "blocks.filter", "a system file"),
+    ),
+    Case(
         "system_block_file_is_a_folder",
         "system",
         {"sys.toml": SYSTEM_SS.replace('"ss.toml"', '"sub"'), "sub/keep": ""},

@@ -47,7 +47,7 @@ from pydantic import BaseModel, ConfigDict, Field, StrictFloat, field_validator,
 
 from wirestate.errors import ModelFileError
 from wirestate.spec.circuit import NAME_PATTERN, _check_name
-from wirestate.spec.load import read_toml, validate
+from wirestate.spec.load import expect_file_kind, read_toml, validate
 from wirestate.units import is_si_unit
 
 #: matrix entries are numbers in SI base units: text (even "1e3" or "nan") and booleans are
@@ -187,7 +187,9 @@ def is_state_space_file(data: dict[str, Any]) -> bool:
 
 
 def parse_state_space(data: dict[str, Any], *, file: str | None = None) -> StateSpaceSpec:
-    """Validate a state-space file given as a mapping (the parsed TOML)."""
+    """Validate a state-space file given as a mapping (the parsed TOML); a file of another
+    kind is refused as such (``wrong_file_kind``)."""
+    expect_file_kind(data, "state_space", file=file)
     return validate(StateSpaceSpec, data, file=file)
 
 
