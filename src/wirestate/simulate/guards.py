@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import os
+import re
 import shutil
 from pathlib import Path
 from typing import Any
@@ -145,13 +146,37 @@ def check_csv_space(path: str | Path, n_samples: int, n_outputs: int) -> None:
 MODEL_TABLES = ("circuit", "system", "tuning", "state_space")
 
 
+#: bytes read from the start of an existing output file to tell whether it is a model: the
+#: kind table opens every model file wirestate writes or shows (after a comment at most)
+_HEAD_BYTES = 65536
+#: a model file larger than this is taken as one without parsing it whole
+_PARSE_MAX_BYTES = 64 * 2**20
+_KIND_LINE = re.compile(
+    rb"^[ \t]*(?:\[[ \t]*(circuit|system|tuning|state_space)[ \t]*\]|"
+    rb"(circuit|system|tuning|state_space)\.)",
+    re.MULTILINE,
+)
+
+
 def model_file_kind(path: str | Path) -> str | None:
     """The kind of model file at ``path`` (its top-level table), or ``None`` when it is no
-    readable TOML model file (missing, binary, a CSV...)."""
+    TOML model file (missing, binary, a CSV...).
+
+    Only the head of the file is read first, so that checking an old multi-gigabyte CSV
+    output costs nothing; a head naming a kind table is then parsed whole to confirm.
+    """
     import tomllib
 
+    path = Path(path)
     try:
-        data = tomllib.loads(Path(path).read_text(encoding="utf-8"))
+        with path.open("rb") as handle:
+            head = handle.read(_HEAD_BYTES)
+        if _KIND_LINE.search(head) is None:
+            return None
+        if path.stat().st_size > _PARSE_MAX_BYTES:
+            match = _KIND_LINE.search(head)
+            return (match.group(1) or match.group(2)).decode()
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, RecursionError):
         return None
     return next((kind for kind in MODEL_TABLES if isinstance(data.get(kind), dict)), None)
