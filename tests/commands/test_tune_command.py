@@ -108,8 +108,9 @@ def test_infeasible_limits_exit_nonzero_with_one_error_line(tmp_path, capsys):
     ("args", "needle"),
     [
         (["tune", "no/such/file.toml"], "no such file"),
-        (["tune", "{spec}", "--json", "{tmp}/absent/report.json"], "cannot write"),
-        (["tune", "{spec}", "--plot", "{tmp}/absent/tune.png"], "cannot write"),
+        # the missing folder is found before the solve and named with the option
+        (["tune", "{spec}", "--json", "{tmp}/absent/report.json"], "--json: the folder"),
+        (["tune", "{spec}", "--plot", "{tmp}/absent/tune.png"], "--plot: the folder"),
     ],
 )
 def test_user_mistakes_give_one_line(tmp_path, capsys, args, needle):
