@@ -188,7 +188,8 @@ def write_json_atomically(path: str | Path, data: dict[str, Any]) -> None:
 def run(args: argparse.Namespace) -> int:
     from wirestate.commands.outputs import check_outputs
 
-    check_outputs(json=args.json, plot=args.plot, figures=("plot",))
+    # before the solve: --json/--plot never replace a model file
+    check_outputs(json=args.json, plot=args.plot, figures=("plot",), inputs=(args.spec,))
     spec = load_tuning(args.spec)
     progress = _progress(args.quiet)
     try:
