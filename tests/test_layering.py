@@ -16,6 +16,7 @@ LAYERS = [
     {"equations"},
     {"lti"},
     {"reduce"},
+    {"parametric"},
     {"balanced"},
     {"switching"},
     {"blocks"},

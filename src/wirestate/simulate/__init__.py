@@ -4,20 +4,41 @@ the co-simulation :class:`Stepper`, input waveforms and results."""
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
+from importlib import import_module
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from wirestate.compose import ComposedSystem
-from wirestate.errors import SimulationError
-from wirestate.simulate import guards
-from wirestate.simulate.discretize import Discretization, foh, zoh
-from wirestate.simulate.hybrid import simulate_system
-from wirestate.simulate.inputs import InputSet, Waveform, build_inputs, parse_waveform
-from wirestate.simulate.linear import LinearModel, as_linear_model, propagate, simulate_linear
-from wirestate.simulate.results import SimulationResult
-from wirestate.simulate.stepper import Stepper
+if TYPE_CHECKING:
+    from wirestate.simulate.discretize import Discretization, foh, zoh
+    from wirestate.simulate.hybrid import simulate_system
+    from wirestate.simulate.inputs import InputSet, Waveform, build_inputs, parse_waveform
+    from wirestate.simulate.linear import (
+        LinearModel,
+        as_linear_model,
+        propagate,
+        simulate_linear,
+    )
+    from wirestate.simulate.results import SimulationResult
+    from wirestate.simulate.stepper import Stepper
+
+# the public names, imported on first use (PEP 562): importing one light submodule, such
+# as the discretisation, must not pull in python-control through the composition layer
+_LAZY = {
+    "Discretization": "discretize", "foh": "discretize", "zoh": "discretize",
+    "simulate_system": "hybrid", "InputSet": "inputs", "Waveform": "inputs",
+    "build_inputs": "inputs", "parse_waveform": "inputs", "LinearModel": "linear",
+    "as_linear_model": "linear", "propagate": "linear", "simulate_linear": "linear",
+    "SimulationResult": "results", "Stepper": "stepper",
+}  # fmt: skip
+
+
+def __getattr__(name: str) -> Any:
+    if name in _LAZY:
+        return getattr(import_module(f"wirestate.simulate.{_LAZY[name]}"), name)
+    raise AttributeError(f"module 'wirestate.simulate' has no attribute {name!r}")
+
 
 __all__ = [
     "Discretization",
@@ -57,6 +78,9 @@ def simulate(
     blocks by :func:`~wirestate.simulate.hybrid.simulate_system` (``options``: ``rtol``,
     ``atol``).
     """
+    from wirestate.compose import ComposedSystem
+    from wirestate.simulate import guards
+
     guards.check_tolerances(options)
     # a run that cannot fit is refused before any array is made (issue 10.10)
     nonlinear = isinstance(model, ComposedSystem) and not model.is_linear
@@ -70,6 +94,11 @@ def simulate(
 
 
 def _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, options):
+    from wirestate.compose import ComposedSystem
+    from wirestate.errors import SimulationError
+    from wirestate.simulate.hybrid import simulate_system
+    from wirestate.simulate.linear import simulate_linear
+
     if isinstance(model, ComposedSystem) and not model.is_linear:
         if hold != "zoh":
             # the hybrid engines hold the sampled outputs by construction and take the
