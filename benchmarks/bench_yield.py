@@ -5,7 +5,7 @@ Three figures from one run:
 * ``yield_per_sample_one_core``: seconds per sample of the batched evaluator
   (:class:`wirestate.explore.MarginEvaluator`: loop matrices compiled once, batches of 500)
   on one core, against the plain loop that calls the existing numeric verification once
-  per sample (``TuningModel.numeric`` + ``limit_margins``; timed on 300 samples). Target:
+  per sample (``Problem.numeric`` + ``limit_margins``; timed on 300 samples). Target:
   at most 1 ms per sample (``details.per_sample_ms``); ``ratio`` is ours / plain.
 * ``yield_speedup_all_cores``: the 10 000 samples through ``evaluate_batches`` on one
   worker and on one worker process per core, evaluation time only (the cluster's start-up
@@ -28,7 +28,7 @@ from wirestate.explore.evaluate import MarginEvaluator
 from wirestate.explore.parts import toleranced_parts
 from wirestate.explore.sampling import draw_chunks
 from wirestate.tune import load_tuning
-from wirestate.tune.model import TuningModel
+from wirestate.tune.problem import Problem
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLES, PLAIN_SAMPLES = 10_000, 300
@@ -36,7 +36,7 @@ TARGET_MS = 1.0
 
 
 def _setup():
-    model = TuningModel(load_tuning(ROOT / "models" / "tuning" / "drive_bus_damping.toml"))
+    model = Problem(load_tuning(ROOT / "models" / "tuning" / "drive_bus_damping.toml"))
     fixed = {"Rd": 0.22, "Cd": 240e-6}  # the golden file's preferred values
     tol = toleranced_parts(model, None)
     centre = {n: fixed.get(n, model.nominal[n]) for n in tol}

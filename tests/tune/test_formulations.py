@@ -16,15 +16,15 @@ import pytest
 
 from wirestate.spec.tuning import parse_tuning
 from wirestate.tune import load_tuning
-from wirestate.tune.model import TuningModel
-from wirestate.tune.nlp import is_stable_discrete, solve_nlp
+from wirestate.tune.optimise import is_stable_discrete, solve_nlp
+from wirestate.tune.problem import Problem
 
 MODELS = Path(__file__).resolve().parents[2] / "models" / "tuning"
 
 
 @pytest.mark.parametrize("formulation", ["condensed", "multiple_shooting"])
 def test_both_formulations_reproduce_the_rc_closed_form(rc_case, formulation):
-    model = TuningModel(load_tuning(rc_case()))
+    model = Problem(load_tuning(rc_case()))
     solution = solve_nlp(model, formulation=formulation)
     # first-order step response v(t) = 1 - exp(-t / RC) (Ogata, Modern Control Engineering,
     # 5th ed., sec. 5-2): v(1 ms) <= 0.5 V with R = 1 kohm needs C >= 1e-3 / (1e3 ln 2);
@@ -34,11 +34,11 @@ def test_both_formulations_reproduce_the_rc_closed_form(rc_case, formulation):
 
 
 def test_auto_condenses_a_loop_that_is_stable_at_the_start(rc_case):
-    model = TuningModel(load_tuning(rc_case()))
+    model = Problem(load_tuning(rc_case()))
     assert solve_nlp(model).stats["formulation"] == "condensed"
 
 
-def _drive_bus(rd_start: str, cd_start: str) -> TuningModel:
+def _drive_bus(rd_start: str, cd_start: str) -> Problem:
     spec = {
         "tuning": {"name": "drive_bus_start", "circuit": "drive_bus.toml"},
         "variables": {
@@ -69,7 +69,7 @@ def _drive_bus(rd_start: str, cd_start: str) -> TuningModel:
         ],
         "objective": {"capacitance": 1.0, "parts": ["Cd"]},
     }
-    return TuningModel(parse_tuning(spec, base_dir=str(MODELS)))
+    return Problem(parse_tuning(spec, base_dir=str(MODELS)))
 
 
 def test_an_unstable_start_falls_back_to_multiple_shooting_and_agrees():
