@@ -121,21 +121,24 @@ class Evaluation:
         samples = np.atleast_1d(np.arange(self.n_output_samples)[samples])
         m = self.substeps
         k, j = np.divmod(samples, m)
-        pieces, order = [], []
-        maps = self.extra["maps"]
-        V = casadi.DM(self.inputs)
-        for sub in sorted(set(j.tolist())):
-            chosen = np.flatnonzero(j == sub)
-            cols = k[chosen].tolist()
-            Cj, Dj = maps[sub]
-            pieces.append(
-                casadi.mtimes(Cj[index, :], self.X[:, cols])
-                + casadi.mtimes(Dj[index, :], V[:, cols])
+        if "stacked" not in self.extra:
+            maps = self.extra["maps"]
+            self.extra["stacked"] = (
+                casadi.vertcat(*[c for c, _ in maps]),
+                casadi.vertcat(*[d for _, d in maps]),
+                casadi.DM(self.inputs),
             )
-            order.extend(chosen.tolist())
-        row = casadi.horzcat(*pieces)
-        inverse = np.argsort(order)
-        return row[:, inverse.tolist()].T
+        C_all, D_all, V = self.extra["stacked"]
+        n_out = C_all.shape[0] // m
+        rows = [sub * n_out + index for sub in range(m)]
+        columns, where = np.unique(k, return_inverse=True)
+        cols = columns.tolist()
+        # every substep's value of this output at the sample columns needed, then the
+        # entries asked for: (substep j, column) is entry j + m * column of the vec
+        block = casadi.mtimes(C_all[rows, :], self.X[:, cols]) + casadi.mtimes(
+            D_all[rows, :], V[:, cols]
+        )
+        return casadi.vec(block)[(j + m * where).tolist()]
 
     @property
     def n_output_samples(self) -> int:

@@ -168,16 +168,17 @@ def formulate(
     for index, factors in enumerate(active.points):
         point_values = problem.corner_values(values, factors)
         limits = {j: pos for (p, j), pos in active.rows.items() if p == index}
+        guess_ev = None
         if kind == "condensed":
             ev = loop.symbolic(point_values, horizon=_horizon(problem, limits, index == 0))
         else:
-            ev = _shooting(problem, loop, point_values, guesses.row(index), builder, index)
+            guess_ev = guesses.row(index)
+            ev = _shooting(problem, loop, point_values, guess_ev, builder, index)
         if index == 0:
             nominal_ev = ev
         point = tuple(sorted(factors.items()))
         for j, positions in sorted(limits.items()):
-            _impose(problem, (point, j), ev, start, positions, kind, builder,
-                    guesses.row(index))  # fmt: skip
+            _impose(problem, (point, j), ev, start, positions, kind, builder, guess_ev)
     f = _objective(problem, nominal_ev, start, builder)
     return Formulation(
         nlp={"x": casadi.vertcat(*builder.x), "f": f, "g": casadi.vertcat(*builder.g)},

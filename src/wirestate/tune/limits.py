@@ -245,9 +245,8 @@ def resistor_energy(problem: Problem, ev: Evaluation, part: str) -> Any:
     X = np.asarray(batch.X)[:, :, :steps]
     Z = np.concatenate([X, np.broadcast_to(V, (X.shape[0], *V.shape))], axis=1)
     with np.errstate(all="ignore"):
-        energy = np.asarray(batch.values[part]) * np.einsum(
-            "rik,rij,rjk->r", Z, np.asarray(batch.extra["energy"][part]), Z
-        )
+        QZ = np.asarray(batch.extra["energy"][part]) @ Z
+        energy = np.asarray(batch.values[part]) * np.sum(Z * QZ, axis=(1, 2))
     return float(energy[0]) if single else energy
 
 
@@ -352,17 +351,24 @@ def pole_excess(limit: Limit, ev: Evaluation, start: Evaluation | None, problem:
     where the limit holds)."""
     if not ev.symbolic:
         raise ValueError("internal: numeric pole limits use pole_margin")
-    cas = _cas()
-    M = pole_test_matrix(limit, ev, problem, True)
     # normalise the time scale so that the polynomial coefficients are of order one
     rho = 1.0
     if start is not None:
         ref = start.row(0) if start.rows is not None else start
         eig = np.linalg.eigvals(pole_test_matrix(limit, ref, problem, False))
         rho = float(max(np.max(np.abs(eig)), 1e-12))
-    coefficients = _characteristic_polynomial(M / rho)
-    column = _routh_first_column(coefficients)
-    return -cas.vertcat(*column)
+    loop = ev.extra.get("loop")
+    if loop is not None:
+        # one SX function per limit and run, called with this point's part values
+        return loop.pole_rows(limit, ev.extra["p"], rho)
+    return routh_rows(limit, ev, problem, rho)
+
+
+def routh_rows(limit: Limit, ev: Evaluation, problem: Any, rho: float) -> Any:
+    """The negated Routh-Hurwitz entries of :func:`pole_test_matrix` divided by ``rho``."""
+    M = pole_test_matrix(limit, ev, problem, True)
+    column = _routh_first_column(_characteristic_polynomial(M / rho))
+    return -_cas().vertcat(*column)
 
 
 def _characteristic_polynomial(M: Any) -> list[Any]:

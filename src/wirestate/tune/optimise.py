@@ -32,7 +32,15 @@ import numpy as np
 
 from wirestate.tune import limits as measures
 from wirestate.tune.evaluation import Evaluation
-from wirestate.tune.formulation import FORMULATIONS, ActiveSet, Formulation, bound_size, formulate
+from wirestate.tune.formulation import (
+    FORMULATIONS,
+    ActiveSet,
+    Formulation,
+    bound_size,
+    formulate,
+    scaled,
+    values_of,
+)
 from wirestate.tune.margins import margin_table
 
 if TYPE_CHECKING:
@@ -48,6 +56,7 @@ INFEASIBLE = ("Infeasible_Problem_Detected", "Restoration_Failed")
 EXCHANGE_TOLERANCE = 1e-8
 #: at most this many rounds of the exchange
 EXCHANGE_ROUNDS = 12
+FIRST_CORNERS = True
 #: rows where a limit's signal peaks, imposed per point and limit at first
 FIRST_PEAKS = 2
 #: violated peaks added per point and limit in one round (the worst first)
@@ -65,6 +74,12 @@ WARM_START = {
     "ipopt.warm_start_slack_bound_frac": 1e-9,
     "ipopt.warm_start_mult_bound_push": 1e-9,
 }
+#: a later round starts at the first of these fractions of the way from the last optimum
+#: back to the start at which every imposed row holds with a relative slack of
+#: RESTART_SLACK (an interior point near the optimum; IPOPT's warm start from the optimum
+#: itself, where the new rows are violated, took several times more iterations)
+RESTART_STEPS = (0.05, 0.1, 0.2, 0.35, 0.5, 0.75)
+RESTART_SLACK = 1e-3
 #: a limit imposed whole (energy, poles) joins a point only once it is this close to its
 #: bound (relative margin below 0.5) there, or violated
 WHOLE_LIMIT_MARGIN = 0.5
@@ -84,6 +99,9 @@ class SolverResult:
     truncation_bound: float
     constraint_violation: float
     stats: dict[str, Any] = field(default_factory=dict)
+    #: the tolerance corners (factor mappings) the optimiser imposed at the end: the ones
+    #: that bind, which the snapping tries first
+    corners: list[dict[str, float]] = field(default_factory=list)
 
     @property
     def converged(self) -> bool:
@@ -147,28 +165,29 @@ def solve_nlp(
         raise ValueError(f"internal: unknown Hessian option {hessian!r}")
     t0 = time.perf_counter()
     nominal_start = problem.start_values()
-    guess = {**nominal_start, **(start or {})}
+    begin = {**nominal_start, **(start or {})}
     start_ev = problem.evaluate([nominal_start])
     exchange = Exchange(problem, points_of(problem, robust, corner_factors), start_ev)
-    at_guess = exchange.evaluate(guess)
+    at_start = exchange.evaluate(begin)
     if formulation == "auto":
-        stable = all(is_stable_discrete(at_guess.Phi[i]) for i in range(len(exchange.points)))
+        stable = all(is_stable_discrete(at_start.Phi[i]) for i in range(len(exchange.points)))
         formulation = "condensed" if stable else "multiple_shooting"
-    active = exchange.everything() if rows == "all" else exchange.first(at_guess)
+    active = exchange.everything() if rows == "all" else exchange.first(at_start)
     run = _Runner(problem, progress, max_iterations, tolerance, hessian)
-    rounds, settled = 0, False
+    rounds, settled, last = 0, False, None
     while True:
         rounds += 1
         if robust or rows != "all":
             run.say_round(rounds, active, exchange)
-        used = exchange.subset(active, at_guess)
-        nlp = formulate(problem, used[0], start_ev, guess, used[1], kind=formulation)
+        here = begin if last is None else exchange.restart(begin, last, active)
+        used = exchange.subset(active, exchange.evaluate(here) if here is not begin else at_start)
+        nlp = formulate(problem, used[0], start_ev, here, used[1], kind=formulation)
         outcome = run.solve(nlp)
-        guess = outcome["values"]
+        last = outcome["values"]
         if not outcome["converged"] or rows == "all" or rounds >= EXCHANGE_ROUNDS:
             break
-        at_guess = exchange.evaluate(guess)
-        grown, violated = exchange.grow(active, at_guess)
+        at_optimum = exchange.evaluate(outcome["values"])
+        grown, violated = exchange.grow(active, at_optimum)
         settled = violated == 0
         if settled or grown is None:
             break
@@ -213,6 +232,30 @@ class Exchange:
                 out.append(np.nan_to_num(np.maximum.reduce(parts), nan=np.inf))
         return out
 
+    def restart(self, start: dict, optimum: dict, active: ActiveSet) -> dict[str, float]:
+        """The point nearest the last optimum, on the way back to the start, at which every
+        row of ``active`` holds (the start itself if none does)."""
+        problem = self.problem
+        names, bounds = problem.variables, problem.bounds
+        q0, q1 = (scaled(names, bounds, v) for v in (start, optimum))
+        steps = RESTART_STEPS
+        candidates = [values_of(names, bounds, q1 + t * (q0 - q1)) for t in steps]
+        used = sorted({0} | {p for p, _ in active.rows})
+        batch = problem.evaluate(
+            [problem.corner_values(c, self.points[p]) for c in candidates for p in used]
+        )
+        excess = self.excess(batch)
+        count = len(used)
+        for i, candidate in enumerate(candidates):
+            worst = -np.inf
+            for (p, j), positions in active.rows.items():
+                r = excess[j][i * count + used.index(p)]
+                r = r if positions is None or r.size == 1 else r[positions]
+                worst = max(worst, float(np.max(r)))
+            if worst < -RESTART_SLACK:
+                return candidate
+        return start
+
     def everything(self) -> ActiveSet:
         """Every row of every limit at every point."""
         rows = {(p, j): None for p in range(len(self.points)) for j in range(len(self.limits))}
@@ -222,8 +265,9 @@ class Exchange:
         """The nominal point and, per limit, its worst point; at each, the peaks."""
         excess = self.excess(batch)
         chosen = {0}
-        for r in excess:
-            chosen.add(int(np.argmax(np.max(r, axis=1))))
+        if FIRST_CORNERS:
+            for r in excess:
+                chosen.add(int(np.argmax(np.max(r, axis=1))))
         rows: dict[tuple[int, int], Any] = {}
         for p in sorted(chosen):
             for j, r in enumerate(excess):
@@ -356,6 +400,7 @@ class _Runner:
         }
         self.iterations = 0
         self.previous: tuple[Formulation, np.ndarray, np.ndarray] | None = None
+        self.solvers: list[Any] = []
         self.times = {"build": 0.0, "derivatives": 0.0, "ipopt": 0.0, "evaluations": 0.0}
 
     def _multipliers(self, nlp: Formulation) -> dict[str, np.ndarray]:
@@ -390,6 +435,9 @@ class _Runner:
             options["iteration_callback"] = _iteration_report(nlp, self.progress, self.iterations)
         t1 = time.perf_counter()
         solver = casadi.nlpsol("tune", "ipopt", nlp.nlp, options)
+        # CasADi keeps the derivative functions of the compiled loop only while something
+        # refers to them: the solvers of earlier rounds do, so later rounds reuse them
+        self.solvers.append(solver)
         t2 = time.perf_counter()
         raw = solver(**arguments)
         t3 = time.perf_counter()
@@ -445,6 +493,7 @@ class _Runner:
             truncation_bound=loop.truncation_bound,
             constraint_violation=max(violation, 0.0),
             stats=stats,
+            corners=[exchange.points[p] for p in sorted({p for p, _ in active.rows} - {0})],
         )
 
 

@@ -188,22 +188,21 @@ class ParametricLoop:
         }  # fmt: skip
 
     def _states(self, p: Any, named: dict[str, Any]) -> Any:
-        """``p -> X``: the whole trajectory unrolled in SX, for the condensed NLP (its
-        forward derivatives cost a third of stepping through CasADi's ``mapaccum``); ``None``
-        for large loops, which step through :func:`condensed_states` instead."""
+        """``p -> X``: the whole trajectory as one SX function, for the condensed NLP (its
+        forward derivatives cost a third of stepping through CasADi's ``mapaccum``);
+        ``None`` for large loops, which step through :func:`condensed_states` instead."""
         import casadi
 
         V = self.problem.schedule.inputs
         n, steps = named["Phi"].shape[0], V.shape[1] - 1
         if n * n * steps > UNROLLED_SIZE:
             return None
-        Phi, x = named["Phi"], named["x0"]
-        W = casadi.mtimes(named["Gamma"], casadi.DM(V[:, :-1]))
-        columns = [x]
-        for k in range(steps):
-            x = casadi.mtimes(Phi, x) + W[:, k]
-            columns.append(x)
-        return casadi.Function("tuning_states", [p], [casadi.horzcat(*columns)], ["p"], ["X"])
+        inner = casadi.Function("loop_part", [p], [named["Phi"], named["Gamma"], named["x0"]])
+        q = casadi.MX.sym("p", p.numel())
+        Phi, Gamma, x0 = inner(q)
+        # the mapaccum graph expanded to SX: the same unrolled recursion, built in C++
+        X = condensed_states(Phi, Gamma, x0, V, None)
+        return casadi.Function("tuning_states", [q], [X], ["p"], ["X"]).expand()
 
     def _energies(self, m: dict, p: Any, h: float, squarings: int) -> dict[str, Any]:
         """``energy_<part>``: the quadratic form of :func:`held_quadratic` per resistor."""
@@ -227,6 +226,25 @@ class ParametricLoop:
             W = energy_gramian(Ap, Bp, q / scale, h, lambda X: cexpm.expm(X, squarings))
             out[f"energy_{part}"] = held_quadratic(W, held) * scale**2
         return out
+
+    def pole_rows(self, limit: Any, vector: Any, rho: float) -> Any:
+        """The Routh-Hurwitz rows of a pole limit
+        (:func:`wirestate.tune.limits.routh_rows`, time scale ``rho``) at the part values
+        ``vector``, through one SX function per limit and run."""
+        import casadi
+
+        from wirestate.tune.limits import routh_rows
+
+        cache = self._compiled().setdefault("poles", {})
+        key = (limit.kind, limit.min, limit.max)
+        if key not in cache:
+            p = casadi.SX.sym("p", len(self.parameters))
+            scale = casadi.SX.sym("rho")
+            out = dict(zip(self.keys, self.function(p), strict=True))
+            ev = Evaluation(out["Phi"], None, None, None, out["A"], None, None, None, {}, True)
+            rows = routh_rows(limit, ev, self.problem, scale)
+            cache[key] = casadi.Function("pole_rows", [p, scale], [rows])
+        return cache[key](vector, rho)
 
     # -- evaluating -----------------------------------------------------------------------
 
@@ -297,6 +315,7 @@ class ParametricLoop:
             "Cc": out["Cc"], "Dc": out["Dc"], "x0": out["x0"], "maps": maps,
             "steady": {k: out["steady"][:, i] for i, k in enumerate(columns)},
             "energy": _Energies(compiled["energy"], vector, self.energy_parts),
+            "loop": self, "p": vector,
         }  # fmt: skip
         all_values = {**problem.nominal, **values}
         return Evaluation(

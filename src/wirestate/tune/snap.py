@@ -29,8 +29,9 @@ if TYPE_CHECKING:
     from wirestate.tune.problem import Problem
 
 MAX_SNAP_VARIABLES = 8
-#: candidates whose tolerance corners are evaluated in one batch
-CORNER_BATCH = 4
+#: candidates whose tolerance corners are evaluated in one batch, in turn (the cheapest
+#: candidate usually passes)
+CORNER_BATCHES = (1, 3, 8, 32, 256, 65536)
 
 
 @dataclass
@@ -116,10 +117,11 @@ def snap(
         key=lambda i: (objective[i], _log_distance(combos[i], solution.values)),
     )
     passing = None
-    if robust and ranked:
-        passing = _first_passing(problem, combos, ranked, start) if problem.tolerance_corners()[
-            0
-        ] else ranked[0]  # fmt: skip
+    if robust and ranked and not problem.tolerance_corners()[0]:
+        passing = ranked[0]
+    elif robust and ranked:
+        survivors = _screened(problem, combos, ranked, solution.corners, start)
+        passing = _first_passing(problem, combos, survivors, start)
     if passing is not None:
         best = passing
     elif ranked:
@@ -146,13 +148,30 @@ def snap(
     )
 
 
+def _screened(
+    problem: Problem, combos: list[dict], ranked: list[int], corners: list[dict], start: Evaluation
+) -> list[int]:
+    """The candidates of ``ranked`` (in order) that meet every limit at the corners the
+    optimiser found binding: a cheap first test before all corners are evaluated."""
+    if not corners:
+        return ranked
+    points = [problem.corner_values(combos[i], f) for i in ranked for f in corners]
+    table = margin_table(problem, problem.evaluate(points), start)
+    passes = table.feasible.reshape(len(ranked), -1).all(axis=1)
+    return [i for i, ok in zip(ranked, passes, strict=True) if ok]
+
+
 def _first_passing(
     problem: Problem, combos: list[dict], ranked: list[int], start: Evaluation
 ) -> int | None:
     """The first combination of ``ranked`` whose every tolerance corner meets every limit;
     the corners of a few candidates at a time are evaluated in one batch."""
-    for first in range(0, len(ranked), CORNER_BATCH):
-        chunk = ranked[first : first + CORNER_BATCH]
+    first = 0
+    for size in CORNER_BATCHES:
+        chunk = ranked[first : first + size]
+        first += size
+        if not chunk:
+            return None
         points = [corner for i in chunk for corner in corner_points(problem, combos[i])]
         table = margin_table(problem, problem.evaluate(points), start)
         passes = table.feasible.reshape(len(chunk), -1).all(axis=1)
