@@ -21,8 +21,9 @@ inputs just before ``after``, ``s`` the sign of ``y_f - y_b`` at the starting po
   the rotated matrix ``[[cos p A, -sin p A], [sin p A, cos p A]]``, ``p = asin(zeta_min)``,
   for a damping-ratio limit (its eigenvalues are the poles turned by ``+-p``, which are all
   in the left half-plane exactly when every pole has damping ratio ``>= zeta_min``); for a
-  sampled loop the tests of :func:`pole_test_matrix`; in the verification the
-  eigenvalues themselves;
+  sampled loop the exact disc test of :func:`pole_test_matrix` for a real part, and the
+  poles themselves for a damping ratio (:mod:`wirestate.tune.poles`, the verification's
+  definition ``s = ln(z) / T``); in the verification the eigenvalues themselves;
 * output impedance: ``|C (j w I - A)^-1 b + d|`` on a logarithmic grid over the band,
   through the real system ``[[-A, -w I], [w I, -A]] [xr; xi] = [b; 0]``.
 """
@@ -283,6 +284,19 @@ def poles(ev: Evaluation, problem: Problem) -> np.ndarray:
     return _poles(np.asarray(ev.Phi if problem.sampled else ev.A), problem)
 
 
+def _damping(matrix: np.ndarray, problem: Problem) -> np.ndarray:
+    """Damping ratio of every pole (rows x poles), the definition both the optimiser and
+    the verification use."""
+    if problem.sampled:
+        from wirestate.tune.poles import pole_damping
+
+        with np.errstate(all="ignore"):
+            return pole_damping(np.linalg.eigvals(matrix), problem.step)
+    p = np.linalg.eigvals(matrix)
+    mag = np.abs(p)
+    return np.where(mag > 0, -p.real / np.where(mag > 0, mag, 1.0), 1.0)
+
+
 def _poles(matrix: np.ndarray, problem: Problem) -> np.ndarray:
     if problem.sampled:
         with np.errstate(all="ignore"):
@@ -299,13 +313,10 @@ def pole_margin(limit: Limit, ev: Evaluation, problem: Problem) -> tuple[Any, An
     good = np.all(np.isfinite(matrix), axis=(1, 2))
     value = np.full(matrix.shape[0], np.nan)
     if np.any(good):
-        p = _poles(matrix[good], problem)
         if limit.kind == "pole_real_part":
-            value[good] = np.max(p.real, axis=-1)
+            value[good] = np.max(_poles(matrix[good], problem).real, axis=-1)
         else:
-            mag = np.abs(p)
-            zeta = np.where(mag > 0, -p.real / np.where(mag > 0, mag, 1.0), 1.0)
-            value[good] = np.min(zeta, axis=-1)
+            value[good] = np.min(_damping(matrix[good], problem), axis=-1)
     margin = limit.max - value if limit.kind == "pole_real_part" else value - limit.min
     if single:
         return float(value[0]), float(margin[0])
@@ -321,18 +332,16 @@ def pole_test_matrix(limit: Limit, ev: Evaluation, problem: Any, symbolic: bool)
     unit disc onto the open left half-plane:
 
     * real part ``<= sigma``: ``c(exp(-sigma T) Phi)``; a pole ``s = ln(z) / T`` has
-      ``Re s < sigma`` exactly when ``|z| < exp(sigma T)``, so this test is exact;
-    * damping ratio ``>= zeta``: the rotated matrix of ``(2 / T) c(Phi)``, the Tustin
-      (bilinear) equivalent of the loop, whose poles approach ``ln(z) / T`` well below
-      the Nyquist frequency (Franklin, Powell and Workman, Digital Control of Dynamic
-      Systems, 3rd ed., sec. 6.3); the verification uses ``ln(z) / T`` itself.
+      ``Re s < sigma`` exactly when ``|z| < exp(sigma T)``, so this test is exact.
+
+    A damping-ratio limit on a sampled loop has no such test (its region is a logarithmic
+    spiral in the z-plane): :mod:`wirestate.tune.poles` imposes it on the poles.
     """
     if problem is None or not problem.sampled:
         return _pole_matrix(limit, ev.A, symbolic)
-    T = problem.step
-    if limit.kind == "pole_real_part":
-        return _cayley(math.exp(-limit.max * T) * ev.Phi, symbolic)
-    return _pole_matrix(limit, (2.0 / T) * _cayley(ev.Phi, symbolic), symbolic)
+    if limit.kind != "pole_real_part":
+        raise ValueError("internal: a sampled damping-ratio limit has no Hurwitz test")
+    return _cayley(math.exp(-limit.max * problem.step) * ev.Phi, symbolic)
 
 
 def _cayley(P: Any, symbolic: bool) -> Any:
@@ -347,10 +356,15 @@ def _cayley(P: Any, symbolic: bool) -> Any:
 
 
 def pole_excess(limit: Limit, ev: Evaluation, start: Evaluation | None, problem: Any = None) -> Any:
-    """Routh-Hurwitz first-column entries of :func:`pole_test_matrix`, negated (``<= 0``
-    where the limit holds)."""
+    """Rows that are ``<= 0`` where a pole limit holds: the Routh-Hurwitz first-column
+    entries of :func:`pole_test_matrix`, negated, or for a damping-ratio limit on a
+    sampled loop the damping shortfall of every pole (:mod:`wirestate.tune.poles`)."""
     if not ev.symbolic:
         raise ValueError("internal: numeric pole limits use pole_margin")
+    if limit.kind == "damping_ratio" and problem is not None and problem.sampled:
+        from wirestate.tune.poles import damping_rows
+
+        return damping_rows(ev.Phi, problem.step, float(limit.min))
     # normalise the time scale so that the polynomial coefficients are of order one
     rho = 1.0
     if start is not None:

@@ -81,7 +81,8 @@ def _norms(A: Any, B: Any, h: float) -> Any:
     return casadi.vertcat(one, infinity)
 
 
-#: largest ``states**2 * steps`` whose trajectory is unrolled into one SX function
+#: largest ``states**2 * steps * (1 + parameters)`` whose trajectory is unrolled into one
+#: SX function (beyond it, generating the derivatives costs more than they save)
 UNROLLED_SIZE = 400_000
 
 
@@ -195,7 +196,8 @@ class ParametricLoop:
 
         V = self.problem.schedule.inputs
         n, steps = named["Phi"].shape[0], V.shape[1] - 1
-        if n * n * steps > UNROLLED_SIZE:
+        # generating its derivatives grows with the graph times the directions
+        if n * n * steps * (1 + len(self.parameters)) > UNROLLED_SIZE:
             return None
         inner = casadi.Function("loop_part", [p], [named["Phi"], named["Gamma"], named["x0"]])
         q = casadi.MX.sym("p", p.numel())

@@ -15,7 +15,10 @@ import numpy as np
 
 from wirestate.tune import limits as measures
 from wirestate.tune.evaluation import Evaluation
+from wirestate.tune.margins import FEASIBILITY_TOLERANCE
 from wirestate.tune.problem import CURRENT_PREFIX, VALUE_UNITS
+from wirestate.tune.stress import over_ratings
+from wirestate.units import format_quantity
 
 if TYPE_CHECKING:
     from wirestate.tune.optimise import SolverResult
@@ -47,6 +50,8 @@ class TuningResult:
     notes: list[str] = field(default_factory=list)
     cautions: tuple[str, ...] = CAUTIONS
     responses: dict[str, Any] = field(default_factory=dict, repr=False)
+    #: the verdict (:func:`verdict`): status, exit status, what failed, one line
+    verdict: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready report; every number in SI base units."""
@@ -64,6 +69,7 @@ class TuningResult:
             "toleranced_parts": list(self.toleranced_parts),
             "notes": list(self.notes),
             "cautions": list(self.cautions),
+            "verdict": dict(self.verdict),
         }
 
 
@@ -76,9 +82,11 @@ def variable_rows(
     for name in problem.variables:
         part = problem.base_circuit.parts[name]
         var = problem.spec.variables[name]
+        # without a snapped design (the optimiser failed) there is no preferred value
         out[name] = {
             "optimum": float(optimum[name]),
-            "preferred": float((chosen or optimum)[name]),
+            "preferred": None if chosen is None else float(chosen[name]),
+            "snapped": chosen is not None,
             "start": float(start[name]),
             "min": float(var.min),
             "max": float(var.max),
@@ -181,9 +189,9 @@ def run_notes(problem: Problem, solution: SolverResult) -> list[str]:
     pole_kinds = {lim.kind for lim in spec.limits} & set(measures.POLE_KINDS)
     if problem.sampled and pole_kinds:
         notes.append(
-            "sampled loop poles: the optimiser tests the discrete loop (a real-part limit "
-            "exactly, through |z| < exp(sigma T); a damping-ratio limit on its Tustin "
-            "equivalent); the verification uses s = ln(z) / T"
+            "sampled loop poles: s = ln(z) / T for every pole z of the loop over one period, "
+            "in the optimiser (a real-part limit through |z| < exp(sigma T), a damping-ratio "
+            "limit on each pole) and in the verification alike"
         )
     if (
         problem.sampled
@@ -216,3 +224,115 @@ def _robust_note(problem: Problem, stats: dict[str, Any]) -> str:
         f"{total} tolerance corners ({parts}), chosen by the exchange in "
         f"{stats.get('exchange_rounds', 1)} round(s); {outcome}"
     )
+
+
+#: exit statuses of ``wirestate tune`` (README: "Tuning damping parts")
+EXIT_MET = 0
+EXIT_CORNERS_OR_RATINGS = 1
+EXIT_NOT_MET = 2
+
+
+def show_margin(value: float, kind: str, unit: str) -> str:
+    """A value or margin in the limit's own unit: % for overshoot and settling (written as
+    fractions of the change or final value), a bare number for a damping ratio, else the
+    SI unit with a prefix."""
+    if kind in ("overshoot", "settling"):
+        return f"{100 * value:.3g} %"
+    if unit in ("1", ""):
+        return f"{value:.4g}"
+    if unit == "1/s":
+        return f"{value:.4g} 1/s"
+    return format_quantity(value, unit)
+
+
+def active_bounds(problem: Problem, values: dict[str, float]) -> list[str]:
+    """``"Cd at its maximum 4.7 mF"`` for every design variable on a bound (to 1e-6 of its
+    logarithmic range)."""
+    out = []
+    for name, (low, high) in problem.bounds.items():
+        span = math.log(high / low)
+        unit = VALUE_UNITS[problem.base_circuit.parts[name].kind]
+        if abs(math.log(values[name] / low)) <= 1e-6 * span:
+            out.append(f"{name} at its minimum {format_quantity(low, unit)}")
+        elif abs(math.log(high / values[name])) <= 1e-6 * span:
+            out.append(f"{name} at its maximum {format_quantity(high, unit)}")
+    return out
+
+
+def misses(rows: list[dict[str, Any]], key: str = "margin") -> list[str]:
+    """``"bus_deviation misses by 0.21 %"`` for every row whose ``key`` margin fails."""
+    out = []
+    for row in rows:
+        size = abs(row["bound"]) or 1.0
+        if row[key] / size < -FEASIBILITY_TOLERANCE:
+            shown = show_margin(-row[key], row["kind"], row["unit"])
+            out.append(f"{row['name']} misses by {shown}")
+    return out
+
+
+def verdict(
+    limits: list[dict[str, Any]], stress: list[dict[str, Any]], corners: int, series: str
+) -> dict[str, Any]:
+    """The verdict on the preferred values: every limit at nominal values, at every
+    tolerance corner checked, and every rating; with the exit status and one line."""
+    nominal = misses(limits)
+    at_corners = misses(limits, "margin_worst_corner") if corners else []
+    ratings = over_ratings(stress)
+    if nominal:
+        status, code = "not_met", EXIT_NOT_MET
+        line = f"NOT every limit is met at the preferred values ({series}): " + "; ".join(nominal)
+    else:
+        problems = []
+        if at_corners:
+            problems.append(f"at the worst of {corners} tolerance corners " + "; ".join(at_corners))
+        if ratings:
+            problems.append("above rating: " + ", ".join(ratings))
+        status = "met" if not problems else "corners_or_ratings_fail"
+        code = EXIT_MET if not problems else EXIT_CORNERS_OR_RATINGS
+        corner_text = f", at all {corners} tolerance corners" if corners else ""
+        line = (
+            f"every limit met at the preferred values{corner_text} and within every rating"
+            if not problems
+            else "every limit met at the preferred values, but " + "; ".join(problems)
+        )
+    return {
+        "status": status,
+        "exit_status": code,
+        "limits_met": not nominal,
+        "corners_met": None if not corners else not at_corners,
+        "ratings_met": not ratings,
+        "over_ratings": ratings,
+        "summary": line,
+    }
+
+
+def failure_verdict(
+    problem: Problem, status: str, values: dict[str, float], rows: list[dict[str, Any]]
+) -> dict[str, Any]:
+    """The verdict when the optimiser found no point inside every limit: infeasible
+    (IPOPT proved it locally) told apart from stopped before converging."""
+    from wirestate.tune.optimise import INFEASIBLE
+
+    key = "margin_worst_corner" if rows and "margin_worst_corner" in rows[0] else "margin"
+    failing = misses(rows, key)
+    bounds = active_bounds(problem, values)
+    if status in INFEASIBLE:
+        kind, head = (
+            "infeasible",
+            "no point meets every limit (the optimiser found the limits infeasible)",
+        )
+    else:
+        kind, head = "not_converged", f"the optimiser stopped without converging ({status})"
+    line = f"{head}; at the least-violation point: {'; '.join(failing) or 'no limit fails'}"
+    if bounds:
+        line += "; active bounds: " + ", ".join(bounds)
+    return {
+        "status": kind,
+        "exit_status": EXIT_NOT_MET,
+        "limits_met": False,
+        "corners_met": None,
+        "ratings_met": None,
+        "over_ratings": [],
+        "active_bounds": bounds,
+        "summary": line,
+    }

@@ -20,15 +20,17 @@ from wirestate.spec.tuning import TuningSpec
 from wirestate.tune import preferred
 from wirestate.tune.margins import is_feasible, limit_margins, margin_rows, margin_table
 from wirestate.tune.objective import objective_value, start_scales
-from wirestate.tune.optimise import CONVERGED, INFEASIBLE, SolverResult, solve_nlp
+from wirestate.tune.optimise import CONVERGED, SolverResult, solve_nlp
 from wirestate.tune.problem import Problem
 from wirestate.tune.report import (
     CAUTIONS,
     TuningResult,
+    failure_verdict,
     responses,
     run_notes,
     solver_figures,
     variable_rows,
+    verdict,
 )
 from wirestate.tune.snap import corner_points, snap
 from wirestate.tune.stress import stress_report
@@ -67,15 +69,18 @@ def solve(
     Returns
     -------
     TuningResult
-        ``feasible`` is False when no combination of neighbouring preferred values meets
-        every limit (the least-violating combination is reported).
+        ``verdict`` says whether every limit holds at the preferred values, at every
+        tolerance corner and within every rating (``feasible``: at the preferred values;
+        when no combination of neighbouring preferred values meets every limit, the
+        least-violating one is reported).
 
     Raises
     ------
     TuningError
         ``infeasible_limits`` when the optimiser finds no point inside every limit (the
-        message lists the limits that fail at the least-violation point, which is attached
-        as ``error.result``); ``solver_failed`` when it stops without converging.
+        message lists the limits that fail at the least-violation point and the design
+        variables on their bounds; the report is attached as ``error.result``);
+        ``solver_failed`` when it stops without converging.
     """
     series = _check_series(series)
     say = progress or (lambda _message: None)
@@ -105,15 +110,16 @@ def solve(
     scales = start_scales(problem, start)
     snapped = snap(problem, solution, series, start, scales, say)
     verification = verify(problem, snapped.values, start, say)
-    result = TuningResult(
+    limits = [
+        {**row, "margin_at_optimum": at_optimum["margin"]}
+        for at_optimum, row in zip(optimum_rows, verification.rows, strict=True)
+    ]
+    return TuningResult(
         name=spec.name,
         series=series,
         feasible=snapped.feasible,
         variables=variable_rows(problem, solution.values, snapped.values),
-        limits=[
-            {**row, "margin_at_optimum": at_optimum["margin"]}
-            for at_optimum, row in zip(optimum_rows, verification.rows, strict=True)
-        ],
+        limits=limits,
         tightest=verification.tightest,
         stress=verification.stress,
         solver=solver_figures(solution),
@@ -128,8 +134,8 @@ def solve(
         responses=responses(
             problem, start.row(0), verification.evaluation, optimum, verification.envelope
         ),
+        verdict=verdict(limits, verification.stress, verification.corners_checked, series),
     )
-    return result
 
 
 def _stopped(
@@ -161,20 +167,12 @@ def _stopped(
             f"the solver stopped with {solution.status}, but its last point meets every limit "
             "in the numeric verification"
         ]
-    failing = [r for r in check_rows if r["relative_margin"] < -1e-7]
-    listing = "; ".join(
-        f"{r['name']} misses by {-r['margin']:.4g} {r['unit']}".rstrip() for r in failing
-    )
-    code = "infeasible_limits" if solution.status in INFEASIBLE else "solver_failed"
+    judged = failure_verdict(problem, solution.status, solution.values, error_rows)
+    code = "infeasible_limits" if judged["status"] == "infeasible" else "solver_failed"
     values = ", ".join(f"{k} = {v:.4g}" for k, v in solution.values.items())
-    what = (
-        "no point meets every limit"
-        if code == "infeasible_limits"
-        else f"the optimiser stopped without converging ({solution.status})"
-    )
     error = TuningError(
         code,
-        f"{what}; at the least-violation point ({values}): {listing or 'no limit fails'}",
+        judged["summary"].replace("least-violation point:", f"least-violation point ({values}):"),
         file=file,
         location=("limits",),
     )
@@ -195,6 +193,7 @@ def _stopped(
         toleranced_parts=[],
         notes=notes,
         responses=responses(problem, start.row(0), optimum, optimum),
+        verdict=judged,
     )
     raise error
 
