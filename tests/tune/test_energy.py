@@ -18,38 +18,23 @@ from wirestate.tune import load_tuning
 from wirestate.tune.limits import resistor_energy
 from wirestate.tune.problem import Problem
 
-TUNING = """
-    [tuning]
-    name = "rc_energy"
-    circuit = "rc.toml"
-    [variables.C1]
-    min = "0.1uF"
-    max = "10uF"
-    [scenario]
-    until = "2ms"
-    step = "100us"
-    initial = "zero"
-    [[limits]]
-    name = "charge_loss"
-    kind = "energy"
-    part = "R1"
-    max = "1uJ"
-    [objective]
-    capacitance = 1.0
-    parts = ["C1"]
-"""
-
 
 def _closed_form(r: float, c: float, horizon: float) -> float:
     return 0.5 * c * (1.0 - math.exp(-2.0 * horizon / (r * c)))
 
 
 @pytest.mark.parametrize("capacitance", [1e-6, 0.4e-6, 3e-6])
-def test_energy_equals_the_closed_form_integral(write, capacitance):
-    from tests.tune.conftest import RC_CIRCUIT
-
-    write("rc.toml", RC_CIRCUIT)
-    problem = Problem(load_tuning(write("tune.toml", TUNING)))
+def test_energy_equals_the_closed_form_integral(rc_case, capacitance):
+    # the RC case with 100 us steps (10 per time constant at 1 uF) and an energy limit
+    path = rc_case()
+    text = path.read_text(encoding="utf-8").replace('step = "10us"', 'step = "100us"')
+    text = text.replace(
+        "[objective]",
+        '[[limits]]\nname = "charge_loss"\nkind = "energy"\npart = "R1"\nmax = "1uJ"\n\n'
+        "[objective]",
+    )
+    path.write_text(text, encoding="utf-8")
+    problem = Problem(load_tuning(path))
     expected = _closed_form(1e3, capacitance, 2e-3)
     independent = resistor_energy(problem, problem.numeric({"C1": capacitance}), "R1")
     parametric = resistor_energy(problem, problem.evaluate([{"C1": capacitance}]), "R1")[0]

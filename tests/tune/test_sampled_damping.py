@@ -9,37 +9,17 @@ Dynamic Systems, 3rd ed., sec. 4.3, the mapping z = exp(sT)).
 
 from __future__ import annotations
 
+import textwrap
+
 import numpy as np
 import pytest
 
+from tests.tune.conftest import RLC
 from wirestate.spec.tuning import parse_tuning
 from wirestate.tune.margins import limit_margins
 from wirestate.tune.optimise import solve_nlp
 from wirestate.tune.poles import pole_damping, shortfall
 from wirestate.tune.problem import Problem
-
-RLC = """
-    [circuit]
-    name = "series_rlc"
-    [parts.Vs]
-    kind = "voltage_source"
-    nodes = ["in", "gnd"]
-    value = "1V"
-    [parts.R1]
-    kind = "resistor"
-    nodes = ["in", "a"]
-    value = "10ohm"
-    [parts.L1]
-    kind = "inductor"
-    nodes = ["a", "out"]
-    value = "1mH"
-    [parts.C1]
-    kind = "capacitor"
-    nodes = ["out", "gnd"]
-    value = "10uF"
-    [outputs.v_out]
-    voltage = "out"
-"""
 
 
 @pytest.mark.parametrize("seed", range(6))
@@ -65,7 +45,7 @@ def test_the_shortfall_derivative_matches_central_differences(seed):
 
 def _problem(tmp_path, seed: int) -> tuple[Problem, float]:
     rng = np.random.default_rng(seed)
-    (tmp_path / "rlc.toml").write_text(RLC, encoding="utf-8")
+    (tmp_path / "rlc.toml").write_text(textwrap.dedent(RLC), encoding="utf-8")
     period = float(rng.choice([20e-6, 40e-6, 60e-6]))
     kp, ki = float(rng.uniform(0.02, 0.3)), float(rng.uniform(20.0, 300.0))
     spec = {

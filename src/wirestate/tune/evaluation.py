@@ -90,6 +90,12 @@ class Evaluation:
 
     def row(self, index: int) -> Evaluation:
         """Row ``index`` of a numeric batch as a single-point evaluation."""
+        out = self.take(index)
+        out.values = {k: float(v) for k, v in out.values.items()}
+        return out
+
+    def take(self, rows: Any) -> Evaluation:
+        """Some rows of a numeric batch (an integer: one point without a row axis)."""
 
         def pick(item: Any) -> Any:
             if isinstance(item, dict):
@@ -98,18 +104,13 @@ class Evaluation:
                 return [pick(v) for v in item]
             if isinstance(item, tuple):
                 return tuple(pick(v) for v in item)
-            return np.asarray(item)[index]
+            return np.asarray(item)[rows]
 
         return Evaluation(
             *(pick(m) for m in (self.Phi, self.Gamma, self.C, self.D, self.A, self.B)),
-            pick(self.X),
-            pick(self.Y),
-            {k: float(np.asarray(v)[index]) for k, v in self.values.items()},
-            False,
-            pick(self.extra),
-            self.inputs,
-            self.substeps,
-        )
+            pick(self.X), pick(self.Y), pick(self.values), False, pick(self.extra),
+            self.inputs, self.substeps,
+        )  # fmt: skip
 
     def output(self, index: int, samples: Any) -> Any:
         """Output ``index`` at the output samples ``samples`` (indices into the output

@@ -191,17 +191,8 @@ def held_output_maps(
     mt = casadi.mtimes
     Cl, Dl, Cc, Dc = (as_cas(m) for m in (loop.C, loop.D, C, D))
     nx, n_cl = Cc.shape[1], Cl.shape[1]
-    j = inputs.index(drive)
-    keep = [i for i in range(len(inputs)) if i != j]
-    # circuit inputs from the loop's inputs [w..., reference] and the held command
-    Ew = np.zeros((len(inputs), len(keep) + 1))
-    for column, row in enumerate(keep):
-        Ew[row, column] = 1.0
-    e = np.zeros((len(inputs), 1))
-    e[j, 0] = 1.0
     Cu, Du = Cl[-1, :], Dl[-1, :]
-    U_z = mt(casadi.DM(e), Cu)  # circuit inputs from the loop state (through u_k)
-    U_v = casadi.DM(Ew) + mt(casadi.DM(e), Du)  # ... and from the loop inputs
+    U_z, U_v = _held_inputs(Cl, Dl, inputs, drive)
     select_x = casadi.horzcat(casadi.DM.eye(nx), casadi.DM.zeros(nx, n_cl - nx))
     maps = []
     for P, G in powers:
@@ -243,15 +234,7 @@ def held_state_maps(
     mt = casadi.mtimes
     Cl, Dl = as_cas(loop.C), as_cas(loop.D)
     n_cl = Cl.shape[1]
-    j = inputs.index(drive)
-    keep = [i for i in range(len(inputs)) if i != j]
-    Ew = np.zeros((len(inputs), len(keep) + 1))
-    for column, row in enumerate(keep):
-        Ew[row, column] = 1.0
-    e = np.zeros((len(inputs), 1))
-    e[j, 0] = 1.0
-    U_z = mt(casadi.DM(e), Cl[-1, :])
-    U_v = casadi.DM(Ew) + mt(casadi.DM(e), Dl[-1, :])
+    U_z, U_v = _held_inputs(Cl, Dl, inputs, drive)
     select_x = casadi.horzcat(casadi.DM.eye(n_states), casadi.DM.zeros(n_states, n_cl - n_states))
     maps = []
     for P, G in powers:
@@ -262,6 +245,21 @@ def held_state_maps(
             Z, W = np.array(Z, dtype=float), np.array(W, dtype=float)
         maps.append((Z, W))
     return maps
+
+
+def _held_inputs(Cl: Any, Dl: Any, inputs: list[str], drive: str) -> tuple[Any, Any]:
+    """``(U_z, U_v)``: the circuit inputs ``u = U_z z + U_v v`` of a sampled PI loop from the
+    loop state ``z`` (through the held command ``u_k``, the loop's last output row) and
+    the loop inputs ``v = [w..., reference]`` (CasADi)."""
+    import casadi
+
+    j = inputs.index(drive)
+    keep = [i for i in range(len(inputs)) if i != j]
+    Ew = np.zeros((len(inputs), len(keep) + 1))
+    for column, row in enumerate(keep):
+        Ew[row, column] = 1.0
+    e = casadi.DM(np.eye(len(inputs))[:, [j]])
+    return casadi.mtimes(e, Cl[-1, :]), casadi.DM(Ew) + casadi.mtimes(e, Dl[-1, :])
 
 
 def hold_powers(Phi_h: Any, Gamma_h: Any, substeps: int) -> list[tuple[Any, Any]]:

@@ -326,7 +326,7 @@ class Exchange:
         used = sorted({0} | {p for p, _ in active.rows})
         where = {p: i for i, p in enumerate(used)}
         rows = {(where[p], j): pos for (p, j), pos in active.rows.items()}
-        picked = _pick_rows(batch, used)
+        picked = batch.take(used)
         return ActiveSet([active.points[p] for p in used], rows), picked
 
     def row_counts(self, active: ActiveSet) -> tuple[int, int]:
@@ -354,25 +354,6 @@ def peaks(r: np.ndarray, count: int) -> np.ndarray:
     best = local[np.argsort(-r[local], kind="stable")[:count]]
     around = np.concatenate([best + k for k in range(-NEIGHBOURS, NEIGHBOURS + 1)])
     return np.unique(around[(around >= 0) & (around < r.size)])
-
-
-def _pick_rows(batch: Evaluation, rows: list[int]) -> Evaluation:
-    """A numeric batch restricted to some of its rows."""
-
-    def pick(item: Any) -> Any:
-        if isinstance(item, dict):
-            return {k: pick(v) for k, v in item.items()}
-        if isinstance(item, list):
-            return [pick(v) for v in item]
-        if isinstance(item, tuple):
-            return tuple(pick(v) for v in item)
-        return np.asarray(item)[rows]
-
-    return Evaluation(
-        *(pick(m) for m in (batch.Phi, batch.Gamma, batch.C, batch.D, batch.A, batch.B)),
-        pick(batch.X), pick(batch.Y), pick(batch.values), False, pick(batch.extra),
-        batch.inputs, batch.substeps,
-    )  # fmt: skip
 
 
 class _Runner:

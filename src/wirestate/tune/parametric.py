@@ -81,6 +81,8 @@ def _norms(A: Any, B: Any, h: float) -> Any:
     return casadi.vertcat(one, infinity)
 
 
+#: largest ``states + inputs`` of the circuit whose loop is built as SX (else as MX)
+SX_SIZE = 16
 #: largest ``states**2 * steps * (1 + parameters)`` whose trajectory is unrolled into one
 #: SX function (beyond it, generating the derivatives costs more than they save)
 UNROLLED_SIZE = 400_000
@@ -138,6 +140,11 @@ class ParametricLoop:
     def truncation_bound(self) -> float:
         return cexpm.truncation_bound(self.squarings)
 
+    def compile(self) -> ParametricLoop:
+        """Build the CasADi functions now (they are otherwise built on first use)."""
+        self._compiled()
+        return self
+
     def _compiled(self) -> dict[str, Any]:
         if self._functions is None:
             self._functions = self._build()
@@ -148,7 +155,12 @@ class ParametricLoop:
 
         problem = self.problem
         circuit = ParametricCircuit(problem.circuit, self.parameters)
-        p = casadi.SX.sym("p", len(self.parameters))
+        # small loops as SX (scalar graphs, the fastest to evaluate); large ones as MX,
+        # whose matrix products stay single nodes (an SX exponential of a 24-state loop
+        # has 170 000 scalar operations and its derivatives are slow to generate)
+        size = circuit.block.A.shape[0] + circuit.block.B.shape[1]
+        kind = casadi.SX if size <= SX_SIZE else casadi.MX
+        p = kind.sym("p", len(self.parameters))
         A1, B1, C1, D1 = circuit.function(p)
         h = problem.output_step
         # the hold's argument [[A, B], [0, 0]] h over the box: one vectorised evaluation
@@ -175,9 +187,7 @@ class ParametricLoop:
             named[f"C_{j}"], named[f"D_{j}"] = Cj, Dj
         named.update(A=m["A"], B=m["B"], Cc=m["Cc"], Dc=m["Dc"], x0=x0, steady=steady)
         keys = list(named)
-        function = casadi.Function(
-            "tuning_loop", [p], [casadi.SX(named[k]) for k in keys], ["p"], keys
-        )
+        function = casadi.Function("tuning_loop", [p], [kind(named[k]) for k in keys], ["p"], keys)
         energies = self._energies(m, p, h, gramian_squarings)
         energy = None
         if energies:
@@ -185,7 +195,7 @@ class ParametricLoop:
                                      list(energies))  # fmt: skip
         return {
             "loop": function, "keys": keys, "squarings": squarings, "circuit": circuit,
-            "energy": energy, "states": self._states(p, named),
+            "energy": energy, "states": self._states(p, named) if kind is casadi.SX else None,
         }  # fmt: skip
 
     def _states(self, p: Any, named: dict[str, Any]) -> Any:
@@ -215,7 +225,8 @@ class ParametricLoop:
         if not self.energy_parts:
             return {}
         Ap, Bp, Cp, Dp = m["part"]
-        held = [(casadi.SX(z), casadi.SX(w)) for z, w in m["held"]]
+        kind = type(p)
+        held = [(kind(z), kind(w)) for z, w in m["held"]]
         out = {}
         nominal = casadi.Function("part_rows", [p], [casadi.horzcat(Cp, Dp)])(self.nominal_row)
         rows = np.array(nominal)
@@ -240,8 +251,9 @@ class ParametricLoop:
         cache = self._compiled().setdefault("poles", {})
         key = (limit.kind, limit.min, limit.max)
         if key not in cache:
-            p = casadi.SX.sym("p", len(self.parameters))
-            scale = casadi.SX.sym("rho")
+            kind = casadi.MX if self.function.is_a("MXFunction") else casadi.SX
+            p = kind.sym("p", len(self.parameters))
+            scale = kind.sym("rho")
             out = dict(zip(self.keys, self.function(p), strict=True))
             ev = Evaluation(out["Phi"], None, None, None, out["A"], None, None, None, {}, True)
             rows = routh_rows(limit, ev, self.problem, scale)
