@@ -141,6 +141,7 @@ def solve_nlp(
     corner_factors: list[dict[str, float]] | None = None,
     start: dict[str, float] | None = None,
     rows: str = "exchange",
+    start_evaluation: Evaluation | None = None,
 ) -> SolverResult:
     """The continuous optimum of ``problem``; see the module docstring.
 
@@ -158,6 +159,8 @@ def solve_nlp(
     rows
         ``"exchange"`` (peaks first, violated rows added) or ``"all"`` (every row and every
         point imposed at once, as a reference).
+    start_evaluation
+        The numeric evaluation at the starting values, when the caller has it already.
     """
     if formulation not in FORMULATIONS:
         raise ValueError(f"internal: unknown formulation {formulation!r}")
@@ -166,7 +169,7 @@ def solve_nlp(
     t0 = time.perf_counter()
     nominal_start = problem.start_values()
     begin = {**nominal_start, **(start or {})}
-    start_ev = problem.evaluate([nominal_start])
+    start_ev = start_evaluation or problem.evaluate([nominal_start])
     exchange = Exchange(problem, points_of(problem, robust, corner_factors), start_ev)
     at_start = exchange.evaluate(begin)
     if formulation == "auto":
@@ -180,10 +183,12 @@ def solve_nlp(
         if robust or rows != "all":
             run.say_round(rounds, active, exchange)
         here = begin if last is None else exchange.restart(begin, last, active)
-        used = exchange.subset(active, exchange.evaluate(here) if here is not begin else at_start)
+        # the states along the start trajectory seed multiple shooting only
+        shooting = formulation == "multiple_shooting" and here is not begin
+        used = exchange.subset(active, exchange.evaluate(here) if shooting else at_start)
         nlp = formulate(problem, used[0], start_ev, here, used[1], kind=formulation)
         outcome = run.solve(nlp)
-        last = outcome["values"]
+        last, at_optimum = outcome["values"], None
         if not outcome["converged"] or rows == "all" or rounds >= EXCHANGE_ROUNDS:
             break
         at_optimum = exchange.evaluate(outcome["values"])
@@ -192,7 +197,9 @@ def solve_nlp(
         if settled or grown is None:
             break
         active = grown
-    return run.result(outcome, nlp, exchange, active, rounds, settled, t0, formulation, robust)
+    final = at_optimum if at_optimum is not None else exchange.evaluate(last)
+    return run.result(outcome, nlp, exchange, active, (rounds, settled, final), t0, formulation,
+                      robust)  # fmt: skip
 
 
 class Exchange:
@@ -438,10 +445,12 @@ class _Runner:
             "success": bool(stats.get("success", False)), "converged": status in CONVERGED,
         }  # fmt: skip
 
-    def result(self, outcome, nlp, exchange, active, rounds, settled, t0, kind, robust):
+    def result(self, outcome, nlp, exchange, active, ending, t0, kind, robust):
+        """The :class:`SolverResult`; ``ending`` is (rounds, settled, the evaluation of
+        every point at the last optimum)."""
+        rounds, settled, final = ending
         loop = self.problem.parametric()
         imposed, total = exchange.row_counts(active)
-        final = exchange.evaluate(outcome["values"])
         violation = (
             max(float(np.max(r)) for r in exchange.excess(final)) if exchange.limits else 0.0
         )

@@ -97,6 +97,7 @@ def solve(
         max_iterations=spec.solver.max_iterations,
         tolerance=spec.solver.tolerance,
         robust=spec.solver.robust,
+        start_evaluation=start,
     )
     say(
         f"solver: {solution.status} after {solution.iterations} iterations "
