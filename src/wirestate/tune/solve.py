@@ -111,13 +111,29 @@ def solve(
     scales = start_scales(problem, start)
     snapped = snap(problem, solution, series, start, scales, say)
     verification = verify(problem, snapped.values, start, say)
+    return _report(problem, solution, snapped, verification, (start, optimum, optimum_rows),
+                   scales, notes)  # fmt: skip
+
+
+def _report(
+    problem: Problem,
+    solution: SolverResult,
+    snapped: Any,
+    verification: Any,
+    evaluations: tuple[Any, Any, list[dict[str, Any]]],
+    scales: tuple[list[float], float],
+    notes: list[str],
+) -> TuningResult:
+    """The :class:`TuningResult` of a tuning that reached preferred values;
+    ``evaluations`` holds the start, the optimum and the optimum's margin rows."""
+    start, optimum, optimum_rows = evaluations
     limits = [
         {**row, "margin_at_optimum": at_optimum["margin"]}
         for at_optimum, row in zip(optimum_rows, verification.rows, strict=True)
     ]
     return TuningResult(
-        name=spec.name,
-        series=series,
+        name=problem.spec.name,
+        series=snapped.series,
         feasible=snapped.feasible,
         variables=variable_rows(problem, solution.values, snapped.values),
         limits=limits,
@@ -135,7 +151,7 @@ def solve(
         responses=responses(
             problem, start.row(0), verification.evaluation, optimum, verification.envelope
         ),
-        verdict=verdict(limits, verification.stress, verification.corners_checked, series),
+        verdict=verdict(limits, verification.stress, verification.corners_checked, snapped.series),
     )
 
 
