@@ -13,20 +13,22 @@ tolerance corners of the last stage's L and C as well.
 
 Both sides start from the same point, see the same limits on the same simulation (the
 problem's compiled parametric loop, built before timing; exact zero-order hold on the
-same grid) and must reach the same optimum within 1 %:
+same grid) and must reach the same optimum: the same objective within 1 % (the variables
+themselves may differ where a resistor sits in series with a capacitor held at its bound):
 
 * wirestate: :func:`wirestate.tune.optimise.solve_nlp` (IPOPT, exact first derivatives by
   algorithmic differentiation, limited-memory quasi-Newton Hessian, rows where each
   limit's signal peaks, violated ones added after each solve);
 * reference: scipy's SLSQP with forward differences, every row of every point at every
-  evaluation (each evaluation one batch of the nominal point and the corners).
+  evaluation (each evaluation one batch of the nominal point and the corners). A reference
+  run fails when SLSQP reports no success, ends outside a limit, or ends more than 1 %
+  worse.
 
 Repeats are interleaved (one of each side in turn), the same number for both. ``ratio =
 median_s / reference_median_s`` (lower is better); the targets are the issue's (0.5 at 4
 variables, 0.1 at 16). ``details.growth_exponent`` is the slope of log(time) against
 log(n) over the records of the same kind, fitted by least squares (target <= 1 for the
-wirestate side). A reference run that fails (no success, or another optimum) is reported
-as such.
+wirestate side).
 
 Run: ``python benchmarks/bench_tune.py`` (prints JSON).
 """
@@ -211,13 +213,25 @@ def _median(runs: list) -> tuple[float, dict, dict]:
     return median, values, info
 
 
+def _objective(case: Problem, values: dict[str, float]) -> float:
+    start = case.evaluate([case.start_values()])
+    return float(
+        np.atleast_1d(objective_value(case, case.evaluate([values]), start_scales(case, start)))[0]
+    )
+
+
 def _record(n: int, robust: bool, folder: Path) -> dict:
     case = problem(folder, n, robust)
     ours, theirs = _interleaved(case)
     ours_s, ours_x, ours_info = _median(ours)
     ref_s, ref_x, ref_info = _median(theirs)
     worst = max(abs(ours_x[k] / ref_x[k] - 1.0) for k in ours_x)
-    reference_ok = bool(ref_info["success"] and ref_info["least_row"] >= -1e-6 and worst <= 0.01)
+    # the same optimum: the same objective within 1 % (a resistor in series with a
+    # capacitor held at its lower bound barely matters, so such variables may differ)
+    ours_f, ref_f = _objective(case, ours_x), _objective(case, ref_x)
+    gap = ref_f / ours_f - 1.0
+    same = abs(gap) <= 0.01
+    reference_ok = bool(ref_info["success"] and ref_info["least_row"] >= -1e-6 and same)
     ratio = ours_s / ref_s
     target = TARGETS.get(n)
     return {
@@ -227,7 +241,7 @@ def _record(n: int, robust: bool, folder: Path) -> dict:
         "ratio": ratio,
         "higher_is_better": False,
         "target": target,
-        "meets_target": None if target is None else bool(ratio <= target and worst <= 0.01),
+        "meets_target": None if target is None else bool(ratio <= target and same),
         "details": {
             "design_variables": n,
             "robust": robust,
@@ -240,8 +254,9 @@ def _record(n: int, robust: bool, folder: Path) -> dict:
                 "failed": not reference_ok,
                 **ref_info,
             },
-            "largest_relative_difference_of_optimum": worst,
-            "same_optimum_within_1_percent": bool(worst <= 0.01),
+            "objective": {"wirestate": ours_f, "reference": ref_f, "relative_gap": gap},
+            "largest_relative_difference_of_variables": worst,
+            "same_optimum_within_1_percent": bool(same),
             "repeats": REPEATS,
             "speedup": 1.0 / ratio,
         },
