@@ -9,7 +9,8 @@ circuit is the same in every record; only the number of design variables n chang
 8, 16: the damping legs of the last n/2 stages; 32: every leg and every stage's L and C),
 so that the growth with n measures the derivative strategy, not the model. Objective: the
 capacitance of the capacitors being sized. Robust records impose every limit at the four
-tolerance corners of the last stage's L and C as well.
+tolerance corners of the last stage's L and C as well. Two more records run the bundled
+tuning files (robust, 16 corners), where SLSQP with every row at every corner can fail.
 
 Both sides start from the same point, see the same limits on the same simulation (the
 problem's compiled parametric loop, built before timing; exact zero-order hold on the
@@ -46,12 +47,17 @@ from scipy.optimize import minimize
 
 from wirestate.tune import load_tuning
 from wirestate.tune.formulation import bound_size, scaled, values_of
-from wirestate.tune.limits import ranges
+from wirestate.tune.limits import POLE_KINDS, pole_margin, ranges
 from wirestate.tune.objective import objective_value, start_scales
 from wirestate.tune.optimise import points_of, solve_nlp
 from wirestate.tune.problem import Problem
 
 REPEATS = 2
+ROOT = Path(__file__).resolve().parents[1]
+BUNDLED = (
+    ROOT / "models" / "tuning" / "drive_bus_damping.toml",
+    ROOT / "models" / "tuning" / "drive_bus_loop_damping.toml",
+)
 SIZES = (2, 4, 8, 16, 32)
 STAGES = 8
 TARGETS = {4: 0.5, 16: 0.1}
@@ -173,6 +179,9 @@ def _slsqp(case: Problem) -> tuple[dict[str, float], dict]:
         batch, out = evaluate(q), []
         for limit in case.spec.limits:
             size = bound_size(limit)
+            if limit.kind in POLE_KINDS:
+                out.append(np.asarray(pole_margin(limit, batch, case)[1], dtype=float) / size)
+                continue
             for expr, lower, upper in ranges(limit, case, batch, start):
                 expr = np.asarray(expr, dtype=float)
                 if upper is not None:
@@ -221,7 +230,13 @@ def _objective(case: Problem, values: dict[str, float]) -> float:
 
 
 def _record(n: int, robust: bool, folder: Path) -> dict:
-    case = problem(folder, n, robust)
+    name = f"tune_scaling_{n}vars_{'robust' if robust else 'nominal'}"
+    return _compare(problem(folder, n, robust), name, TARGETS.get(n))
+
+
+def _compare(case: Problem, name: str, target: float | None) -> dict:
+    """Time both sides on one problem (its loop compiled already) and compare."""
+    n, robust = len(case.variables), case.spec.solver.robust
     ours, theirs = _interleaved(case)
     ours_s, ours_x, ours_info = _median(ours)
     ref_s, ref_x, ref_info = _median(theirs)
@@ -233,9 +248,8 @@ def _record(n: int, robust: bool, folder: Path) -> dict:
     same = abs(gap) <= 0.01
     reference_ok = bool(ref_info["success"] and ref_info["least_row"] >= -1e-6 and same)
     ratio = ours_s / ref_s
-    target = TARGETS.get(n)
     return {
-        "name": f"tune_scaling_{n}vars_{'robust' if robust else 'nominal'}",
+        "name": name,
         "median_s": ours_s,
         "reference_median_s": ref_s,
         "ratio": ratio,
@@ -283,6 +297,11 @@ def run() -> list[dict]:
                 record["details"]["growth_target"] = 1.0
                 record["details"]["growth_meets_target"] = bool(ours <= 1.0)
             records += group
+    # the bundled tuning files, where SLSQP with every row can fail outright
+    for path in BUNDLED:
+        case = Problem(load_tuning(path))
+        case.parametric().compile()
+        records.append(_compare(case, f"tune_bundled_{path.stem}", None))
     return records
 
 
