@@ -7,7 +7,7 @@ One run, on one warm local Dask cluster with one worker process per core:
 * ``yield_per_sample_one_core``: the 10 000 samples on one worker of that cluster (the
   tasks pinned to it; the other worker idles), seconds per sample, against the plain loop
   that calls the existing numeric verification once per sample
-  (``MarginEvaluator.evaluate_plain``: ``TuningModel.numeric`` + ``limit_margins``, timed
+  (``MarginEvaluator.evaluate_plain``: ``Problem.numeric`` + ``limit_margins``, timed
   in this process on 200 samples). Target: at most 1 ms per sample; ``ratio`` = ours /
   plain;
 * ``yield_speedup_all_cores``: the same samples on every worker; ``ratio`` = speed-up
@@ -44,7 +44,7 @@ from wirestate.explore.evaluate import MarginEvaluator
 from wirestate.explore.parts import toleranced_parts
 from wirestate.explore.sampling import draw_chunks
 from wirestate.tune import load_tuning
-from wirestate.tune.model import TuningModel
+from wirestate.tune.problem import Problem
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLES, PLAIN_SAMPLES = 10_000, 200
@@ -53,7 +53,7 @@ TARGET_MS = 1.0
 
 
 def _setup():
-    model = TuningModel(load_tuning(ROOT / "models" / "tuning" / "drive_bus_damping.toml"))
+    model = Problem(load_tuning(ROOT / "models" / "tuning" / "drive_bus_damping.toml"))
     fixed = {"Rd": 0.22, "Cd": 240e-6}  # the golden file's preferred values
     tol = toleranced_parts(model, None)
     centre = {n: fixed.get(n, model.nominal[n]) for n in tol}

@@ -458,3 +458,34 @@ def test_switched_system_with_a_continuous_nonlinear_block():
         simulate(system, 1e-4, 1e-6)
     assert info.value.code == "unsupported_switched_system"
     assert info.value.location == ("blocks", "loop")
+
+
+# review of the newest features: an output that would replace an input, a switched circuit
+# given to reduce
+def test_output_is_input_code(tmp_path):
+    from wirestate.simulate import guards
+
+    model = tmp_path / "rc.toml"
+    model.write_text('[circuit]\nname = "rc"\n')
+    with pytest.raises(WirestateError) as info:
+        guards.check_output_path(model, "--csv", inputs=(model,))
+    assert info.value.code == "output_is_input" and info.value.file == str(model)
+    other = tmp_path / "other.toml"
+    other.write_text('[circuit]\nname = "other"\n')
+    with pytest.raises(WirestateError) as info:
+        guards.check_output_path(other, "--csv")
+    assert info.value.code == "output_is_input" and "circuit file" in info.value.message
+
+
+def test_not_reducible_code(tmp_path, capsys):
+    from wirestate.cli import main
+
+    model = tmp_path / "rect.toml"
+    model.write_text(
+        '[circuit]\nname = "rect"\n[parts.Vac]\nkind = "voltage_source"\nnodes = ["a", "gnd"]\n'
+        '[parts.D1]\nkind = "diode"\nnodes = ["a", "b"]\n[parts.C1]\nkind = "capacitor"\n'
+        'nodes = ["b", "gnd"]\nvalue = "1uF"\n[parts.R1]\nkind = "resistor"\n'
+        'nodes = ["b", "gnd"]\nvalue = "1kohm"\n[outputs.v]\nvoltage = "b"\n'
+    )
+    assert main(["reduce", str(model), "--order", "0", "--out", str(tmp_path / "r.toml")]) == 2
+    assert "parts.D1" in capsys.readouterr().err

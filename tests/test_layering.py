@@ -17,6 +17,7 @@ LAYERS = [
     {"lti"},
     {"elimination"},
     {"reduce"},
+    {"parametric"},
     {"balanced"},
     {"switching"},
     {"sensitivity"},

@@ -77,6 +77,7 @@ ERROR_CODES: dict[str, str] = {
     "non_finite_result": "a result that left the floating-point range (an unstable mode)",
     "run_too_large": "a run whose arrays or output file would not fit in memory or on disk",
     "unwritable_output": "an output file path whose folder is missing or not writable",
+    "output_is_input": "an output file that names an input or a model file, which it would replace",
     "nesting_too_deep": "a file nested deeper than the reader accepts",
     "wrong_file_kind": "a file of a kind the command or option does not take",
     # order reduction and sensitivities (issue 15)
@@ -87,6 +88,7 @@ ERROR_CODES: dict[str, str] = {
     "no_stable_part": "a block with no stable input-output part to reduce",
     "unstable_block": "a large block with modes at or right of the imaginary axis",
     "stale_source": "a reduced state-space file whose source model changed since the reduction",
+    "not_reducible": "a circuit with switches or diodes, which has no single block to reduce",
     # FMU export (wirestate export)
     "not_exportable": "a model with blocks an FMU cannot reproduce (non-linear blocks)",
     "no_c_compiler": "no C compiler to build the FMU binary ($CC, then cc)",

@@ -77,6 +77,12 @@ ZERO_GAIN_TOLERANCE = 1e-9
 DOMINANT_FRACTION = 0.4
 #: at most this many states name a mode
 NAMING_STATES = 3
+#: CasADi's linear solver for the symbolic compile: the sparse LU of CSparse, whose
+#: derivatives are solves with the same factorisation. Its sparse QR ("qr") declared the
+#: equations of a 1 kOhm / 100 fF RC low-pass singular (capacitor stamps ~1e-13 beside
+#: conductances ~1e-3) and failed; the LU pivots on the values and gives the same
+#: elasticities to 1e-15 on the bundled models
+LINEAR_SOLVER = "csparse"
 #: blocks with more states are refused: the Jacobian of every mode costs about n^3 per
 #: part (ladders with a part per state: 100 states 2.8 s, 150 states 8.9 s, measured on 2
 #: cores loaded by other work)
@@ -137,15 +143,28 @@ def elasticities(function: Any, values: Mapping[str, float]) -> dict[str, dict[s
         [stacked, casadi.jacobian(stacked, casadi.vertcat(*symbols))],
     )
     point = [float(values[name]) for name in names]
-    y, J = (np.array(m, dtype=float) for m in jacobian(*point))
+    try:
+        y, J = (np.array(m, dtype=float) for m in jacobian(*point))
+    except RuntimeError:
+        # CasADi stops when a linear solve meets a singular or non-finite matrix
+        raise CompileError(
+            "non_finite_result",
+            "the derivatives cannot be evaluated at these part values (a linear solve met a "
+            "singular matrix or numbers beyond double precision); check for part values "
+            "that are zero or many decades from the others",
+            location=("parts",),
+        ) from None
     y = y.reshape(-1)
     J = J.reshape(len(y), len(names))
     result: dict[str, dict[str, float | None]] = {}
     for row, label in enumerate(labels):
-        if y[row] == 0.0 or not math.isfinite(y[row]):
+        with np.errstate(over="ignore", invalid="ignore"):
+            row_values = J[row] * np.asarray(point) / y[row]
+        if y[row] == 0.0 or not np.all(np.isfinite(row_values)):
+            # zero, or a derivative beyond double precision: no elasticity to give
             result[label] = dict.fromkeys(names)
             continue
-        result[label] = {name: float(J[row, k] * point[k] / y[row]) for k, name in enumerate(names)}
+        result[label] = {name: float(row_values[k]) for k, name in enumerate(names)}
     return result
 
 
@@ -207,7 +226,13 @@ def modes_of(A: np.ndarray, states: Sequence[str]) -> list[Mode]:
     A = np.asarray(A, dtype=float)
     if A.shape[0] == 0:
         return []
-    eigenvalues, left, right = scipy.linalg.eig(A, left=True, right=True)
+    # LAPACK's eigen-solver with left vectors returns wrong eigenvalues for a matrix whose
+    # norm is near the overflow range (a 1e-300 F capacitor gave -1.5e138 for -1e297): scale
+    # by a power of two (exact) to a norm near 1 first; eigenvectors do not change
+    norm = float(np.abs(A).max())
+    shift = 2.0 ** round(math.log2(norm)) if norm > 0 and math.isfinite(norm) else 1.0
+    eigenvalues, left, right = scipy.linalg.eig(A / shift, left=True, right=True)
+    eigenvalues = eigenvalues * shift
     scale = max(np.abs(eigenvalues).max(), np.finfo(float).tiny)
     # the threshold of lti.dc_gain_limit, on the same balanced matrix, so that a pole this
     # module calls "at the origin" is one that makes a DC gain a limit there
@@ -408,7 +433,12 @@ def circuit_sensitivities(
     for q in quantities:
         if q.elasticity is not None and any(v is None for v in q.elasticity.values()):
             q.elasticity = None
-            q.note = q.note or "zero at these part values: its elasticity does not exist"
+            q.note = q.note or (
+                "zero at these part values: its elasticity does not exist"
+                if q.value == 0.0
+                else "its derivative leaves the range of double precision at these part "
+                "values (values many decades apart): no elasticity"
+            )
     return Sensitivities(spec.name, names, values, quantities, notes)
 
 
@@ -439,7 +469,7 @@ def _compile_both(
             )
         block = compile_circuit(spec)
         _check_size(block)
-        return block, symbolic_state_space(spec, symbols, linear_solver="qr"), []
+        return block, symbolic_state_space(spec, symbols, linear_solver=LINEAR_SOLVER), []
     from wirestate.switching import SwitchedCircuit
 
     circuit = SwitchedCircuit(spec)
@@ -467,7 +497,7 @@ def _compile_both(
         units=circuit.units,
     )
     _check_size(block)
-    full = circuit.symbolic_mode(on, symbols, linear_solver="qr")
+    full = circuit.symbolic_mode(on, symbols, linear_solver=LINEAR_SOLVER)
     full.B, full.C, full.D = full.B[:, :n_u], full.C[:n_y, :], full.D[:n_y, :n_u]
     note = f"switched circuit: the mode with {circuit.describe(on)}"
     return block, full, [note]
@@ -557,7 +587,7 @@ def _gain_expression(A0: np.ndarray, symbolic: Any, at_origin: int) -> tuple[Any
     if n == 0:
         return symbolic.D, np.zeros((0, 0)), ""
     if at_origin == 0:
-        solved = casadi.solve(symbolic.A, symbolic.B, "qr")
+        solved = casadi.solve(symbolic.A, symbolic.B, LINEAR_SOLVER)
         return symbolic.D - casadi.mtimes(symbolic.C, solved), np.linalg.inv(A0), ""
     inverse = group_inverse(A0, at_origin)
     if inverse is None:

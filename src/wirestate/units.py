@@ -258,6 +258,32 @@ def zero_round_off(values, sizes):
     return out if out.ndim else float(out)
 
 
+#: unit symbols a signal unit is written with: the SI base units and the derived units
+#: with special names (BIPM, The International System of Units, 9th ed., 2019, tables 2
+#: and 4), ``ohm`` as well as ``Ω``, and ``1`` for a dimensionless signal
+SI_SYMBOLS = frozenset(
+    "m kg s A K mol cd rad sr Hz N Pa J W C V F ohm Ω Ω S Wb T H Gy Sv 1".split()
+)
+_UNIT_FACTOR = re.compile(r"^([A-Za-zΩΩ]+|1)(?:\^([+-]?\d+))?$")
+
+
+def is_si_unit(text: str) -> bool:
+    """True for a signal unit written in SI symbols without prefix: products and quotients
+    of :data:`SI_SYMBOLS` with integer powers (``V``, ``rad/s``, ``N*m``, ``kg*m^2``,
+    ``1/s``), or one of the spellings :data:`UNITS` accepts (``Nm``, ``V·s/rad``).
+
+    A state-space block's matrices are in SI base units, so a prefixed unit (``mV``) or a
+    word (``volts``) would misstate them.
+    """
+    if any(text in spellings for spellings in UNITS.values()) or text in UNITS:
+        return True
+    factors = re.split(r"[*·/]", text)
+    return all(
+        (match := _UNIT_FACTOR.match(f)) is not None and match.group(1) in SI_SYMBOLS
+        for f in factors
+    )
+
+
 def format_count(n: int, noun: str) -> str:
     """``"1 state"``, ``"3 states"``: a count with its (regular English) noun in the right
     number."""

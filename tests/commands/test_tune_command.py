@@ -108,9 +108,9 @@ def test_infeasible_limits_exit_nonzero_with_one_error_line(tmp_path, capsys):
     ("args", "needle"),
     [
         (["tune", "no/such/file.toml"], "no such file"),
-        # output folders are checked before the tuning starts
-        (["tune", "{spec}", "--json", "{tmp}/absent/report.json"], "does not exist"),
-        (["tune", "{spec}", "--plot", "{tmp}/absent/tune.png"], "does not exist"),
+        # the missing folder is found before the solve and named with the option
+        (["tune", "{spec}", "--json", "{tmp}/absent/report.json"], "--json: the folder"),
+        (["tune", "{spec}", "--plot", "{tmp}/absent/tune.png"], "--plot: the folder"),
     ],
 )
 def test_user_mistakes_give_one_line(tmp_path, capsys, args, needle):

@@ -16,7 +16,7 @@ from tests.explore.conftest import C0, R0, TAU_MAX, TOL_C, TOL_R
 from wirestate.explore import MarginEvaluator, tolerance_yield, wilson_interval
 from wirestate.explore.sampling import unit_deviates
 from wirestate.tune import load_tuning
-from wirestate.tune.model import TuningModel
+from wirestate.tune.problem import Problem
 
 
 def product_of_uniforms_cdf(k: float, x0: float, x1: float, y0: float, y1: float) -> float:
@@ -95,7 +95,7 @@ def test_batched_evaluator_gives_the_tuning_verification_margins():
     # the compiled, batched evaluation against the plain numeric verification (one compile,
     # one scipy-expm simulation per row); same limit code, so the difference is the
     # Taylor zero-order hold (truncation bound ~1e-12) and summation order: 1e-9 of bounds
-    model = TuningModel(load_tuning(MODELS / "tuning" / "drive_bus_damping.toml"))
+    model = Problem(load_tuning(MODELS / "tuning" / "drive_bus_damping.toml"))
     parts = ["Rd", "Cd", "Lf"]
     base = np.array([0.22, 240e-6, 22e-6])
     ranges = {p: (v * 0.8, v * 1.2) for p, v in zip(parts, base, strict=True)}

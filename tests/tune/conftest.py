@@ -41,6 +41,29 @@ RC_CIRCUIT = """
     voltage = "out"
 """
 
+RLC = """
+    [circuit]
+    name = "series_rlc"
+    [parts.Vs]
+    kind = "voltage_source"
+    nodes = ["in", "gnd"]
+    value = "1V"
+    [parts.R1]
+    kind = "resistor"
+    nodes = ["in", "a"]
+    value = "10ohm"
+    [parts.L1]
+    kind = "inductor"
+    nodes = ["a", "out"]
+    value = "1mH"
+    [parts.C1]
+    kind = "capacitor"
+    nodes = ["out", "gnd"]
+    value = "10uF"
+    [outputs.v_out]
+    voltage = "out"
+"""
+
 RC_TUNING = """
     [tuning]
     name = "rc_rise"

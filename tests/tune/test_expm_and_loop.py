@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 from scipy.linalg import expm as scipy_expm
 
+from tests.tune.conftest import RLC
 from wirestate.tune import expm as cexpm
 from wirestate.tune import load_tuning, solve
 from wirestate.tune.loop import close_pi
@@ -78,29 +79,6 @@ def test_sampled_pi_loop_equals_a_hand_written_recursion():
         # ki * z as its state (wirestate.blocks.controllers.PIDController)
         assert xc == pytest.approx(np.concatenate([x, [ki * z]]), rel=1e-12, abs=1e-12)
 
-
-RLC = """
-    [circuit]
-    name = "series_rlc"
-    [parts.Vs]
-    kind = "voltage_source"
-    nodes = ["in", "gnd"]
-    value = "1V"
-    [parts.R1]
-    kind = "resistor"
-    nodes = ["in", "a"]
-    value = "10ohm"
-    [parts.L1]
-    kind = "inductor"
-    nodes = ["a", "out"]
-    value = "1mH"
-    [parts.C1]
-    kind = "capacitor"
-    nodes = ["out", "gnd"]
-    value = "10uF"
-    [outputs.v_out]
-    voltage = "out"
-"""
 
 RLC_TUNING = """
     [tuning]

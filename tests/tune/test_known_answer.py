@@ -151,20 +151,20 @@ def test_a_waveform_input_is_sampled_and_held_like_scipy_lsim(rc_case):
     # within h/(2T) = 0.5 % of the final value, T = 1 ms, h = 10 us.
     from scipy.signal import lsim
 
-    from wirestate.tune.model import TuningModel
+    from wirestate.tune.problem import Problem
 
     path = rc_case()
     text = path.read_text(encoding="utf-8").replace(
         'initial = "zero"', 'initial = "zero"\n[scenario.waveforms]\nVs = "ramp:1V,end=1ms"'
     )
     path.write_text(text, encoding="utf-8")
-    model = TuningModel(load_tuning(path))
+    model = Problem(load_tuning(path))
     C = 1e-6
     ev = model.numeric({"C1": C})
     t = model.times
     v = ev.Y[model.outputs.index("v_out")]
     rc = 1e3 * C
-    _, reference, _ = lsim(([1.0], [rc, 1.0]), model.schedule[0], t, interp=False)
+    _, reference, _ = lsim(([1.0], [rc, 1.0]), model.schedule.inputs[0], t, interp=False)
     assert v == pytest.approx(reference, abs=1e-9)
     inside = t <= 1e-3 + 1e-12
     closed = t / 1e-3 - rc / 1e-3 * (1 - np.exp(-t / rc))

@@ -16,7 +16,7 @@ from scipy.optimize import minimize_scalar
 
 from wirestate.tune import load_tuning, solve
 from wirestate.tune.limits import integral_squared_error
-from wirestate.tune.model import TuningModel
+from wirestate.tune.problem import Problem
 
 CIRCUIT = """
     [circuit]
@@ -76,7 +76,7 @@ def test_snubber_resistor_against_the_rule_of_thumb(write):
     # second path: the numeric engine (scipy Pade exponential, not the CasADi Taylor one)
     # scanned by a bounded scalar search must find the same minimum; 1e-3 relative, the
     # ISE being flat (quadratic) at its minimum and the search tolerance 1e-6 ohm
-    model = TuningModel(load_tuning(path))
+    model = Problem(load_tuning(path))
 
     def ise(value: float) -> float:
         return float(integral_squared_error(model, model.numeric({"Rs": value}), "v_d"))

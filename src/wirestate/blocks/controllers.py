@@ -32,11 +32,14 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
-import control
 import numpy as np
 
 from wirestate.errors import ModelFileError
+
+if TYPE_CHECKING:  # python-control costs about a second to import: only where it is used
+    import control
 
 ANTI_WINDUP_METHODS = ("back_calculation", "conditional", "none")
 
@@ -232,6 +235,8 @@ class PIDController:
     def state_space(self) -> control.StateSpace:
         """The unsaturated controller as a named ``control.StateSpace`` (``dt = Ts`` when
         sampled)."""
+        import control
+
         A, B, C, D = self.matrices()
         sys = control.ss(
             A, B, C, D, self.sample_time or 0,
@@ -356,6 +361,8 @@ def state_feedback(
         inputs.append("reference")
         D = np.hstack([D, [[float(reference_gain)]] * K.shape[0]])
     outputs = [command] if K.shape[0] == 1 else [f"{command}{i}" for i in range(K.shape[0])]
+    import control
+
     sys = control.ss(
         np.zeros((0, 0)), np.zeros((0, len(inputs))), np.zeros((len(outputs), 0)), D, 0,
         name=name, inputs=inputs, outputs=outputs,
@@ -374,6 +381,8 @@ def sensor_filter(
     tau = float(time_constant)
     if not (math.isfinite(tau) and tau > 0):
         raise _bad(name, "time_constant", f"must be positive, got {time_constant!r}")
+    import control
+
     sys = control.ss(
         [[-1.0 / tau]], [[float(gain) / tau]], [[1.0]], [[0.0]],
         name=name, inputs=["signal"], outputs=["measured"], states=["measured"],
@@ -388,6 +397,8 @@ def static_gain(name: str, gain: float, unit: str = "") -> control.StateSpace:
     k = float(gain)
     if not math.isfinite(k):
         raise _bad(name, "gain", f"must be finite, got {gain!r}")
+    import control
+
     sys = control.ss(
         np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), [[k]], 0,
         name=name, inputs=["input"], outputs=["output"],

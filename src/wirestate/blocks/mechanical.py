@@ -9,10 +9,14 @@ and state names to units; composition reads it.
 
 from __future__ import annotations
 
-import control
+from typing import TYPE_CHECKING
+
 import numpy as np
 
 from wirestate.errors import ModelFileError
+
+if TYPE_CHECKING:  # python-control costs about a second to import: only where it is used
+    import control
 
 
 def _positive(name: str, field: str, value: float, *, allow_zero: bool = False) -> float:
@@ -29,6 +33,8 @@ def _positive(name: str, field: str, value: float, *, allow_zero: bool = False) 
 
 
 def _system(name, A, B, C, D, inputs, outputs, states, units) -> control.StateSpace:
+    import control
+
     sys = control.ss(
         np.asarray(A, dtype=float).reshape(len(states), len(states)),
         np.asarray(B, dtype=float).reshape(len(states), len(inputs)),

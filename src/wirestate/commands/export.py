@@ -33,7 +33,7 @@ def configure(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     from wirestate.commands.outputs import check_outputs
 
-    check_outputs(fmu=args.fmu)  # before the compile and the C build
+    check_outputs(fmu=args.fmu, inputs=(args.model,))  # before the compile and the C build
     step = DEFAULT_STEP
     if args.step is not None:
         step = parse_quantity(args.step, "s", field="step")

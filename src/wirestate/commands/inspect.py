@@ -42,8 +42,16 @@ def run(args: argparse.Namespace) -> int:
 
     if args.plot:
         from wirestate.report.figure import figure_format
+        from wirestate.simulate.guards import check_output_path
 
         figure_format(args.plot)  # a bad file name fails before any output
+        check_output_path(args.plot, "--plot", inputs=(args.model,))
+    elif args.pair:
+        from wirestate.errors import SimulationError
+
+        raise SimulationError(
+            "invalid_field", "--pair chooses the curves of the --plot figure; give --plot too"
+        )
     found = inspect_file(args.model)
     pairs = [_pair(text, found.linear) for text in args.pair] or None  # with or without --plot
     sensitivity = _sensitivity(found, args.model) if args.sensitivity else None

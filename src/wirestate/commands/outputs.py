@@ -8,15 +8,19 @@ paths first.
 from __future__ import annotations
 
 
-def check_outputs(*, figures: tuple[str, ...] = (), **files: str | None) -> None:
+def check_outputs(
+    *, figures: tuple[str, ...] = (), inputs: tuple[str, ...] = (), **files: str | None
+) -> None:
     """Refuse, before any work, an output path whose folder is missing or not writable,
-    that names a folder, or (for the options named in ``figures``) whose suffix is not a
-    figure format.
+    that names a folder or one of the run's input files or an existing model file, or (for
+    the options named in ``figures``) whose suffix is not a figure format.
 
     Parameters
     ----------
     figures
         The options (keys of ``files``) that name figures.
+    inputs
+        The files the run reads (never replaced by an output).
     files
         Option name (``json``, ``csv``, ``plot``...) -> the path given, or ``None``.
     """
@@ -25,7 +29,7 @@ def check_outputs(*, figures: tuple[str, ...] = (), **files: str | None) -> None
     for option, path in files.items():
         if path is None:
             continue
-        check_output_path(path, f"--{option}")
+        check_output_path(path, f"--{option}", inputs=inputs)
         if option in figures:
             from wirestate.report.figure import figure_format
 

@@ -41,8 +41,10 @@ def run(args: argparse.Namespace) -> int:
     from wirestate.simulate.guards import check_output_path
     from wirestate.spec.state_space import dumps_state_space
 
-    check_output_path(args.out, "--out")
+    # a reduced file may replace an earlier one, never its source or another model
+    check_output_path(args.out, "--out", inputs=(args.model,), replaceable=("state_space",))
     block = load_block(args.model)
+    _refuse_switched(block, args.model)
     try:
         result = reduce_block(
             block,
@@ -76,9 +78,32 @@ def run(args: argparse.Namespace) -> int:
         f"written by wirestate reduce from {spec.reduction.source.file}; the matrices and the "
         "bound belong together:\nreduce the source again rather than editing them"
     )
-    write_atomic(args.out, dumps_state_space(spec, comment=comment))
+    try:
+        write_atomic(args.out, dumps_state_space(spec, comment=comment))
+    except OSError as exc:
+        raise WirestateError(
+            "unwritable_output", f"--out: cannot write: {exc.strerror or exc}", file=args.out
+        ) from None
     print(f"wrote {args.out}")
     return 0
+
+
+def _refuse_switched(block, model: str) -> None:
+    """A switched circuit compiles to the block of one mode (every device off); its
+    reduction would describe that mode only, and the bound nothing about the switching."""
+    from wirestate.errors import WirestateError
+    from wirestate.export.plan import switching_parts
+
+    parts = switching_parts(block)
+    if parts:
+        raise WirestateError(
+            "not_reducible",
+            f"{block.name} has switches or diodes ({', '.join(parts)}); a reduced block would "
+            "hold only the mode with every device off, and its error bound would say nothing "
+            "about the switching circuit: reduce the linear part of the circuit instead",
+            file=model,
+            location=("parts", parts[0].split(" ")[0]),
+        )
 
 
 def _hsv_table(result) -> str:

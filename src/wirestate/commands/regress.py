@@ -50,6 +50,10 @@ def run(args: argparse.Namespace) -> int:
         models = [Path(m) for m in args.models]
     else:
         models = discover_models(DEFAULT_MODELS, golden_dir)
+    if args.junit and Path(args.junit).parent.is_dir():  # a missing folder is created later
+        from wirestate.simulate.guards import check_output_path
+
+        check_output_path(args.junit, "--junit", inputs=tuple(models))
     outcomes = [regress_file(model, golden_dir, update=args.update) for model in models]
 
     summary_rows = []

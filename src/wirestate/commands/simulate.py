@@ -101,9 +101,11 @@ def run(args: argparse.Namespace) -> int:
     path = Path(args.model)
     until = _time(args.until, "until")
     step = _time(args.step, "step")
-    _check_before_work(args)
+    assignments = _unique(
+        [parse_assignment(text) for text in args.input], "--input", "NAME=WAVEFORM", path
+    )
+    _check_before_work(args, list(assignments.values()))
     data = read_toml(path)
-    assignments = dict(parse_assignment(text) for text in args.input)
     if is_system_file(data):
         model = system_from_spec(parse_system(data, file=str(path)), file=path)
         options = {"rtol": args.rtol, "atol": args.atol} if not model.is_linear else {}
@@ -160,7 +162,7 @@ def _start(model, args: argparse.Namespace, assignments: dict, path: Path):
     """The model starting where ``--initial`` and ``--initial-value`` say."""
     from wirestate.simulate.initial import start_from
 
-    values = {}
+    pairs = []
     for text in args.initial_value:
         name, sep, value = text.partition("=")
         if not sep or not name.strip() or not value.strip():
@@ -169,7 +171,8 @@ def _start(model, args: argparse.Namespace, assignments: dict, path: Path):
                 f"--initial-value: expected STATE=VALUE such as v_Cf=42V, got {text!r}",
                 file=str(path),
             )
-        values[name.strip()] = value.strip()
+        pairs.append((name.strip(), value.strip()))
+    values = _unique(pairs, "--initial-value", "STATE=VALUE", path)
     try:
         start = start_from(model, args.initial, values, assignments, base=Path.cwd())
     except SimulationError as exc:
@@ -179,13 +182,32 @@ def _start(model, args: argparse.Namespace, assignments: dict, path: Path):
     return start.model
 
 
-def _check_before_work(args: argparse.Namespace) -> None:
+def _unique(pairs: list[tuple[str, str]], option: str, form: str, path: Path) -> dict[str, str]:
+    """``NAME=VALUE`` options as a mapping; one name given twice is refused rather than
+    letting the last one win unseen."""
+    values: dict[str, str] = {}
+    for name, value in pairs:
+        if name in values and values[name] != value:
+            raise SimulationError(
+                "invalid_field",
+                f"{option} {name} is given twice ({values[name]!r} and {value!r}); give each "
+                f"{form} once",
+                file=str(path),
+            )
+        values[name] = value
+    return values
+
+
+def _check_before_work(args: argparse.Namespace, waveforms: list[str]) -> None:
     # every check that needs no model runs before the model is read or any step taken
     from wirestate.commands.outputs import check_outputs
     from wirestate.simulate.guards import check_tolerances
+    from wirestate.simulate.inputs import input_files
 
     check_tolerances({"rtol": args.rtol, "atol": args.atol})
-    check_outputs(csv=args.csv, plot=args.plot, figures=("plot",))
+    # the run reads the model and any csv: waveform; no output may replace them
+    inputs = (args.model, *input_files(waveforms, Path.cwd()))
+    check_outputs(csv=args.csv, plot=args.plot, figures=("plot",), inputs=inputs)
 
 
 def _streams(model, until: float, step: float) -> bool:

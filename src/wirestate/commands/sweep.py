@@ -68,7 +68,9 @@ def run(args: argparse.Namespace) -> int:
     from wirestate.explore import parse_grid, sweep
     from wirestate.tune import load_tuning
 
-    check_outputs(json=args.json, csv=args.csv, plot=args.plot, figures=("plot",))
+    check_outputs(
+        json=args.json, csv=args.csv, plot=args.plot, figures=("plot",), inputs=(args.spec,)
+    )
     names = [item.partition("=")[0].strip() for item in args.grid.split(",") if item.strip()]
     twice = sorted({name for name in names if names.count(name) > 1})
     if twice:  # parse_grid keeps the last one: a sweep of one part taken for two

@@ -1,10 +1,13 @@
 """``wirestate tune SPEC``: size damping parts in closed loop, snap, verify, report.
 
 Prints the table of design variables (continuous optimum, preferred value) and of limits
-(margin at the preferred values and at the worst tolerance corner), the stress report and
-the safety cautions on stdout; progress (solver iterations, corners checked) on stderr.
-``--json`` writes the report atomically; ``--plot`` draws responses before and after
-tuning with the limit envelopes.
+(margin at the preferred values and at the worst tolerance corner), the stress report, the
+safety cautions and the verdict on stdout; progress on stderr (the optimiser's iterations
+on one line on a terminal). ``--json`` writes the report atomically; ``--plot`` draws the
+responses, also for a tuning that failed. The exit status is the verdict's: 0 every limit
+met at the preferred values, at every tolerance corner and within every rating; 1 the
+limits are met at the preferred values but a tolerance corner or a rating fails; 2 the
+limits are not met (or a mistake in the files).
 """
 
 from __future__ import annotations
@@ -13,15 +16,15 @@ import argparse
 import json
 import sys
 from pathlib import Path
-from typing import Any
+from typing import Any, TextIO
 
 from wirestate.atomic import write_atomic
 from wirestate.errors import TuningError, WirestateError
 from wirestate.tune import load_tuning, solve
 from wirestate.tune.preferred import SERIES_NAMES
-from wirestate.units import format_quantity
 
-EXIT_NOT_MET = 1
+#: on a log (not a terminal) only every this many optimiser iterations is printed
+LOGGED_ITERATIONS = 10
 
 
 def configure(parser: argparse.ArgumentParser) -> None:
@@ -38,21 +41,42 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quiet", action="store_true", help="no progress on stderr")
 
 
-def _progress(quiet: bool):
-    if quiet:
-        return None
+class Progress:
+    """Progress lines on ``stream``: a transient line (an optimiser iteration) is shown in
+    place on a terminal and thinned out on a log; every other line is kept."""
 
-    def say(message: str) -> None:
-        print(f"tune: {message}", file=sys.stderr, flush=True)
+    def __init__(self, stream: TextIO) -> None:
+        self.stream = stream
+        self.terminal = stream.isatty()
+        self.pending = False
+        self.count = 0
 
-    return say
+    def __call__(self, message: str) -> None:
+        if getattr(message, "transient", False):
+            self.count += 1
+            if self.terminal:
+                self.stream.write(f"\rtune: {message}\x1b[K")
+                self.stream.flush()
+                self.pending = True
+            elif self.count == 1 or self.count % LOGGED_ITERATIONS == 0:
+                print(f"tune: {message}", file=self.stream, flush=True)
+            return
+        self.close()
+        print(f"tune: {message}", file=self.stream, flush=True)
 
-
-def _unit(unit: str) -> str:
-    return {"1": "1", "1/s": "1/s"}.get(unit, unit)
+    def close(self) -> None:
+        """End a line left open by a transient message."""
+        if self.pending:
+            self.stream.write("\r\x1b[K")
+            self.stream.flush()
+            self.pending = False
 
 
 def _show(value: float, unit: str) -> str:
+    """A number in ``unit`` for the tables of ``yield`` and ``sweep`` (``"%"``: a fraction
+    shown in percent, ``"1"``: a bare number)."""
+    from wirestate.units import format_quantity
+
     if unit == "%":
         return f"{100 * value:.3g} %"
     if unit == "1":
@@ -63,114 +87,17 @@ def _show(value: float, unit: str) -> str:
 
 
 def _table(rows: list[list[str]], header: list[str]) -> str:
-    widths = [max(len(str(r[i])) for r in [header, *rows]) for i in range(len(header))]
-    lines = ["  ".join(h.ljust(w) for h, w in zip(header, widths, strict=True))]
-    lines.append("  ".join("-" * w for w in widths))
-    for r in rows:
-        lines.append("  ".join(str(c).ljust(w) for c, w in zip(r, widths, strict=True)))
-    return "\n".join(lines)
+    """A plain text table (used by ``yield`` and ``sweep`` too)."""
+    from wirestate.report.tables import text_table
+
+    return text_table(rows, header)
 
 
 def format_report(report: dict[str, Any]) -> str:
     """The human-readable report of :meth:`TuningResult.to_dict` output."""
-    out = [f"tuning {report['name']} (series {report['series']})", ""]
-    rows = [
-        [
-            name,
-            _show(v["optimum"], v["unit"]),
-            _show(v["preferred"], v["unit"]),
-            f"{v['tolerance'] * 100:g} %" if v.get("tolerance") else "-",
-        ]
-        for name, v in report["variables"].items()
-    ]
-    out.append(_table(rows, ["variable", "continuous optimum", "preferred", "tolerance"]))
-    out.append("")
-    rows = []
-    for lim in report["limits"]:
-        unit = "%" if lim["kind"] in ("overshoot", "settling") else _unit(lim["unit"])
-        worst = lim.get("margin_worst_corner", lim["margin"])
-        rows.append(
-            [
-                lim["name"],
-                lim["kind"],
-                _show(lim["bound"], unit),
-                _show(lim["value"], unit),
-                _show(lim["margin"], unit),
-                _show(worst, unit),
-                "ok"
-                if lim["margin"] >= 0 and worst >= 0
-                else ("corner fails" if lim["margin"] >= 0 else "NOT MET"),
-            ]
-        )
-    out.append(
-        _table(
-            rows,
-            ["limit", "kind", "bound", "value", "margin", "margin (worst corner)", "status"],
-        )
-    )
-    tight = report.get("tightest")
-    if tight:
-        corner = ", ".join(f"{k} = {v:.4g}" for k, v in tight["worst_corner"].items()) or "nominal"
-        out.append("")
-        kind = next((x["kind"] for x in report["limits"] if x["name"] == tight["name"]), "")
-        unit = "%" if kind in ("overshoot", "settling") else tight["unit"]
-        out.append(
-            f"tightest limit (relative to its bound): {tight['name']}, margin "
-            f"{_show(tight['margin_worst_corner'], unit)} at the worst corner ({corner}); "
-            f"{report['corners_checked']} corners checked"
-        )
-    if report["stress"]:
-        out.append("")
-        out.append("stress at the preferred values:")
-        for s in report["stress"]:
-            parts = [
-                f"  {s['part']} ({s['kind']}): peak {format_quantity(s['peak_current'], 'A')}, "
-                f"{format_quantity(s['peak_voltage'], 'V')}"
-            ]
-            if s["kind"] == "resistor":
-                parts.append(
-                    f"energy {format_quantity(s['energy'], 'J')}, scenario average "
-                    f"{format_quantity(s['average_power_scenario'], 'W')}, continuous "
-                    f"{format_quantity(s['continuous_power'], 'W')} (of which ripple "
-                    f"{format_quantity(s['ripple_power'], 'W')})"
-                )
-            elif "ripple_current_amplitude" in s:
-                parts.append(
-                    f"ripple {format_quantity(s['ripple_current_amplitude'], 'A')} peak, "
-                    f"{format_quantity(s['ripple_voltage_amplitude'], 'V')} peak"
-                )
-            for r in s["ratings"]:
-                unit = {"voltage": "V", "current": "A", "power": "W"}[r["quantity"]]
-                flag = "  <-- above rating" if r["fraction_of_rating"] > 1 else ""
-                parts.append(
-                    f"{r['quantity']} {format_quantity(r['used'], unit)} of "
-                    f"{format_quantity(r['rated'], unit)} rated "
-                    f"({100 * r['fraction_of_rating']:.0f} %){flag}"
-                )
-            out.append("; ".join(parts))
-    solver = report["solver"]
-    out.append("")
-    out.append(
-        f"solver: {solver['status']}, {solver['iterations']} iterations, "
-        f"{solver['seconds']:.2f} s, {solver.get('unknowns', '?')} unknowns, "
-        f"{solver.get('constraints', '?')} constraints"
-    )
-    for note in report["notes"]:
-        out.append(f"note: {note}")
-    out.append("")
-    out.append("cautions:")
-    for caution in report["cautions"]:
-        out.append(f"  - {caution}")
-    out.append("")
-    out.append(
-        "result: "
-        + (
-            "every limit met at the preferred values"
-            if report["feasible"]
-            else "NOT every limit is met at the preferred values"
-        )
-    )
-    return "\n".join(out)
+    from wirestate.report.tables import tuning_report
+
+    return tuning_report(report)
 
 
 def _output_error(path: str | Path, exc: OSError) -> WirestateError:
@@ -185,21 +112,21 @@ def write_json_atomically(path: str | Path, data: dict[str, Any]) -> None:
         raise _output_error(path, exc) from None
 
 
-def run(args: argparse.Namespace) -> int:
-    from wirestate.commands.outputs import check_outputs
+def _for_figure(result: Any) -> Any:
+    """A failed tuning's result for the figure: its least-violation values in place of the
+    preferred values it does not have (the figure shows that point's response)."""
+    import copy
 
-    check_outputs(json=args.json, plot=args.plot, figures=("plot",))
-    spec = load_tuning(args.spec)
-    progress = _progress(args.quiet)
-    try:
-        result = solve(spec, series=args.series, progress=progress, file=args.spec)
-    except TuningError as exc:
-        partial = getattr(exc, "result", None)
-        if partial is not None:
-            print(format_report(partial.to_dict()))
-            if args.json:
-                write_json_atomically(args.json, partial.to_dict())
-        raise
+    shown = copy.copy(result)
+    shown.variables = {
+        name: {**entry, "preferred": entry["optimum"]} if entry["preferred"] is None else entry
+        for name, entry in result.variables.items()
+    }
+    return shown
+
+
+def _outputs(result: Any, args: argparse.Namespace, progress: Progress | None) -> None:
+    """Print the report and write the JSON and the figure."""
     report = result.to_dict()
     print(format_report(report))
     if args.json:
@@ -210,16 +137,33 @@ def run(args: argparse.Namespace) -> int:
         from wirestate.report.tuning_plot import plot_tuning
 
         try:
-            plot_tuning(result, args.plot)
+            plot_tuning(_for_figure(result), args.plot)
         except OSError as exc:
             raise _output_error(args.plot, exc) from None
         if progress:
             progress(f"figure written to {args.plot}")
-    if not result.feasible:
-        print(
-            "error: " + args.spec + ": limits: no combination of neighbouring "
-            f"{args.series} values meets every limit (see the table)",
-            file=sys.stderr,
-        )
-        return EXIT_NOT_MET
-    return 0
+
+
+def run(args: argparse.Namespace) -> int:
+    from wirestate.commands.outputs import check_outputs
+
+    # before the solve: --json/--plot never replace a model file
+    check_outputs(json=args.json, plot=args.plot, figures=("plot",), inputs=(args.spec,))
+    spec = load_tuning(args.spec)
+    progress = None if args.quiet else Progress(sys.stderr)
+    try:
+        result = solve(spec, series=args.series, progress=progress, file=args.spec)
+    except TuningError as exc:
+        if progress:
+            progress.close()
+        partial = getattr(exc, "result", None)
+        if partial is not None:
+            _outputs(partial, args, None)
+        raise
+    if progress:
+        progress.close()
+    _outputs(result, args, progress)
+    verdict = result.verdict
+    if not verdict["limits_met"]:
+        print(f"error: {args.spec}: limits: {verdict['summary']}", file=sys.stderr)
+    return int(verdict["exit_status"])

@@ -106,7 +106,7 @@ def run(args: argparse.Namespace) -> int:
     from wirestate.explore import tolerance_yield
     from wirestate.tune import load_tuning
 
-    check_outputs(json=args.json, plot=args.plot, figures=("plot",))
+    check_outputs(json=args.json, plot=args.plot, figures=("plot",), inputs=(args.spec,))
     if args.seed < 0:  # numpy's SeedSequence takes whole numbers of 0 or more
         raise WirestateError(
             "out_of_range",

@@ -28,7 +28,7 @@ from wirestate.explore.statistics import (
 )
 from wirestate.spec.tuning import TuningSpec
 from wirestate.tune import CAUTIONS
-from wirestate.tune.model import TuningModel
+from wirestate.tune.problem import Problem
 
 #: cautions printed with every yield (the tuning's, and what a modelled yield cannot know)
 YIELD_CAUTIONS = (
@@ -155,7 +155,7 @@ def tolerance_yield(
         The same for any number of workers, for one seed.
     """
     _check_run(samples, distribution)
-    model = TuningModel(spec, file=file)
+    model = Problem(spec, file=file)
     fixed = resolve_values(model, values)
     tolerances = toleranced_parts(model, None if parts is None else list(parts))
     names = list(tolerances)

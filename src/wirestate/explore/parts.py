@@ -7,7 +7,7 @@ from typing import Any
 
 from wirestate.errors import TuningError, WirestateError
 from wirestate.explore.evaluate import KIND_UNITS, value_parts
-from wirestate.tune.model import TuningModel
+from wirestate.tune.problem import Problem
 from wirestate.units import parse_quantity
 
 
@@ -28,7 +28,7 @@ def parse_assignments(text: str, what: str) -> dict[str, str]:
     return out
 
 
-def check_part(model: TuningModel, name: str, where: str) -> Any:
+def check_part(model: Problem, name: str, where: str) -> Any:
     """The circuit part ``name`` if it is a resistor, capacitor or inductor, else an
     ``unknown_part`` error at ``where``."""
     parts = value_parts(model)
@@ -44,7 +44,7 @@ def check_part(model: TuningModel, name: str, where: str) -> Any:
     return parts[name]
 
 
-def part_value(model: TuningModel, name: str, text: str | float, where: str) -> float:
+def part_value(model: Problem, name: str, text: str | float, where: str) -> float:
     """A positive value for part ``name`` in its unit (ohm, F or H), from text or a number."""
     part = check_part(model, name, where)
     try:
@@ -61,14 +61,12 @@ def part_value(model: TuningModel, name: str, text: str | float, where: str) -> 
     return value
 
 
-def resolve_values(
-    model: TuningModel, values: Mapping[str, str | float] | None
-) -> dict[str, float]:
+def resolve_values(model: Problem, values: Mapping[str, str | float] | None) -> dict[str, float]:
     """Part values (SI) to use instead of the circuit file's, checked."""
     return {n: part_value(model, n, v, "values") for n, v in (values or {}).items()}
 
 
-def toleranced_parts(model: TuningModel, parts: list[str] | None) -> dict[str, float]:
+def toleranced_parts(model: Problem, parts: list[str] | None) -> dict[str, float]:
     """``part -> tolerance`` of the parts to vary: ``parts`` (each must have a tolerance),
     or every resistor, capacitor and inductor with one, in file order."""
     if parts is None:

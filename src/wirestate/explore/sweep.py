@@ -17,7 +17,7 @@ from wirestate.explore.parts import check_part, part_value, resolve_values
 from wirestate.explore.sampling import CHUNK_SAMPLES
 from wirestate.spec.tuning import TuningSpec
 from wirestate.tune import CAUTIONS
-from wirestate.tune.model import TuningModel
+from wirestate.tune.problem import Problem
 
 #: at most this many points per axis (a 2-D sweep of 200 x 200 = 40 000 evaluations)
 MAX_POINTS = 200
@@ -110,7 +110,7 @@ def parse_grid(text: str) -> dict[str, tuple[str, str, int]]:
     return out
 
 
-def grid_axes(model: TuningModel, grid: GridText, log: bool) -> list[dict[str, Any]]:
+def grid_axes(model: Problem, grid: GridText, log: bool) -> list[dict[str, Any]]:
     """Checked axes: part, kind, unit, scale and the values (SI) of each grid axis."""
     if not 1 <= len(grid) <= 2:
         raise WirestateError(
@@ -165,7 +165,7 @@ def sweep(
     scheduler, workers, progress
         See :func:`wirestate.explore.cluster.evaluate_batches`.
     """
-    model = TuningModel(spec, file=file)
+    model = Problem(spec, file=file)
     fixed = resolve_values(model, values)
     axes = grid_axes(model, grid, log)
     names = [a["part"] for a in axes]

@@ -34,10 +34,11 @@ from wirestate.export.build import (
 from wirestate.export.csource import model_header
 from wirestate.export.description import model_description
 from wirestate.export.plan import ExportError, ExportPlan, check_names, plan_circuit, plan_system
-from wirestate.lti import CircuitBlock
+from wirestate.lti import CircuitBlock, block_from_state_space
 from wirestate.reduce import compile_circuit
 from wirestate.spec import parse_circuit
 from wirestate.spec.load import read_toml
+from wirestate.spec.state_space import is_state_space_file, parse_state_space
 from wirestate.spec.system import parse_system
 
 #: default communication step (s) when none is given
@@ -76,6 +77,10 @@ def load_model(path: str | Path) -> tuple[Any, str | None]:
     if is_system_file(data):
         spec = parse_system(data, file=str(path))
         return system_from_spec(spec, file=path), spec.system.description
+    if is_state_space_file(data):
+        # a reduced or hand-written block exports like the circuit block it stands for
+        block = block_from_state_space(parse_state_space(data, file=str(path)), file=path)
+        return block, block.spec.state_space.description
     try:
         circuit = parse_circuit(data, file=str(path))
         return compile_circuit(circuit), getattr(circuit, "description", None)

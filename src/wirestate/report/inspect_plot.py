@@ -148,6 +148,16 @@ def inspect_figure(
         poles = sorted_poles(model.A) if model is not None else np.zeros(0, dtype=complex)
     title = name or (model.name if model is not None else "")
 
+    H = omegas = None
+    zero: list[tuple[int, int]] = []
+    if chosen:
+        finite = np.asarray(poles, dtype=complex)
+        omegas = bode_frequencies(finite[np.isfinite(finite)])
+        H = frequency_response(model, omegas)
+        # a pair that is zero at every frequency (no path from the input to the output)
+        # has no magnitude to draw on a dB axis; it is named in a note instead
+        zero = [(j, i) for j, i in chosen if not np.any(H[:, i, j])]
+        chosen = [pair for pair in chosen if pair not in zero]
     groups: dict[str, tuple[str, list[tuple[int, int]]]] = {}
     for j, i in chosen:
         key, label = magnitude_axis(units, model.outputs[i], model.inputs[j])
@@ -157,20 +167,23 @@ def inspect_figure(
     grid = fig.add_gridspec(rows, 2, width_ratios=(1.0, 1.35))
     ax_modes = fig.add_subplot(grid[:, 0])
     fig.suptitle(f"{title}: modes and frequency response", fontsize=12)
-    _draw_modes(fig, ax_modes, np.asarray(poles, dtype=complex))
+    points = _draw_modes(ax_modes, np.asarray(poles, dtype=complex))
 
     first = fig.add_subplot(grid[0, 1])
     mags = [first] + [fig.add_subplot(grid[r, 1], sharex=first) for r in range(1, rows - 1)]
     ax_phase = fig.add_subplot(grid[rows - 1, 1], sharex=first)
+    if zero:
+        names = ", ".join(f"{model.inputs[j]} → {model.outputs[i]}" for j, i in zero)
+        ax_phase.set_title(f"zero at every frequency: {names}", fontsize=8, loc="left")
     if not chosen:
         first.text(0.5, 0.5, "no frequency response to draw", ha="center",
                    transform=first.transAxes)  # fmt: skip
         first.set_axis_off()
-        ax_phase.set_axis_off()
+        ax_phase.set_xticks([])
+        ax_phase.set_yticks([])
+        ax_phase.spines[:].set_visible(False)
+        _label_modes(fig, ax_modes, points)
         return fig
-    finite = np.asarray(poles, dtype=complex)
-    omegas = bode_frequencies(finite[np.isfinite(finite)])
-    H = frequency_response(model, omegas)
     hertz = omegas / (2 * math.pi)
     k = 0
     for ax, (label, members) in zip(mags, groups.values(), strict=True):
@@ -191,6 +204,8 @@ def inspect_figure(
     ax_phase.set_ylabel(axis_label("phase", "°"))
     ax_phase.set_xlabel(axis_label("frequency", "Hz"))
     style_axes(ax_phase)
+    # labels last: they are placed in display space, which every axis added above moves
+    _label_modes(fig, ax_modes, points)
     return fig
 
 
@@ -226,7 +241,9 @@ def _mode_points(poles: np.ndarray) -> tuple[list[tuple[float, float, bool]], in
     return points, origin, delays
 
 
-def _draw_modes(fig: Any, ax: Any, poles: np.ndarray) -> None:
+def _draw_modes(ax: Any, poles: np.ndarray) -> list[tuple[float, float, bool]]:
+    """The mode map without its labels; returns the points to label once the figure is
+    complete (:func:`_label_modes`)."""
     ax.set_title("modes", pad=22)
     ax.set_xlabel(axis_label("natural frequency", "Hz"))
     ax.set_ylabel("damping ratio")
@@ -260,7 +277,6 @@ def _draw_modes(fig: Any, ax: Any, poles: np.ndarray) -> None:
                    label="real pole")  # fmt: skip
         ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=2, frameon=False,
                   fontsize=8, borderaxespad=0.2)  # fmt: skip
-        _label_modes(fig, ax, points)
     hidden = []
     if origin:
         hidden.append(f"{origin} pole{'s' if origin > 1 else ''} at s = 0")
@@ -269,11 +285,14 @@ def _draw_modes(fig: Any, ax: Any, poles: np.ndarray) -> None:
     if hidden:
         ax.text(0.01, 0.02, "; ".join(hidden) + ": not on a log axis", transform=ax.transAxes,
                 fontsize=7, color=INK)  # fmt: skip
+    return points
 
 
 def _label_modes(fig: Any, ax: Any, points: list[tuple[float, float, bool]]) -> None:
     """One label per mode (the least damped first, at most :data:`MAX_MODE_LABELS`), none
-    overlapping another."""
+    overlapping another. Call it when every axis of the figure exists."""
+    if not points:
+        return
     fig.canvas.draw()  # lay the axes out first: the labels are placed in display space
     order = sorted(range(len(points)), key=lambda k: points[k][1])[:MAX_MODE_LABELS]
     placed: list[Any] = []

@@ -1,4 +1,4 @@
-"""Plain-text tables and JSON for compiled blocks."""
+"""Plain-text tables and JSON for compiled blocks and tuning reports."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import numpy as np
 
 from wirestate.lti import LARGE_BLOCK_STATES, CircuitBlock, dc_gain_limit, extreme_poles, modes
 from wirestate.units import format_count as count
-from wirestate.units import zero_round_off
+from wirestate.units import format_quantity, zero_round_off
 
 
 def table(headers: Sequence[str], rows: Sequence[Sequence[Any]], *, indent: str = "  ") -> str:
@@ -332,3 +332,114 @@ def pole_table(poles: np.ndarray, *, z: np.ndarray | None = None) -> str:
     if z is not None:
         headers.insert(0, "|z|")
     return table(headers, rows)
+
+
+# -- tuning ---------------------------------------------------------------------------------
+
+
+def text_table(rows: list[list[str]], header: list[str]) -> str:
+    """Columns of text, left-aligned under a header and a rule."""
+    widths = [max(len(str(r[i])) for r in [header, *rows]) for i in range(len(header))]
+    lines = ["  ".join(h.ljust(w) for h, w in zip(header, widths, strict=True))]
+    lines.append("  ".join("-" * w for w in widths))
+    for r in rows:
+        lines.append("  ".join(str(c).ljust(w) for c, w in zip(r, widths, strict=True)))
+    return "\n".join(lines)
+
+
+def _part_value(value: float | None, unit: str) -> str:
+    return "-" if value is None else format_quantity(value, unit)
+
+
+def _limit_rows(report: dict[str, Any]) -> list[list[str]]:
+    from wirestate.tune.report import show_margin
+
+    rows = []
+    for lim in report["limits"]:
+        kind, unit = lim["kind"], lim["unit"]
+        worst = lim.get("margin_worst_corner", lim["margin"])
+        status = "ok"
+        if lim["margin"] < 0:
+            status = "NOT MET"
+        elif worst < 0:
+            status = "corner fails"
+        rows.append(
+            [lim["name"], kind, show_margin(lim["bound"], kind, unit),
+             show_margin(lim["value"], kind, unit), show_margin(lim["margin"], kind, unit),
+             show_margin(worst, kind, unit), status]
+        )  # fmt: skip
+    return rows
+
+
+def _stress_lines(stress: list[dict[str, Any]]) -> list[str]:
+    out = ["stress at the preferred values:"]
+    for s in stress:
+        parts = [
+            f"  {s['part']} ({s['kind']}): peak {format_quantity(s['peak_current'], 'A')}, "
+            f"{format_quantity(s['peak_voltage'], 'V')}"
+        ]
+        if s["kind"] == "resistor":
+            parts.append(
+                f"energy {format_quantity(s['energy'], 'J')}, scenario average "
+                f"{format_quantity(s['average_power_scenario'], 'W')}, continuous "
+                f"{format_quantity(s['continuous_power'], 'W')} (of which ripple "
+                f"{format_quantity(s['ripple_power'], 'W')})"
+            )
+        elif "ripple_current_amplitude" in s:
+            parts.append(
+                f"ripple {format_quantity(s['ripple_current_amplitude'], 'A')} peak, "
+                f"{format_quantity(s['ripple_voltage_amplitude'], 'V')} peak"
+            )
+        for r in s["ratings"]:
+            unit = {"voltage": "V", "current": "A", "power": "W"}[r["quantity"]]
+            flag = "  <-- above rating" if r["fraction_of_rating"] > 1 else ""
+            parts.append(
+                f"{r['quantity']} {format_quantity(r['used'], unit)} of "
+                f"{format_quantity(r['rated'], unit)} rated "
+                f"({100 * r['fraction_of_rating']:.0f} %){flag}"
+            )
+        out.append("; ".join(parts))
+    return out
+
+
+def tuning_report(report: dict[str, Any]) -> str:
+    """The text ``wirestate tune`` prints for a :meth:`TuningResult.to_dict` report."""
+    from wirestate.tune.report import show_margin
+
+    out = [f"tuning {report['name']} (series {report['series']})", ""]
+    rows = [
+        [
+            name,
+            format_quantity(v["optimum"], v["unit"]),
+            _part_value(v["preferred"], v["unit"]) if v.get("snapped", True) else "not snapped",
+            f"{v['tolerance'] * 100:g} %" if v.get("tolerance") else "-",
+        ]
+        for name, v in report["variables"].items()
+    ]
+    out += [text_table(rows, ["variable", "continuous optimum", "preferred", "tolerance"]), ""]
+    header = ["limit", "kind", "bound", "value", "margin", "margin (worst corner)", "status"]
+    out.append(text_table(_limit_rows(report), header))
+    tight = report.get("tightest")
+    if tight:
+        corner = ", ".join(f"{k} = {v:.4g}" for k, v in tight["worst_corner"].items()) or "nominal"
+        kind = next((x["kind"] for x in report["limits"] if x["name"] == tight["name"]), "")
+        out += [
+            "",
+            f"tightest limit (relative to its bound): {tight['name']}, margin "
+            f"{show_margin(tight['margin_worst_corner'], kind, tight['unit'])} at the worst "
+            f"corner ({corner}); {report['corners_checked']} corners checked",
+        ]
+    if report["stress"]:
+        out += [""] + _stress_lines(report["stress"])
+    solver = report["solver"]
+    out += [
+        "",
+        f"solver: {solver['status']}, {solver['iterations']} iterations, "
+        f"{solver['seconds']:.2f} s, {solver.get('unknowns', '?')} unknowns, "
+        f"{solver.get('constraints', '?')} constraints",
+    ]
+    out += [f"note: {note}" for note in report["notes"]]
+    out += ["", "cautions:"] + [f"  - {caution}" for caution in report["cautions"]]
+    summary = report.get("verdict", {}).get("summary")
+    out += ["", f"result: {summary}" if summary else "result: see the table"]
+    return "\n".join(out)

@@ -4,21 +4,43 @@ the co-simulation :class:`Stepper`, input waveforms and results."""
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
+from importlib import import_module
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from wirestate.compose import ComposedSystem
-from wirestate.errors import SimulationError
-from wirestate.simulate import guards
-from wirestate.simulate.discretize import Discretization, foh, zoh
-from wirestate.simulate.hybrid import simulate_system
-from wirestate.simulate.initial import INITIAL_MODES, InitialState, start_from
-from wirestate.simulate.inputs import InputSet, Waveform, build_inputs, parse_waveform
-from wirestate.simulate.linear import LinearModel, as_linear_model, propagate, simulate_linear
-from wirestate.simulate.results import SimulationResult
-from wirestate.simulate.stepper import Stepper
+if TYPE_CHECKING:
+    from wirestate.simulate.discretize import Discretization, foh, zoh
+    from wirestate.simulate.hybrid import simulate_system
+    from wirestate.simulate.initial import INITIAL_MODES, InitialState, start_from
+    from wirestate.simulate.inputs import InputSet, Waveform, build_inputs, parse_waveform
+    from wirestate.simulate.linear import (
+        LinearModel,
+        as_linear_model,
+        propagate,
+        simulate_linear,
+    )
+    from wirestate.simulate.results import SimulationResult
+    from wirestate.simulate.stepper import Stepper
+
+# the public names, imported on first use (PEP 562): importing one light submodule, such
+# as the discretisation, must not pull in python-control through the composition layer
+_LAZY = {
+    "Discretization": "discretize", "foh": "discretize", "zoh": "discretize",
+    "simulate_system": "hybrid", "InputSet": "inputs", "Waveform": "inputs",
+    "build_inputs": "inputs", "parse_waveform": "inputs", "LinearModel": "linear",
+    "as_linear_model": "linear", "propagate": "linear", "simulate_linear": "linear",
+    "SimulationResult": "results", "Stepper": "stepper", "INITIAL_MODES": "initial",
+    "InitialState": "initial", "start_from": "initial",
+}  # fmt: skip
+
+
+def __getattr__(name: str) -> Any:
+    if name in _LAZY:
+        return getattr(import_module(f"wirestate.simulate.{_LAZY[name]}"), name)
+    raise AttributeError(f"module 'wirestate.simulate' has no attribute {name!r}")
+
 
 __all__ = [
     "INITIAL_MODES",
@@ -71,6 +93,10 @@ def simulate(
     the equilibrium at the inputs at t = 0) with ``initial_values`` set by state name on top
     (see :func:`~wirestate.simulate.initial.start_from`).
     """
+    from wirestate.compose import ComposedSystem
+    from wirestate.simulate import guards
+    from wirestate.simulate.initial import start_from
+
     guards.check_tolerances(options)
     if initial != "parts" or initial_values:
         model = start_from(
@@ -89,6 +115,11 @@ def simulate(
 
 
 def _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, options):
+    from wirestate.compose import ComposedSystem
+    from wirestate.errors import SimulationError
+    from wirestate.simulate.hybrid import simulate_system
+    from wirestate.simulate.linear import simulate_linear
+
     switched = _switched_run(model, hold, options)
     if switched is not None:
         return switched(
@@ -119,6 +150,7 @@ def _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, op
 def _switched_run(model: Any, hold: str, options: dict) -> Callable | None:
     """The switched engine for circuits with switches or diodes and systems with them or
     with a modulator (issue 12); ``None`` for every other model."""
+    from wirestate.errors import SimulationError
     from wirestate.simulate.averaged import simulate_averaged
     from wirestate.simulate.switched import simulate_switched
     from wirestate.simulate.switched_system import has_switching, simulate_switched_system

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import os
+import re
 import shutil
 from collections.abc import Callable
 from pathlib import Path
@@ -160,13 +161,81 @@ def check_csv_space(path: str | Path, n_samples: int, n_outputs: int) -> None:
         )
 
 
-def check_output_path(path: str | Path, option: str) -> Path:
-    """An output file path whose folder exists and is writable, checked before any work."""
+#: top-level tables of the model file kinds (circuit, system, tuning and state-space files)
+MODEL_TABLES = ("circuit", "system", "tuning", "state_space")
+
+
+#: bytes read from the start of an existing output file to tell whether it is a model: the
+#: kind table opens every model file wirestate writes or shows (after a comment at most)
+_HEAD_BYTES = 65536
+#: a model file larger than this is taken as one without parsing it whole
+_PARSE_MAX_BYTES = 64 * 2**20
+_KIND_LINE = re.compile(
+    rb"^[ \t]*(?:\[[ \t]*(circuit|system|tuning|state_space)[ \t]*\]|"
+    rb"(circuit|system|tuning|state_space)\.)",
+    re.MULTILINE,
+)
+
+
+def model_file_kind(path: str | Path) -> str | None:
+    """The kind of model file at ``path`` (its top-level table), or ``None`` when it is no
+    TOML model file (missing, binary, a CSV...).
+
+    Only the head of the file is read first, so that checking an old multi-gigabyte CSV
+    output costs nothing; a head naming a kind table is then parsed whole to confirm.
+    """
+    import tomllib
+
+    path = Path(path)
+    try:
+        with path.open("rb") as handle:
+            head = handle.read(_HEAD_BYTES)
+        if _KIND_LINE.search(head) is None:
+            return None
+        if path.stat().st_size > _PARSE_MAX_BYTES:
+            match = _KIND_LINE.search(head)
+            return (match.group(1) or match.group(2)).decode()
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, RecursionError):
+        return None
+    return next((kind for kind in MODEL_TABLES if isinstance(data.get(kind), dict)), None)
+
+
+def check_output_path(
+    path: str | Path,
+    option: str,
+    *,
+    inputs: tuple[str | Path, ...] = (),
+    replaceable: tuple[str, ...] = (),
+) -> Path:
+    """An output file path whose folder exists and is writable, checked before any work.
+
+    The path must not be one of the run's ``inputs`` (the same file under any name, a
+    link included), nor an existing model file unless its kind is in ``replaceable``
+    (``wirestate reduce`` may rewrite a state-space file): a mistyped option must never
+    overwrite the user's model.
+    """
     path = Path(path)
     folder = path.parent if str(path.parent) else Path(".")
     if path.is_dir():
         raise SimulationError(
             "unwritable_output", f"{option} names a folder, not a file", file=str(path)
+        )
+    for source in inputs:
+        if path.exists() and Path(source).exists() and path.samefile(source):
+            raise SimulationError(
+                "output_is_input",
+                f"{option} names {str(source)!r}, which this run reads; writing there would "
+                "replace it: choose another file name",
+                file=str(path),
+            )
+    kind = model_file_kind(path) if path.is_file() else None
+    if kind is not None and kind not in replaceable:
+        raise SimulationError(
+            "output_is_input",
+            f"{option} names an existing {kind.replace('_', '-')} file; writing there would "
+            "replace the model: choose another file name",
+            file=str(path),
         )
     if not folder.is_dir():
         problem = (

@@ -29,10 +29,11 @@ from typing import Any
 import numpy as np
 
 from wirestate.compose import LINEAR, SAMPLED, ComposedSystem
-from wirestate.errors import SimulationError
+from wirestate.errors import SimulationError, WirestateError
 from wirestate.lti import LARGE_BLOCK_STATES, CircuitBlock, dc_gain_limit
 from wirestate.simulate.inputs import Waveform, build_inputs, parse_waveform
 from wirestate.simulate.linear import LinearModel, as_linear_model
+from wirestate.units import parse_quantity
 
 #: ways to start: the parts' (and blocks') own initial values, zero, the steady state
 INITIAL_MODES = ("parts", "steady_state", "zero")
@@ -113,6 +114,8 @@ def start_from(
         x = _system_steady_state(model, u0, notes)
     else:
         x = _block_steady_state(model, u0, notes)
+    if initial == "steady_state":
+        _note_unstable(model, notes)
     x = np.array(x, dtype=float)
     for name, value in (values or {}).items():
         index, offset = _state_index(model, name, u0)
@@ -178,6 +181,31 @@ def _block_steady_state(model: Any, u0: np.ndarray, notes: list[str]) -> np.ndar
     if n <= LARGE_BLOCK_STATES and np.linalg.matrix_rank(A) < n:
         notes.append(_not_unique(model.name))
     return gain @ u0[used]
+
+
+def _note_unstable(model: Any, notes: list[str]) -> None:
+    """A note when the steady state is an unstable equilibrium: the run starts there, but
+    round-off and any change of the inputs grow from it. Only where the poles are cheap:
+    continuous linear models of up to ``LARGE_BLOCK_STATES`` states."""
+    if isinstance(model, ComposedSystem):
+        if not model.is_linear or len(model.states) > LARGE_BLOCK_STATES:
+            return
+        poles = np.asarray(model.state_space().poles(), dtype=complex)
+    else:
+        A = np.asarray(model.A, dtype=float)
+        if A.shape[0] == 0 or A.shape[0] > LARGE_BLOCK_STATES:
+            return
+        poles = np.linalg.eigvals(A)
+    # a pole at the origin is the not-unique case, not an unstable one (a relative round-
+    # off margin; common practice, no source)
+    unstable = poles[poles.real > 1e-9 * max(float(np.abs(poles).max(initial=0.0)), 1.0)]
+    if unstable.size:
+        fastest = unstable[np.argmax(unstable.real)]
+        notes.append(
+            f"the steady state is unstable (a pole at {fastest.real:.4g}"
+            f"{fastest.imag:+.4g}j 1/s): the run starts there, but round-off and any change "
+            f"of the inputs grow from it like exp({fastest.real:.4g} t)"
+        )
 
 
 def _block_matrices(b: Any) -> tuple[np.ndarray, ...]:
@@ -314,6 +342,18 @@ def _read(value: str | float, unit: str, name: str) -> float:
             f"an initial value is one number with its unit, such as '42V', got {value!r}",
             location=where,
         )
+    if unit in ("", "1"):
+        # a state without a unit (a balanced coordinate of a reduced block, a file without
+        # units) or a dimensionless one takes a plain number: '3A' would be read as 3 of an
+        # unknown unit without a word
+        try:
+            return parse_quantity(str(value), "1", field="")
+        except WirestateError as exc:
+            raise SimulationError(
+                exc.code,
+                f"{name} has no unit, so its initial value is a plain number (SI), got {value!r}",
+                location=where,
+            ) from None
     try:
         wave = parse_waveform(str(value), unit or None, name=name)
     except SimulationError as exc:

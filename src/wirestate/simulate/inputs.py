@@ -434,11 +434,27 @@ def _time(text: str) -> float:
     return parse_quantity(text, "s", field="")
 
 
-def _csv(rest: str, name: str, base: Path | None) -> PiecewiseLinear:
+def _csv_source(rest: str, base: Path | None) -> tuple[Path, str]:
+    """The file and the column option of a ``csv:FILE[,column=NAME]`` waveform."""
     path_text, _, option = rest.partition(",column=")
     path = Path(path_text.strip())
     if base is not None and not path.is_absolute():
         path = base / path
+    return path, option
+
+
+def input_files(waveforms: Sequence[str], base: Path | None = None) -> list[Path]:
+    """The files that ``csv:`` waveform texts read (so that no output replaces them)."""
+    found = []
+    for text in waveforms:
+        kind, sep, rest = text.strip().partition(":")
+        if sep and kind.strip().lower() == "csv":
+            found.append(_csv_source(rest, base)[0])
+    return found
+
+
+def _csv(rest: str, name: str, base: Path | None) -> PiecewiseLinear:
+    path, option = _csv_source(rest, base)
     try:
         with path.open(newline="", encoding="utf-8") as handle:
             rows = list(csv.reader(handle))

@@ -92,6 +92,27 @@ def check_plain_data(data: Any, *, file: str | None = None) -> None:
             stack.extend((v, (*where, i)) for i, v in enumerate(value))
 
 
+#: top-level table of each file kind -> how messages name the kind
+FILE_KINDS = {"circuit": "circuit", "system": "system", "tuning": "tuning",
+              "state_space": "state-space"}  # fmt: skip
+
+
+def expect_file_kind(data: Any, kind: str, *, file: str | None = None) -> None:
+    """Refuse parsed file data of another kind (its table present, ``kind``'s absent) as
+    such (``wrong_file_kind``), rather than by its first unknown field."""
+    if not isinstance(data, dict) or isinstance(data.get(kind), dict):
+        return
+    for table, name in FILE_KINDS.items():
+        if table != kind and isinstance(data.get(table), dict):
+            raise ModelFileError(
+                "wrong_file_kind",
+                f"this is a {name} file, and a {FILE_KINDS[kind]} file was expected here (a "
+                f"[{kind}] table)",
+                file=file,
+                location=(table,),
+            )
+
+
 def validate(model: type[Model], data: Any, *, file: str | None = None) -> Model:
     """Validate ``data`` against ``model``; the first problem becomes a :class:`WirestateError`."""
     check_plain_data(data, file=file)
@@ -133,6 +154,9 @@ def error_from_validation(
     elif first["type"] == "union_tag_not_found":
         message = "missing field 'kind'"
         location = location + ("kind",)
+    elif first["type"] == "float_type":
+        # strict numbers (state-space matrices): say what was given instead
+        message = f"expected a number (SI base units), got {first.get('input')!r}"
     elif first["type"] == "missing":
         message = f"missing required field {location[-1]!r}" if location else "missing field"
     elif first["type"] == "extra_forbidden":

@@ -43,13 +43,16 @@ import math
 from pathlib import Path
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, StrictFloat, field_validator, model_validator
 
 from wirestate.errors import ModelFileError
 from wirestate.spec.circuit import NAME_PATTERN, _check_name
-from wirestate.spec.load import read_toml, validate
+from wirestate.spec.load import expect_file_kind, read_toml, validate
+from wirestate.units import is_si_unit
 
-Matrix = list[list[float]]
+#: matrix entries are numbers in SI base units: text (even "1e3" or "nan") and booleans are
+#: refused rather than read, so that a quoted unit or a typo cannot slip in
+Matrix = list[list[StrictFloat]]
 
 
 class _Strict(BaseModel):
@@ -65,7 +68,7 @@ class StateSpaceHeader(_Strict):
     units: dict[str, str] = Field(
         default_factory=dict, description="unit of each input, output or state, e.g. 'V'"
     )
-    input_defaults: dict[str, float] = Field(
+    input_defaults: dict[str, StrictFloat] = Field(
         default_factory=dict, description="default drive of inputs (SI), by input name"
     )
 
@@ -84,13 +87,27 @@ class StateSpaceHeader(_Strict):
             raise ValueError(f"names given twice: {', '.join(duplicates)}")
         return values
 
+    @field_validator("units")
+    @classmethod
+    def _units(cls, values: dict[str, str]) -> dict[str, str]:
+        for name, unit in values.items():
+            if unit and not is_si_unit(unit):
+                raise ModelFileError(
+                    "wrong_unit",
+                    f"{unit!r} is not a unit in SI symbols; the matrices are in SI base "
+                    "units, so write the unit without a prefix, e.g. V, A, rad/s, N*m, 1/s "
+                    "or 1 (dimensionless)",
+                    location=("state_space", "units", name),
+                )
+        return values
+
 
 class Matrices(_Strict):
     A: Matrix = Field(description="state matrix, one row per state")
     B: Matrix = Field(description="input matrix, one row per state")
     C: Matrix = Field(description="output matrix, one row per output")
     D: Matrix = Field(description="feedthrough matrix, one row per output")
-    initial: list[float] | None = Field(default=None, description="initial state")
+    initial: list[StrictFloat] | None = Field(default=None, description="initial state")
 
 
 class ReductionSource(_Strict):
@@ -170,7 +187,9 @@ def is_state_space_file(data: dict[str, Any]) -> bool:
 
 
 def parse_state_space(data: dict[str, Any], *, file: str | None = None) -> StateSpaceSpec:
-    """Validate a state-space file given as a mapping (the parsed TOML)."""
+    """Validate a state-space file given as a mapping (the parsed TOML); a file of another
+    kind is refused as such (``wrong_file_kind``)."""
+    expect_file_kind(data, "state_space", file=file)
     return validate(StateSpaceSpec, data, file=file)
 
 

@@ -62,7 +62,7 @@ from typing import Annotated, Any, Literal
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator, model_validator
 
 from wirestate.errors import WirestateError
-from wirestate.spec.load import QuantityInput, read_toml, validate
+from wirestate.spec.load import QuantityInput, expect_file_kind, read_toml, validate
 from wirestate.units import UNITS, parse_quantity
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -345,6 +345,7 @@ class SystemSpec(_Strict):
 
 def parse_system(data: dict[str, Any], *, file: str | None = None) -> SystemSpec:
     """Validate a system given as a mapping (the parsed TOML)."""
+    expect_file_kind(data, "system", file=file)
     try:
         return validate(SystemSpec, data, file=file)
     except WirestateError as exc:

@@ -195,7 +195,7 @@ class TuningHeader(_Strict):
         if self.circuit is not None and self.system is not None:
             raise ValueError("give exactly one of 'circuit' and 'system'")
         if self.circuit is None and self.system is None and self.block is None:
-            # (neither, with 'block': the system is given in Python, see TuningModel)
+            # (neither, with 'block': the system is given in Python, see wirestate.tune.problem)
             raise ValueError("give exactly one of 'circuit' and 'system'")
         if self.system is not None and self.block is None:
             raise ValueError("with 'system', 'block' names the circuit block to size")

@@ -191,17 +191,8 @@ def held_output_maps(
     mt = casadi.mtimes
     Cl, Dl, Cc, Dc = (as_cas(m) for m in (loop.C, loop.D, C, D))
     nx, n_cl = Cc.shape[1], Cl.shape[1]
-    j = inputs.index(drive)
-    keep = [i for i in range(len(inputs)) if i != j]
-    # circuit inputs from the loop's inputs [w..., reference] and the held command
-    Ew = np.zeros((len(inputs), len(keep) + 1))
-    for column, row in enumerate(keep):
-        Ew[row, column] = 1.0
-    e = np.zeros((len(inputs), 1))
-    e[j, 0] = 1.0
     Cu, Du = Cl[-1, :], Dl[-1, :]
-    U_z = mt(casadi.DM(e), Cu)  # circuit inputs from the loop state (through u_k)
-    U_v = casadi.DM(Ew) + mt(casadi.DM(e), Du)  # ... and from the loop inputs
+    U_z, U_v = _held_inputs(Cl, Dl, inputs, drive)
     select_x = casadi.horzcat(casadi.DM.eye(nx), casadi.DM.zeros(nx, n_cl - nx))
     maps = []
     for P, G in powers:
@@ -213,6 +204,62 @@ def held_output_maps(
             C_j, D_j = np.array(C_j, dtype=float), np.array(D_j, dtype=float)
         maps.append((C_j, D_j))
     return maps
+
+
+def held_state_maps(
+    loop: Loop,
+    powers: list[tuple[Any, Any]],
+    n_states: int,
+    *,
+    inputs: list[str],
+    drive: str,
+) -> list[tuple[Any, Any]]:
+    """The circuit's state and held inputs between the samples of a loop closed by
+    :func:`close_pi` (the quantities whose quadratic forms give exact energies).
+
+    With the notation of :func:`held_output_maps`, ``j`` output steps after a sample the
+    circuit state is ``x_j = P_j x + G_j u`` and its inputs ``u = U_z z + U_v v``, so
+    ``[x_j; u] = Z_j z + W_j v``. ``n_states`` is the circuit's state count.
+
+    Returns ``[(Z_j, W_j)]`` for ``j = 0 .. len(powers) - 1``; numpy in, numpy out;
+    CasADi in, CasADi out.
+    """
+    import casadi
+
+    items = (loop.A, loop.C, *[m for pair in powers for m in pair])
+    numeric = not _is_casadi(*items)
+    as_cas = (lambda m: casadi.DM(np.atleast_2d(np.asarray(m, dtype=float)))) if numeric else (
+        lambda m: m
+    )  # fmt: skip
+    mt = casadi.mtimes
+    Cl, Dl = as_cas(loop.C), as_cas(loop.D)
+    n_cl = Cl.shape[1]
+    U_z, U_v = _held_inputs(Cl, Dl, inputs, drive)
+    select_x = casadi.horzcat(casadi.DM.eye(n_states), casadi.DM.zeros(n_states, n_cl - n_states))
+    maps = []
+    for P, G in powers:
+        P, G = as_cas(P), as_cas(G)
+        Z = casadi.vertcat(mt(P, select_x) + mt(G, U_z), U_z)
+        W = casadi.vertcat(mt(G, U_v), U_v)
+        if numeric:
+            Z, W = np.array(Z, dtype=float), np.array(W, dtype=float)
+        maps.append((Z, W))
+    return maps
+
+
+def _held_inputs(Cl: Any, Dl: Any, inputs: list[str], drive: str) -> tuple[Any, Any]:
+    """``(U_z, U_v)``: the circuit inputs ``u = U_z z + U_v v`` of a sampled PI loop from the
+    loop state ``z`` (through the held command ``u_k``, the loop's last output row) and
+    the loop inputs ``v = [w..., reference]`` (CasADi)."""
+    import casadi
+
+    j = inputs.index(drive)
+    keep = [i for i in range(len(inputs)) if i != j]
+    Ew = np.zeros((len(inputs), len(keep) + 1))
+    for column, row in enumerate(keep):
+        Ew[row, column] = 1.0
+    e = casadi.DM(np.eye(len(inputs))[:, [j]])
+    return casadi.mtimes(e, Cl[-1, :]), casadi.DM(Ew) + casadi.mtimes(e, Dl[-1, :])
 
 
 def hold_powers(Phi_h: Any, Gamma_h: Any, substeps: int) -> list[tuple[Any, Any]]:

@@ -184,15 +184,18 @@ class SystemLoop:
 
     def discrete(
         self, part: ContinuousPart, Phi_h: Any, Gamma_h: Any, substeps: int = 1
-    ) -> tuple[Any, Any, list[tuple[Any, Any]]]:
+    ) -> tuple[Any, Any, list[tuple[Any, Any]], list[tuple[Any, Any]]]:
         """The discrete loop over one sample period from the continuous part and its
         zero-order hold ``(Phi_h, Gamma_h)`` over ``period / substeps``.
 
-        Returns ``(Phi_cl, Gamma_cl, maps)``: the loop over one period in the states
+        Returns ``(Phi_cl, Gamma_cl, maps, held)``: the loop over one period in the states
         :attr:`all_states` and inputs :attr:`inputs`, and ``maps[j] = (C_j, D_j)`` giving
         the outputs :attr:`signals` ``j`` substeps after a sample (``j = 0``: at the
         sample) from the state and inputs at that sample: the continuous part advanced by
         ``Phi_h**j`` with the sampled outputs held, those outputs themselves constant.
+        ``held[j] = (Z_j, W_j)`` give the continuous part's state and inputs
+        ``[x_j; w; ys]`` ``j`` substeps after a sample as ``Z_j z + W_j w``
+        (``x_j = P_j x + Gw_j w + Gs_j ys``, ``ys = Yx z + Yw w``), for exact energies.
         """
         import casadi
 
@@ -233,7 +236,13 @@ class SystemLoop:
             C_j = casadi.vertcat(mt(mt(Cy, P), select_x) + mt(via_held, Yx), Yx)
             D_j = casadi.vertcat(mt(Cy, Gw_j) + Dyw + mt(via_held, Yw), Yw)
             maps.append((_back(C_j, numeric), _back(D_j, numeric)))
-        return _back(Phi_cl, numeric), _back(Gamma_cl, numeric), maps
+        held = []
+        for P, G in powers[:substeps]:
+            Gw_j, Gs_j = G[:, :nw], G[:, nw:]
+            Z = casadi.vertcat(mt(P, select_x) + mt(Gs_j, Yx), casadi.DM.zeros(nw, nx + ns), Yx)
+            W = casadi.vertcat(Gw_j + mt(Gs_j, Yw), casadi.DM.eye(nw), Yw)
+            held.append((_back(Z, numeric), _back(W, numeric)))
+        return _back(Phi_cl, numeric), _back(Gamma_cl, numeric), maps, held
 
 
 def not_a_circuit_block(system: ComposedSystem, design: Any, file: str | None) -> TuningError:

@@ -1,0 +1,541 @@
+"""IPOPT on the formulated NLP, with an exchange over corners and samples: stage 4.
+
+Input: a :class:`~wirestate.tune.problem.Problem`. Output: a :class:`SolverResult` (the
+continuous optimum, or the least-violation point, with IPOPT's status and figures).
+
+Most rows never bind: of the thousands of samples a limit covers, only those where its
+signal peaks matter, and of the tolerance corners only a few. So the NLP starts with, per
+limit, the point (nominal values or a corner) that is worst at the start, and at each
+imposed point only the samples where each limit's signal peaks (and their neighbours).
+After each solve every sample of every limit at every point is checked numerically in
+one batch (:meth:`Problem.evaluate`); the violated peaks join the NLP (a violated corner
+brings its peaks of every limit), which is solved again from the last optimum. When
+nothing is violated the point is feasible for the full problem and optimal for a
+relaxation of it, hence optimal for the full problem: the exchange method of
+semi-infinite programming (Hettich and Kortanek, SIAM Review 35(3), 1993). A test checks
+that it lands on the optimum of the NLP that imposes every row.
+
+IPOPT (Wachter and Biegler, Math. Programming 106, 2006) gets exact first derivatives by
+algorithmic differentiation (CasADi chooses forward or reverse mode by the shape of each
+Jacobian: reverse for few rows and many variables) and, by default, a limited-memory
+quasi-Newton (L-BFGS) Hessian; the exact Hessian is an option.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from wirestate.tune import limits as measures
+from wirestate.tune.evaluation import Evaluation
+from wirestate.tune.formulation import (
+    FORMULATIONS,
+    ActiveSet,
+    Formulation,
+    bound_size,
+    formulate,
+    scaled,
+    values_of,
+)
+from wirestate.tune.margins import margin_table
+
+if TYPE_CHECKING:
+    from wirestate.tune.problem import Problem
+
+Progress = Callable[[str], None] | None
+HESSIANS = ("exact", "limited_memory")
+#: IPOPT statuses taken as converged
+CONVERGED = ("Solve_Succeeded", "Solved_To_Acceptable_Level")
+INFEASIBLE = ("Infeasible_Problem_Detected", "Restoration_Failed")
+#: a row counts as violated when it exceeds its bound by this fraction of the bound (the
+#: optimiser meets its rows to about 1e-9 of each bound)
+EXCHANGE_TOLERANCE = 1e-8
+#: at most this many rounds of the exchange
+EXCHANGE_ROUNDS = 12
+FIRST_CORNERS = True
+#: rows where a limit's signal peaks, imposed per point and limit at first
+FIRST_PEAKS = 2
+#: violated peaks added per point and limit in one round (the worst first)
+ADDED_PEAKS = 4
+#: samples either side of a peak imposed with it (a peak moves as the values change)
+NEIGHBOURS = 2
+#: IPOPT options for a later round, started from the last optimum and its multipliers
+#: with a small barrier parameter, so that it does not first move back into the interior
+WARM_START = {
+    "ipopt.warm_start_init_point": "yes",
+    "ipopt.mu_init": 1e-6,
+    "ipopt.warm_start_bound_push": 1e-9,
+    "ipopt.warm_start_bound_frac": 1e-9,
+    "ipopt.warm_start_slack_bound_push": 1e-9,
+    "ipopt.warm_start_slack_bound_frac": 1e-9,
+    "ipopt.warm_start_mult_bound_push": 1e-9,
+}
+#: a later round starts at the first of these fractions of the way from the last optimum
+#: back to the start at which every imposed row holds with a relative slack of
+#: RESTART_SLACK (an interior point near the optimum; IPOPT's warm start from the optimum
+#: itself, where the new rows are violated, took several times more iterations)
+RESTART_STEPS = (0.05, 0.1, 0.2, 0.35, 0.5, 0.75)
+RESTART_SLACK = 1e-3
+#: a limit imposed whole (energy, poles) joins a point only once it is this close to its
+#: bound (relative margin below 0.5) there, or violated
+WHOLE_LIMIT_MARGIN = 0.5
+
+
+@dataclass
+class SolverResult:
+    """The outcome of :func:`solve_nlp` (design-variable values in SI units)."""
+
+    values: dict[str, float]
+    status: str
+    success: bool
+    iterations: int
+    objective: float
+    seconds: float
+    squarings: int
+    truncation_bound: float
+    constraint_violation: float
+    stats: dict[str, Any] = field(default_factory=dict)
+    #: the tolerance corners (factor mappings) the optimiser imposed at the end: the ones
+    #: that bind, which the snapping tries first
+    corners: list[dict[str, float]] = field(default_factory=list)
+
+    @property
+    def converged(self) -> bool:
+        return self.status in CONVERGED
+
+
+#: the former name
+NlpSolution = SolverResult
+
+
+def is_stable_discrete(Phi: np.ndarray) -> bool:
+    """True when every eigenvalue of the one-sample transition matrix lies inside the unit
+    circle (with a margin of 1e-9 for round-off)."""
+    return bool(np.max(np.abs(np.linalg.eigvals(Phi))) < 1.0 - 1e-9)
+
+
+def points_of(problem: Problem, robust: bool, corner_factors: list | None) -> list[dict]:
+    """The points the limits hold at: the nominal values, and every tolerance corner when
+    robust (or the given corners)."""
+    if not robust:
+        return [{}]
+    toleranced, factors = problem.tolerance_corners()
+    if corner_factors is not None:
+        factors = list(corner_factors)
+    return [{}] + (factors if toleranced else [])
+
+
+def solve_nlp(
+    problem: Problem,
+    *,
+    progress: Progress = None,
+    max_iterations: int = 300,
+    tolerance: float = 1e-8,
+    formulation: str = "auto",
+    hessian: str = "limited_memory",
+    robust: bool = False,
+    corner_factors: list[dict[str, float]] | None = None,
+    start: dict[str, float] | None = None,
+    rows: str = "exchange",
+    start_evaluation: Evaluation | None = None,
+) -> SolverResult:
+    """The continuous optimum of ``problem``; see the module docstring.
+
+    Parameters
+    ----------
+    formulation
+        ``"condensed"``, ``"multiple_shooting"`` or ``"auto"`` (condensed when the loop is
+        stable at the starting point at every point, multiple shooting otherwise).
+    hessian
+        ``"limited_memory"`` (IPOPT's L-BFGS from exact gradients) or ``"exact"``.
+    robust
+        Impose every limit at every tolerance corner too (or at ``corner_factors`` only).
+    start
+        Starting values of the design variables (default: the problem's start).
+    rows
+        ``"exchange"`` (peaks first, violated rows added) or ``"all"`` (every row and every
+        point imposed at once, as a reference).
+    start_evaluation
+        The numeric evaluation at the starting values, when the caller has it already.
+    """
+    if formulation not in FORMULATIONS:
+        raise ValueError(f"internal: unknown formulation {formulation!r}")
+    if hessian not in HESSIANS:
+        raise ValueError(f"internal: unknown Hessian option {hessian!r}")
+    t0 = time.perf_counter()
+    nominal_start = problem.start_values()
+    begin = {**nominal_start, **(start or {})}
+    start_ev = start_evaluation or problem.evaluate([nominal_start])
+    exchange = Exchange(problem, points_of(problem, robust, corner_factors), start_ev)
+    at_start = exchange.evaluate(begin)
+    if formulation == "auto":
+        stable = all(is_stable_discrete(at_start.Phi[i]) for i in range(len(exchange.points)))
+        formulation = "condensed" if stable else "multiple_shooting"
+    active = exchange.everything() if rows == "all" else exchange.first(at_start)
+    run = _Runner(problem, progress, max_iterations, tolerance, hessian)
+    rounds, settled, last = 0, False, None
+    while True:
+        rounds += 1
+        if robust or rows != "all":
+            run.say_round(rounds, active, exchange)
+        here = begin if last is None else exchange.restart(begin, last, active)
+        # the states along the start trajectory seed multiple shooting only
+        shooting = formulation == "multiple_shooting" and here is not begin
+        used = exchange.subset(active, exchange.evaluate(here) if shooting else at_start)
+        nlp = formulate(problem, used[0], start_ev, here, used[1], kind=formulation)
+        outcome = run.solve(nlp)
+        last, at_optimum = outcome["values"], None
+        if not outcome["converged"] or rows == "all" or rounds >= EXCHANGE_ROUNDS:
+            break
+        at_optimum = exchange.evaluate(outcome["values"])
+        grown, violated = exchange.grow(active, at_optimum)
+        settled = violated == 0
+        if settled or grown is None:
+            break
+        active = grown
+    final = at_optimum if at_optimum is not None else exchange.evaluate(last)
+    return run.result(outcome, nlp, exchange, active, (rounds, settled, final), t0, formulation,
+                      robust)  # fmt: skip
+
+
+class Exchange:
+    """The points, the rows of every limit, and the choice of the rows the NLP imposes."""
+
+    def __init__(self, problem: Problem, points: list[dict], start: Evaluation) -> None:
+        self.problem = problem
+        self.points = points
+        self.start = start
+        self.limits = problem.spec.limits
+
+    def evaluate(self, values: dict[str, float]) -> Evaluation:
+        """Every point at these design-variable values, numerically, in one batch."""
+        return self.problem.evaluate([self.problem.corner_values(values, f) for f in self.points])
+
+    def excess(self, batch: Evaluation) -> list[np.ndarray]:
+        """Per limit: the relative excess (> 0: violated) of every row at every point,
+        points x rows (one column for a limit imposed whole)."""
+        out = []
+        table = None
+        for limit in self.limits:
+            if measures.row_count(limit, self.problem) is None:
+                if table is None:
+                    table = margin_table(self.problem, batch, self.start, fine=False)
+                j = self.limits.index(limit)
+                out.append(-np.nan_to_num(table.relative[:, j : j + 1], nan=-np.inf))
+                continue
+            size = bound_size(limit)
+            parts = []
+            for expr, lower, upper in measures.ranges(limit, self.problem, batch, self.start):
+                expr = np.asarray(expr, dtype=float)
+                if upper is not None:
+                    parts.append((expr - upper) / size)
+                if lower is not None:
+                    parts.append((lower - expr) / size)
+            with np.errstate(invalid="ignore"):
+                out.append(np.nan_to_num(np.maximum.reduce(parts), nan=np.inf))
+        return out
+
+    def restart(self, start: dict, optimum: dict, active: ActiveSet) -> dict[str, float]:
+        """The point nearest the last optimum, on the way back to the start, at which every
+        row of ``active`` holds (the start itself if none does)."""
+        problem = self.problem
+        names, bounds = problem.variables, problem.bounds
+        q0, q1 = (scaled(names, bounds, v) for v in (start, optimum))
+        steps = RESTART_STEPS
+        candidates = [values_of(names, bounds, q1 + t * (q0 - q1)) for t in steps]
+        used = sorted({0} | {p for p, _ in active.rows})
+        batch = problem.evaluate(
+            [problem.corner_values(c, self.points[p]) for c in candidates for p in used]
+        )
+        excess = self.excess(batch)
+        count = len(used)
+        for i, candidate in enumerate(candidates):
+            worst = -np.inf
+            for (p, j), positions in active.rows.items():
+                r = excess[j][i * count + used.index(p)]
+                r = r if positions is None or r.size == 1 else r[positions]
+                worst = max(worst, float(np.max(r)))
+            if worst < -RESTART_SLACK:
+                return candidate
+        return start
+
+    def everything(self) -> ActiveSet:
+        """Every row of every limit at every point."""
+        rows = {(p, j): None for p in range(len(self.points)) for j in range(len(self.limits))}
+        return ActiveSet(list(self.points), rows)
+
+    def first(self, batch: Evaluation) -> ActiveSet:
+        """The nominal point and, per limit, its worst point; at each, the peaks."""
+        excess = self.excess(batch)
+        chosen = {0}
+        if FIRST_CORNERS:
+            for r in excess:
+                chosen.add(int(np.argmax(np.max(r, axis=1))))
+        rows: dict[tuple[int, int], Any] = {}
+        for p in sorted(chosen):
+            for j, r in enumerate(excess):
+                self._add_peaks(rows, p, j, r[p], first=True)
+        return ActiveSet(list(self.points), rows)
+
+    def _add_peaks(self, rows: dict, p: int, j: int, r: np.ndarray, *, first: bool) -> bool:
+        """Add the peaks of one limit's excess at one point; True when rows were added."""
+        if measures.row_count(self.limits[j], self.problem) is None:
+            # pole rows are few and keep the loop stable, so they are always imposed
+            always = self.limits[j].kind in measures.POLE_KINDS
+            near = r[0] > -WHOLE_LIMIT_MARGIN if first else r[0] > EXCHANGE_TOLERANCE
+            near = near or always
+            if near and (p, j) not in rows:
+                rows[(p, j)] = None
+                return True
+            return False
+        old = rows.get((p, j))
+        if (p, j) in rows and old is None:
+            return False
+        if first:
+            new = peaks(r, FIRST_PEAKS)
+        else:
+            new = peaks(np.where(r > EXCHANGE_TOLERANCE, r, -np.inf), ADDED_PEAKS)
+        merged = np.union1d(np.asarray(old if old is not None else [], dtype=int), new)
+        if old is not None and len(merged) == len(old):
+            return False
+        rows[(p, j)] = merged.astype(int)
+        return True
+
+    def grow(self, active: ActiveSet, batch: Evaluation) -> tuple[ActiveSet | None, int]:
+        """The active set with the violated rows added (``None`` when none is new) and
+        the number of (point, limit) pairs still violated."""
+        excess = self.excess(batch)
+        rows = dict(active.rows)
+        imposed = {p for p, _ in rows}
+        violated, added = 0, False
+        for j, r in enumerate(excess):
+            worst = np.max(r, axis=1)
+            violated += int(np.sum(worst > EXCHANGE_TOLERANCE))
+            for p in np.flatnonzero(worst > EXCHANGE_TOLERANCE):
+                if int(p) in imposed:
+                    added |= self._add_peaks(rows, int(p), j, r[p], first=False)
+            p = int(np.argmax(worst))
+            if worst[p] > EXCHANGE_TOLERANCE and p not in imposed:
+                imposed.add(p)
+                for k, rk in enumerate(excess):
+                    self._add_peaks(rows, p, k, rk[p], first=True)
+                    self._add_peaks(rows, p, k, rk[p], first=False)
+                added = True
+        return (ActiveSet(active.points, rows) if added else None), violated
+
+    def subset(self, active: ActiveSet, batch: Evaluation) -> tuple[ActiveSet, Evaluation]:
+        """The active set restricted to its imposed points (the nominal point always
+        first), and the evaluation rows of those points."""
+        used = sorted({0} | {p for p, _ in active.rows})
+        where = {p: i for i, p in enumerate(used)}
+        rows = {(where[p], j): pos for (p, j), pos in active.rows.items()}
+        picked = batch.take(used)
+        return ActiveSet([active.points[p] for p in used], rows), picked
+
+    def row_counts(self, active: ActiveSet) -> tuple[int, int]:
+        """Rows imposed and rows in all (every sample of every limit at every point)."""
+        total = imposed = 0
+        for j, limit in enumerate(self.limits):
+            count = measures.row_count(limit, self.problem) or 1
+            total += count * len(self.points)
+            for (_point, k), pos in active.rows.items():
+                if k == j:
+                    imposed += count if pos is None else len(pos)
+        return imposed, total
+
+
+def peaks(r: np.ndarray, count: int) -> np.ndarray:
+    """Positions of the ``count`` largest local maxima of ``r`` and their neighbours."""
+    r = np.asarray(r, dtype=float)
+    if r.size == 0:
+        return np.array([], dtype=int)
+    left = np.concatenate([[-np.inf], r[:-1]])
+    right = np.concatenate([r[1:], [-np.inf]])
+    local = np.flatnonzero((r >= left) & (r >= right) & np.isfinite(r))
+    if local.size == 0:
+        return np.array([], dtype=int)
+    best = local[np.argsort(-r[local], kind="stable")[:count]]
+    around = np.concatenate([best + k for k in range(-NEIGHBOURS, NEIGHBOURS + 1)])
+    return np.unique(around[(around >= 0) & (around < r.size)])
+
+
+class _Runner:
+    """Builds the solver for each formulation and keeps the figures of every round."""
+
+    def __init__(self, problem, progress, max_iterations, tolerance, hessian) -> None:
+        self.problem = problem
+        self.progress = progress
+        self.hessian = hessian
+        self.options: dict[str, Any] = {
+            "print_time": False,
+            "ipopt.print_level": 0,
+            "ipopt.sb": "yes",
+            "ipopt.max_iter": max_iterations,
+            "ipopt.tol": tolerance,
+            # the defects carry rounding of order 1e-8 of the state scale (products of
+            # the exponential with the states); asking for less stalls IPOPT in round-off
+            "ipopt.constr_viol_tol": 1e-6,
+            "ipopt.acceptable_iter": 3,
+            "ipopt.mu_strategy": "adaptive",
+            # approximate minimum degree ordering for MUMPS: on these KKT systems (a few
+            # dense columns of design variables against many rows) it factors fastest
+            "ipopt.mumps_pivot_order": 0,
+            "ipopt.hessian_approximation": "exact" if hessian == "exact" else "limited-memory",
+        }
+        self.iterations = 0
+        self.previous: tuple[Formulation, np.ndarray, np.ndarray] | None = None
+        self.solvers: list[Any] = []
+        self.times = {"build": 0.0, "derivatives": 0.0, "ipopt": 0.0, "evaluations": 0.0}
+
+    def _multipliers(self, nlp: Formulation) -> dict[str, np.ndarray]:
+        """The last round's multipliers for the rows (and unknowns) this round keeps."""
+        old, lam_x, lam_g = self.previous
+        by_key = {k: v for k, v in zip(old.keys, lam_g, strict=True) if k is not None}
+        out = {"lam_g0": np.array([by_key.get(k, 0.0) if k is not None else 0.0 for k in nlp.keys])}
+        if old.unknowns == nlp.unknowns:
+            out["lam_x0"] = lam_x
+        return out
+
+    def say_round(self, rounds: int, active: ActiveSet, exchange: Exchange) -> None:
+        if self.progress is None:
+            return
+        imposed, total = exchange.row_counts(active)
+        used = len({0} | {p for p, _ in active.rows})
+        corners = f", {used - 1} of {len(exchange.points) - 1} tolerance corners" if len(
+            exchange.points
+        ) > 1 else ""  # fmt: skip
+        self.progress(f"round {rounds}: {imposed} of {total} rows imposed{corners}")
+
+    def solve(self, nlp: Formulation) -> dict[str, Any]:
+        import casadi
+
+        t0 = time.perf_counter()
+        options = dict(self.options)
+        arguments = {"x0": nlp.x0, "lbx": nlp.lbx, "ubx": nlp.ubx, "lbg": nlp.lbg, "ubg": nlp.ubg}
+        if self.previous is not None:
+            options.update(WARM_START)
+            arguments.update(self._multipliers(nlp))
+        if self.progress is not None:
+            options["iteration_callback"] = _iteration_report(nlp, self.progress, self.iterations)
+        t1 = time.perf_counter()
+        solver = casadi.nlpsol("tune", "ipopt", nlp.nlp, options)
+        # CasADi keeps the derivative functions of the compiled loop only while something
+        # refers to them: the solvers of earlier rounds do, so later rounds reuse them
+        self.solvers.append(solver)
+        t2 = time.perf_counter()
+        raw = solver(**arguments)
+        t3 = time.perf_counter()
+        self.previous = (nlp, np.array(raw["lam_x"]).ravel(), np.array(raw["lam_g"]).ravel())
+        stats = solver.stats()
+        self.iterations += int(stats.get("iter_count", 0))
+        self.times["derivatives"] += t2 - t1
+        self.times["ipopt"] += t3 - t2
+        self.times["evaluations"] += sum(
+            float(v) for k, v in stats.items() if k.startswith("t_wall_nlp_") and v is not None
+        )
+        self.times["build"] += t1 - t0
+        status = str(stats.get("return_status", "unknown"))
+        x = np.array(raw["x"]).ravel()
+        return {
+            "values": nlp.values(x), "x": x, "f": float(raw["f"]), "status": status,
+            "success": bool(stats.get("success", False)), "converged": status in CONVERGED,
+        }  # fmt: skip
+
+    def result(self, outcome, nlp, exchange, active, ending, t0, kind, robust):
+        """The :class:`SolverResult`; ``ending`` is (rounds, settled, the evaluation of
+        every point at the last optimum)."""
+        rounds, settled, final = ending
+        loop = self.problem.parametric()
+        imposed, total = exchange.row_counts(active)
+        violation = (
+            max(float(np.max(r)) for r in exchange.excess(final)) if exchange.limits else 0.0
+        )
+        stats = {
+            "formulation": kind,
+            "hessian": self.hessian,
+            "unknowns": nlp.unknowns,
+            "constraints": nlp.constraints,
+            "rows_imposed": imposed,
+            "rows_total": total,
+            "exchange_rounds": rounds,
+            "exchange_settled": settled,
+            "seconds_building_expressions": self.times["build"],
+            "seconds_generating_derivatives": self.times["derivatives"],
+            "seconds_in_ipopt": self.times["ipopt"],
+            "seconds_in_ipopt_function_evaluations": self.times["evaluations"],
+        }
+        if robust:
+            used = len({p for p, _ in active.rows} - {0})
+            stats["tolerance_corners_in_optimiser"] = used
+            stats["tolerance_corners"] = len(exchange.points) - 1
+        return SolverResult(
+            values=outcome["values"],
+            status=outcome["status"],
+            success=outcome["success"],
+            iterations=self.iterations,
+            objective=outcome["f"],
+            seconds=time.perf_counter() - t0,
+            squarings=loop.squarings,
+            truncation_bound=loop.truncation_bound,
+            constraint_violation=max(violation, 0.0),
+            stats=stats,
+            corners=[exchange.points[p] for p in sorted({p for p, _ in active.rows} - {0})],
+        )
+
+
+def _iteration_report(nlp: Formulation, progress: Callable[[str], None], offset: int) -> Any:
+    """A CasADi iteration callback forwarding IPOPT's iterations to ``progress``."""
+    import casadi
+
+    sizes = {"x": nlp.unknowns, "g": nlp.constraints}
+
+    class Callback(casadi.Callback):
+        def __init__(self) -> None:
+            casadi.Callback.__init__(self)
+            self.count = offset
+            self.construct("tune_progress", {})
+
+        def get_n_in(self):
+            return casadi.nlpsol_n_out()
+
+        def get_n_out(self):
+            return 1
+
+        def get_name_in(self, i):
+            return casadi.nlpsol_out(i)
+
+        def get_name_out(self, i):
+            return "ret"
+
+        def get_sparsity_in(self, i):
+            name = casadi.nlpsol_out(i)
+            if name == "f":
+                return casadi.Sparsity.scalar()
+            if name in ("x", "lam_x"):
+                return casadi.Sparsity.dense(sizes["x"])
+            if name in ("g", "lam_g"):
+                return casadi.Sparsity.dense(sizes["g"])
+            return casadi.Sparsity(0, 0)
+
+        def eval(self, arg):
+            self.count += 1
+            progress(iteration_line(self.count, float(arg[1])))
+            return [0]
+
+    return Callback()
+
+
+class Transient(str):
+    """A progress line that the next one replaces (an optimiser iteration): a terminal
+    shows it in place; a log may keep only some."""
+
+    transient = True
+
+
+def iteration_line(count: int, objective: float) -> Transient:
+    """The progress line of one optimiser iteration."""
+    return Transient(f"solver iteration {count}: objective {objective:.6g}")
