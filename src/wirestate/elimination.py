@@ -192,13 +192,22 @@ def eliminate(
     if len(pivots) < n_unknowns:  # pragma: no cover - every column is pivoted once
         done = {j for _, j in pivots}
         raise SingularEquations(next(j for j in range(n_unknowns) if j not in done))
-    # back substitution in reverse pivot order: every other unknown in a pivot row was
-    # pivoted later, so its form is known by then
-    solution: list[LinearRow] = [{} for _ in range(n_unknowns)]
+    solution = _back_substitution(R, K, pivots, budget - entries)
+    return None if solution is None else Elimination(solution, pivots, contested)
+
+
+def _back_substitution(
+    R: list[LinearRow], K: list[LinearRow], pivots: list[tuple[int, int]], budget: float
+) -> list[LinearRow] | None:
+    """The solution from the eliminated rows, in reverse pivot order: every other unknown
+    in a pivot row was pivoted later, so its form is known by then (``None`` past
+    ``budget`` new entries)."""
+    solution: list[LinearRow] = [{} for _ in pivots]
+    entries = 0
     for p, j in reversed(pivots):
         row = R[p]
         pivot = row[j]
-        form = {k: -v / pivot for k, v in K[p].items() if not is_zero(v)}
+        form = {k: -v / pivot for k, v in K[p].items() if not is_exact_zero(v)}
         for k, v in row.items():
             if k == j:
                 continue
@@ -209,7 +218,7 @@ def eliminate(
         entries += len(form)
         if entries > budget:
             return None
-    return Elimination(solution, pivots, contested)
+    return solution
 
 
 def _markowitz(

@@ -140,9 +140,8 @@ def _elimination_budget(n_w: int, width: int) -> int:
 def _solve_numeric(eq: Equations, layout: _Layout) -> tuple[_Solution, list | None]:
     """The solved equations and the elimination's pivots (``None`` after SuperLU)."""
     n_x, width = layout.n_x, layout.width
-    rows, known = _rows(eq.rows, layout)
     try:
-        result = eliminate(rows, known, eq.n_w, budget=_elimination_budget(eq.n_w, width))
+        result = _eliminated(eq, layout, budget=_elimination_budget(eq.n_w, width))
     except SingularEquations:
         raise _singular_error(eq) from None
     if result is None:
@@ -163,6 +162,13 @@ def _solve_numeric(eq: Equations, layout: _Layout) -> tuple[_Solution, list | No
         # every pivot was non-zero, so the equations are regular: the numbers overflowed
         raise _overflow_error(eq)
     return _split_solution(Wd, Y, Y_size, layout), result.pivots
+
+
+def _eliminated(eq: Equations, layout: _Layout | None = None, **options: Any) -> Any:
+    """:func:`wirestate.elimination.eliminate` on the stamped rows (``options`` as there):
+    the one elimination of the numeric compile, its replay and the checks of its pivots."""
+    rows, known = _rows(eq.rows, layout or _layout(eq))
+    return eliminate(rows, known, eq.n_w, **options)
 
 
 def _output_forms(
@@ -698,23 +704,21 @@ def symbolic_from_equations(
     *,
     mx: bool,
     linear_solver: str = "symbolicqr",
-    order: Sequence[tuple[int, int]] | None = None,
 ) -> SymbolicStateSpace:
     """Eliminate equations stamped with CasADi values; ``block`` is their numeric compile.
 
-    The symbolic half of :func:`block_from_equations`: the pivots ``order`` (default: the
-    block's :attr:`~wirestate.lti.CircuitBlock.elimination_order`) are replayed on the
-    CasADi rows by :func:`wirestate.elimination.eliminate`, the same function and the same
-    operations as the numeric compile. ``block`` also fixes which states are shifted. A
+    The symbolic half of :func:`block_from_equations`: the block's pivots
+    (:attr:`~wirestate.lti.CircuitBlock.elimination_order`) are replayed on the CasADi rows
+    by :func:`wirestate.elimination.eliminate`, the same function and the same operations
+    as the numeric compile. ``block`` also fixes which states are shifted. A
     block compiled by SuperLU (a dense solution) has no pivots; then CasADi's ``solve``
     eliminates (symbolic QR for ``SX``, ``linear_solver`` for ``MX``).
     """
     import casadi
 
     kind = casadi.MX if mx else casadi.SX
-    order = block.elimination_order if order is None else order
-    if order is not None:
-        return _replay(eq, block, kind, order)[0]
+    if block.elimination_order is not None:
+        return _replay(eq, block, kind, block.elimination_order)[0]
     layout = _layout(eq)
     w_t, k_t = _triplets(eq.rows, layout)
     M = _casadi_matrix(kind, w_t, (len(eq.rows), eq.n_w))
@@ -732,10 +736,9 @@ def _replay(
 ) -> tuple[SymbolicStateSpace, dict[int, list[Any]]]:
     """The matrices by the replayed elimination, and its contested columns."""
     layout = _layout(eq)
-    rows, known = _rows(eq.rows, layout)
     y_unknown, y_known = _rows(eq.outputs, layout)
     with _exact_casadi_arithmetic():
-        result = eliminate(rows, known, eq.n_w, order=order)
+        result = _eliminated(eq, layout, order=order)
         assert result is not None  # no budget: a replay never gives up
         y_forms = _output_forms(y_unknown, y_known, result.solution)
         Y = _casadi_from_forms(kind, y_forms, layout)
@@ -838,13 +841,10 @@ def _numeric_order(
 ) -> list[tuple[int, int]]:
     """The pivots the numeric elimination chooses at ``values``."""
     eq = assemble(topology, values, probes=probes)
-    rows, known = _rows(eq.rows, _layout(eq))
     try:
-        result = eliminate(rows, known, eq.n_w)
+        return _eliminated(eq).pivots  # no budget: never None
     except SingularEquations:
         raise _singular_error(eq) from None
-    assert result is not None  # no budget
-    return result.pivots
 
 
 def _box_failure(
@@ -866,9 +866,8 @@ def _box_failure(
     acting = [name for name in box if name in acting_names]
     for corner in _corners(acting, box):
         eq = assemble(topology, {**values, **corner}, probes=probes)
-        rows, known = _rows(eq.rows, _layout(eq))
         try:
-            eliminate(rows, known, eq.n_w, order=order, min_ratio=MIN_PIVOT_RATIO)
+            _eliminated(eq, order=order, min_ratio=MIN_PIVOT_RATIO)
         except UnstablePivot as exc:
             return _PivotFailure(corner, eq.row_labels[exc.row], exc.ratio)
         except SingularEquations as exc:

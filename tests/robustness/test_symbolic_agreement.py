@@ -69,17 +69,27 @@ def test_symbolic_and_numeric_agree_entry_by_entry(decades):
                 assert np.all(np.abs(got - want) <= 1e-13 * np.abs(want)), spec.name
 
 
-def _reference(spec):
-    """A, B, C, D from the stamped equations solved in 50-digit arithmetic (mpmath)."""
+def solved_in_mpmath(spec, replaced=None, digits=50):
+    """The stamped equations solved in ``digits``-digit arithmetic (mpmath, the reference
+    library, by its dense LU): ``(W, Y, eq, layout)`` with every unknown ``W`` and output
+    ``Y`` as mpmath matrices over the columns ``[x; u]``. ``replaced`` gives some part
+    values as mpmath numbers; work on the results at the same precision."""
+    import mpmath
+
+    with mpmath.workdps(digits):
+        return _solved(spec, replaced)
+
+
+def _solved(spec, replaced):
     import mpmath
 
     from wirestate.equations import Backend, assemble, nominal_values
     from wirestate.reduce import _layout, _triplets
     from wirestate.topology import analyse
 
-    mpmath.mp.dps = 50
     topology = analyse(spec)
     values = {k: mpmath.mpf(v) for k, v in nominal_values(topology).items()}
+    values.update(replaced or {})
     eq = assemble(topology, values, Backend(sqrt=mpmath.sqrt))
     layout = _layout(eq)
     assert not layout.du_inputs  # no shifted states in these circuits
@@ -95,7 +105,12 @@ def _reference(spec):
         matrices.append((Mw, Mk))
     (M, N), (Yw, Yk) = matrices
     W = -(M**-1 * N)
-    Y = Yw * W + Yk
+    return W, Yw * W + Yk, eq, layout
+
+
+def _reference(spec):
+    """A, B, C, D from the stamped equations solved in 50-digit arithmetic (mpmath)."""
+    W, Y, eq, layout = solved_in_mpmath(spec)
     n, m, d = layout.n_x, layout.n_u, eq.d_offset
 
     def dense(source, rows, cols):
