@@ -26,9 +26,8 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.errors import CompileError
 from wirestate.lti import CircuitBlock
-from wirestate.reduce import compile_circuit, symbolic_state_space
+from wirestate.reduce import check_valued_parts, compile_circuit, symbolic_state_space
 from wirestate.spec import CircuitSpec
 from wirestate.spec.circuit import part_parameter
 
@@ -70,14 +69,7 @@ class ParametricCircuit:
 
         self.spec = spec
         self.parameters = list(parameters)
-        for name in self.parameters:
-            part = spec.parts.get(name)
-            if part is None or part_parameter(part.kind) is None:
-                raise CompileError(
-                    "unknown_part",
-                    f"{name!r} is not a part with a value of circuit {spec.name!r}",
-                    location=("parts", name),
-                )
+        check_valued_parts(spec, self.parameters)
         self.block: CircuitBlock = compile_circuit(spec)
         self.nominal = np.array(
             [float(getattr(spec.parts[n], part_parameter(spec.parts[n].kind))) for n in parameters]

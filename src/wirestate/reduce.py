@@ -595,13 +595,17 @@ def valued_parts(spec: CircuitSpec) -> list[str]:
 
 def check_valued_parts(spec: CircuitSpec, names: Iterable[str]) -> None:
     """Refuse (``unknown_part``) any name that is not a part with a primary value."""
-    valued = valued_parts(spec)
+    _refuse_unknown(names, valued_parts(spec), "a part with a value", "parts with values")
+
+
+def _refuse_unknown(names: Iterable[str], known: Iterable[str], what: str, listed: str) -> None:
+    """``unknown_part`` for the first of ``names`` not in ``known``, listing ``known``."""
+    known = list(known)
     for name in names:
-        if name not in valued:
+        if name not in known:
             raise CompileError(
                 "unknown_part",
-                f"{name!r} is not a part with a value (parts with values: "
-                f"{', '.join(sorted(valued))})",
+                f"{name!r} is not {what} ({listed}: {', '.join(sorted(known)) or 'none'})",
                 location=("parts", name),
             )
 
@@ -810,15 +814,9 @@ class _PivotFailure:
 def _checked_bounds(
     bounds: Mapping[str, tuple[float, float]], variables: Mapping[str, Any]
 ) -> dict[str, tuple[float, float]]:
+    _refuse_unknown(bounds, variables, "a variable, so it takes no bounds", "variables")
     box = {}
     for name, (low, high) in bounds.items():
-        if name not in variables:
-            raise CompileError(
-                "unknown_part",
-                f"bounds are given for {name!r}, which is not one of the variables "
-                f"({', '.join(variables) or 'none'})",
-                location=("parts", name),
-            )
         low, high = float(low), float(high)
         if not (math.isfinite(low) and math.isfinite(high) and low <= high):
             raise CompileError(
