@@ -232,6 +232,23 @@ def test_singular_equations_are_reported():
     assert error.code == "singular_equations"
 
 
+def test_unstable_elimination_names_the_part_and_its_value():
+    # an output capacitor with its ESR: with the ESR from 1 mohm to 1 kohm no order of
+    # pivots keeps every pivot at 1 % of its column (tests/test_symbolic.py has the why)
+    import casadi
+
+    from tests.test_symbolic import _esr_output_stage
+    from wirestate.reduce import symbolic_state_space
+
+    with pytest.raises(WirestateError) as info:
+        symbolic_state_space(
+            _esr_output_stage(), {"Resr": casadi.SX.sym("r")}, bounds={"Resr": (1e-3, 1e3)}
+        )
+    error = info.value
+    assert (error.code, error.location) == ("unstable_elimination", ("parts", "Resr"))
+    assert "KCL at esr" in error.message
+
+
 def test_every_code_is_documented_and_unknown_codes_are_refused():
     for code, text in ERROR_CODES.items():
         assert code == code.lower() and " " not in code and text

@@ -41,6 +41,8 @@ ERROR_CODES: dict[str, str] = {
     "unsupported_topology": "a loop or cutset through a controlled source that needs a derivative",
     "output_needs_derivative": "an output that would need the derivative of an input",
     "singular_equations": "the circuit equations have no unique solution at the given values",
+    "unstable_elimination": "bounds of part values over which no elimination order of the "
+    "circuit equations keeps its pivots",
     # composition and simulation
     "unknown_signal": "a signal named in wiring or inputs that no block provides",
     "unconnected_input": "a block input that nothing drives",

@@ -46,6 +46,10 @@ class CircuitBlock:
     notes
         Remarks from the compiler (for example excess elements whose initial value was
         ignored).
+    elimination_order
+        The compile's pivots, ``(row, unknown)`` of the stamped equations in elimination
+        order (:mod:`wirestate.elimination`), which the symbolic compile replays; ``None``
+        when the compile used SuperLU or the block was not compiled from a circuit.
     """
 
     name: str
@@ -62,6 +66,7 @@ class CircuitBlock:
     units: dict[str, str] = field(default_factory=dict)
     spec: Any = None
     notes: list[str] = field(default_factory=list)
+    elimination_order: Any = field(default=None, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         n, m = len(self.states), len(self.inputs)
@@ -297,6 +302,18 @@ def _regular_dc_gain(A, B, C, D) -> np.ndarray | None:
         X = scipy.linalg.lu_solve((lu, piv), B / rows[:, None], check_finite=False) / cols[:, None]
     gain = D - C @ X
     return gain if np.all(np.isfinite(gain)) else None
+
+
+def is_regular(A: np.ndarray) -> bool:
+    """True when the dense ``A`` has no pole at the origin by :func:`dc_gain_limit`'s test.
+
+    That test comes first there: ``A`` equilibrated by rows and columns must have a 1-norm
+    condition number below ``1 / SINGULAR_RCOND``. It holds for a stiff block however small
+    its slowest pole is beside its norm (aux_buck: -1.2e3 /s beside 7e14 /s).
+    """
+    n = A.shape[0]
+    empty = np.zeros((n, 0))
+    return _regular_dc_gain(np.asarray(A, float), empty, empty.T, np.zeros((0, 0))) is not None
 
 
 def _regular_dc_gain_sparse(A, B, C, D) -> np.ndarray | None:

@@ -8,7 +8,8 @@ candidates, Monte Carlo samples, optimiser iterations) only the values change, s
 stamps and the elimination are fixed, and the chosen part values enter as the parameters
 of one CasADi function built by :func:`wirestate.reduce.symbolic_state_space`, the same
 stamping and elimination code as the numeric compile (there is no second copy of the
-circuit equations). The function is
+circuit equations): the numeric compile's pivots are replayed on the parameters, checked
+over the values the caller will evaluate at (``bounds``). The function is
 
 * evaluated numerically for a batch of parameter rows at once (``Function.map``), which
   gives new matrices without touching the file, and
@@ -25,9 +26,8 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.errors import CompileError
 from wirestate.lti import CircuitBlock
-from wirestate.reduce import compile_circuit, symbolic_state_space
+from wirestate.reduce import check_valued_parts, compile_circuit, symbolic_state_space
 from wirestate.spec import CircuitSpec
 from wirestate.spec.circuit import part_parameter
 
@@ -45,6 +45,11 @@ class ParametricCircuit:
     parameters
         Names of the parts whose primary value (resistance, capacitance, inductance,
         gain...) is a parameter, in the order of the function's input vector (SI units).
+    bounds
+        Parameter -> ``(low, high)``: the values the function will be evaluated at. The
+        elimination's pivots are checked over this box and chosen again, or the compile
+        refused (``unstable_elimination``), where one would become too small (see
+        :func:`wirestate.reduce.symbolic_from_values`). Without it nothing is checked.
 
     Attributes
     ----------
@@ -54,25 +59,25 @@ class ParametricCircuit:
         The nominal parameter vector (the circuit file's values).
     """
 
-    def __init__(self, spec: CircuitSpec, parameters: Sequence[str]) -> None:
+    def __init__(
+        self,
+        spec: CircuitSpec,
+        parameters: Sequence[str],
+        bounds: Mapping[str, tuple[float, float]] | None = None,
+    ) -> None:
         import casadi
 
         self.spec = spec
         self.parameters = list(parameters)
-        for name in self.parameters:
-            part = spec.parts.get(name)
-            if part is None or part_parameter(part.kind) is None:
-                raise CompileError(
-                    "unknown_part",
-                    f"{name!r} is not a part with a value of circuit {spec.name!r}",
-                    location=("parts", name),
-                )
+        check_valued_parts(spec, self.parameters)
         self.block: CircuitBlock = compile_circuit(spec)
         self.nominal = np.array(
             [float(getattr(spec.parts[n], part_parameter(spec.parts[n].kind))) for n in parameters]
         )
         p = casadi.SX.sym("p", len(self.parameters))
-        ss = symbolic_state_space(spec, {n: p[i] for i, n in enumerate(self.parameters)})
+        ss = symbolic_state_space(
+            spec, {n: p[i] for i, n in enumerate(self.parameters)}, bounds=bounds
+        )
         self.function = casadi.Function(
             f"{spec.name}_state_space", [p], [ss.A, ss.B, ss.C, ss.D], ["p"], list(MATRICES)
         )

@@ -24,9 +24,11 @@ it sparse (:attr:`wirestate.lti.CircuitBlock.sparse_A`).
 
 from __future__ import annotations
 
+import dataclasses
 import gc
+import itertools
 import math
-from collections.abc import Iterable, Iterator, Mapping
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
@@ -34,7 +36,7 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.elimination import SingularEquations, eliminate
+from wirestate.elimination import SingularEquations, UnstablePivot, eliminate, is_exact_zero
 from wirestate.equations import Backend, Equations, assemble, nominal_values, part_parameter
 from wirestate.errors import CompileError, TopologyError, WirestateError
 from wirestate.lti import CircuitBlock
@@ -135,26 +137,21 @@ def _elimination_budget(n_w: int, width: int) -> int:
     return max(200_000, 50 * (n_w + width))
 
 
-def _solve_numeric(eq: Equations, layout: _Layout) -> _Solution:
+def _solve_numeric(eq: Equations, layout: _Layout) -> tuple[_Solution, list | None]:
+    """The solved equations and the elimination's pivots (``None`` after SuperLU)."""
     n_x, width = layout.n_x, layout.width
-    rows, known = _rows(eq.rows, layout)
     try:
-        solution = eliminate(rows, known, eq.n_w, budget=_elimination_budget(eq.n_w, width))
+        result = _eliminated(eq, layout, budget=_elimination_budget(eq.n_w, width))
     except SingularEquations:
         raise _singular_error(eq) from None
-    if solution is None:
-        return _solve_superlu(eq, layout)
+    if result is None:
+        return _solve_superlu(eq, layout), None
+    solution = result.solution
     y_unknown, y_known = _rows(eq.outputs, layout)
-    Y = np.zeros((len(eq.outputs), width))
-    Y_size = np.zeros((len(eq.outputs), width))  # the terms' sizes, for _check_output_...
-    for r, (w_row, k_row) in enumerate(zip(y_unknown, y_known, strict=True)):
-        for c, v in k_row.items():
-            Y[r, c] += v
-            Y_size[r, c] += abs(v)
-        for w, factor in w_row.items():
-            for c, v in solution[w].items():
-                Y[r, c] += factor * v
-                Y_size[r, c] += abs(factor * v)
+    Y = _from_forms(_output_forms(y_unknown, y_known, solution), width, sparse=False)
+    # the terms' sizes, for _check_output_derivatives
+    sizes = _output_forms(y_unknown, y_known, solution, magnitude=True)
+    Y_size = _from_forms(sizes, width, sparse=False)
     d_forms = solution[eq.d_offset : eq.d_offset + n_x]
     in_a = sum(1 for form in d_forms for c in form if c < n_x)
     Wd = _from_forms(
@@ -164,7 +161,30 @@ def _solve_numeric(eq: Equations, layout: _Layout) -> _Solution:
     if not (finite and np.isfinite(Y).all()):
         # every pivot was non-zero, so the equations are regular: the numbers overflowed
         raise _overflow_error(eq)
-    return _split_solution(Wd, Y, Y_size, layout)
+    return _split_solution(Wd, Y, Y_size, layout), result.pivots
+
+
+def _eliminated(eq: Equations, layout: _Layout | None = None, **options: Any) -> Any:
+    """:func:`wirestate.elimination.eliminate` on the stamped rows (``options`` as there):
+    the one elimination of the numeric compile, its replay and the checks of its pivots."""
+    rows, known = _rows(eq.rows, layout or _layout(eq))
+    return eliminate(rows, known, eq.n_w, **options)
+
+
+def _output_forms(
+    y_unknown: list[dict], y_known: list[dict], solution: list[dict], *, magnitude: bool = False
+) -> list[dict]:
+    """Outputs as linear forms of the knowns: their known part plus their unknowns'
+    solutions (numbers or CasADi values); ``magnitude`` sums the terms' sizes instead."""
+    forms = []
+    for w_row, k_row in zip(y_unknown, y_known, strict=True):
+        form = {c: abs(v) for c, v in k_row.items()} if magnitude else dict(k_row)
+        for w, factor in w_row.items():
+            for c, v in solution[w].items():
+                term = abs(factor * v) if magnitude else factor * v
+                form[c] = form[c] + term if c in form else term
+        forms.append(form)
+    return forms
 
 
 def _overflow_error(eq: Equations) -> CompileError:
@@ -419,7 +439,7 @@ def block_from_equations(eq: Equations) -> CircuitBlock:
     topology = eq.topology
     spec = topology.spec
     layout = _layout(eq)
-    sol = _solve_numeric(eq, layout)
+    sol, pivots = _solve_numeric(eq, layout)
     _check_output_derivatives(eq, sol, layout)
     n_x, n_u = layout.n_x, layout.n_u
     B1 = _expand_du(sol.B1, layout, np.zeros((n_x, n_u)))
@@ -461,6 +481,7 @@ def block_from_equations(eq: Equations) -> CircuitBlock:
         units=units,
         spec=spec,
         notes=notes,
+        elimination_order=pivots,
     )
 
 
@@ -519,40 +540,51 @@ class SymbolicStateSpace:
 
 
 def symbolic_state_space(
-    spec: CircuitSpec, variables: Mapping[str, Any], *, linear_solver: str = "symbolicqr"
+    spec: CircuitSpec,
+    variables: Mapping[str, Any],
+    *,
+    linear_solver: str = "symbolicqr",
+    bounds: Mapping[str, tuple[float, float]] | None = None,
 ) -> SymbolicStateSpace:
     """The compiled state-space with some part values replaced by CasADi expressions.
 
     The topology, the stamps and the elimination are those of :func:`compile_circuit`; only
-    the arithmetic runs on CasADi values (``SX`` or ``MX``, whichever ``variables`` hold).
-    The linear solve uses CasADi's ``solve`` (symbolic QR for ``SX``, a differentiable
-    linear-solver node for ``MX``), so exact first and second derivatives are available.
+    the arithmetic runs on CasADi values. The elimination replays the numeric compile's
+    pivots, operation for operation (:func:`symbolic_from_values`), so at the file's values
+    the matrices equal the numeric compile's to round-off of the last bit, and exact first
+    and second derivatives come from CasADi's automatic differentiation.
 
     Parameters
     ----------
     spec
         The validated circuit model (nominal values for every part not in ``variables``).
     variables
-        Part name -> CasADi scalar replacing that part's primary value (resistance,
-        capacitance, inductance, gain, coupling coefficient or electromechanical constant),
-        in SI base units.
+        Part name -> CasADi scalar (``SX`` or ``MX``) replacing that part's primary value
+        (resistance, capacitance, inductance, gain, coupling coefficient or
+        electromechanical constant), in SI base units. The matrices come back as the same
+        kind.
     linear_solver
-        CasADi linear solver for ``MX`` values: ``"symbolicqr"`` (the default, which
-        expands the QR factorisation into the expression graph) or a sparse numeric one
-        such as ``"qr"``, whose first derivatives are solves with the same factorisation
-        (much faster to build and evaluate on blocks of tens of states and more).
+        Only for circuits whose solution is dense, where the numeric compile uses SuperLU
+        and this one CasADi's ``solve``: the linear solver for ``MX`` values,
+        ``"symbolicqr"`` (the default) or a sparse numeric one such as ``"qr"``.
+    bounds
+        Part name -> ``(low, high)``: the values the expressions will be evaluated at (for
+        example an optimiser's box). The pivots chosen at the file's values are checked
+        over the box; see :func:`symbolic_from_values`.
     """
-    import casadi
-
     topology = analyse(spec)
-    values: dict[str, Any] = nominal_values(topology)
     check_valued_parts(spec, variables)
-    values.update(variables)
-    # the numeric compile fixes the structure (shifted states, refused derivatives)
+    # the numeric compile fixes the structure (shifted states, refused derivatives) and
+    # chooses the pivots
     block = compile_circuit(spec)
-    is_mx = any(isinstance(v, casadi.MX) for v in variables.values())
-    eq = assemble(topology, values, Backend(sqrt=casadi.sqrt))
-    return symbolic_from_equations(eq, block, mx=is_mx, linear_solver=linear_solver)
+    return symbolic_from_values(
+        topology,
+        nominal_values(topology),
+        variables,
+        block,
+        linear_solver=linear_solver,
+        bounds=bounds,
+    )
 
 
 def valued_parts(spec: CircuitSpec) -> list[str]:
@@ -563,25 +595,134 @@ def valued_parts(spec: CircuitSpec) -> list[str]:
 
 def check_valued_parts(spec: CircuitSpec, names: Iterable[str]) -> None:
     """Refuse (``unknown_part``) any name that is not a part with a primary value."""
-    valued = valued_parts(spec)
+    _refuse_unknown(names, valued_parts(spec), "a part with a value", "parts with values")
+
+
+def _refuse_unknown(names: Iterable[str], known: Iterable[str], what: str, listed: str) -> None:
+    """``unknown_part`` for the first of ``names`` not in ``known``, listing ``known``."""
+    known = list(known)
     for name in names:
-        if name not in valued:
+        if name not in known:
             raise CompileError(
                 "unknown_part",
-                f"{name!r} is not a part with a value (parts with values: "
-                f"{', '.join(sorted(valued))})",
+                f"{name!r} is not {what} ({listed}: {', '.join(sorted(known)) or 'none'})",
                 location=("parts", name),
             )
 
 
-def symbolic_from_equations(
-    eq: Equations, block: CircuitBlock, *, mx: bool, linear_solver: str = "symbolicqr"
+def symbolic_from_values(
+    topology: Topology,
+    values: Mapping[str, Any],
+    variables: Mapping[str, Any],
+    block: CircuitBlock,
+    *,
+    probes: tuple[tuple[str, str], ...] = (),
+    linear_solver: str = "symbolicqr",
+    bounds: Mapping[str, tuple[float, float]] | None = None,
 ) -> SymbolicStateSpace:
-    """Eliminate equations stamped with CasADi values; ``block`` is their numeric compile
-    (it fixes which states are shifted). The symbolic half of :func:`block_from_equations`."""
+    """Stamp ``topology`` with ``variables`` in place of some ``values`` and eliminate.
+
+    ``block`` is the numeric compile of the same stamps at ``values``
+    (:func:`block_from_equations`). The equations are stamped on one ``SX`` symbol per
+    variable, eliminated by replaying the block's pivots (:func:`symbolic_from_equations`)
+    and wrapped in one ``casadi.Function``, which is then called on ``variables``: SX
+    values get the expressions inlined, MX values one call node whose derivatives are
+    the SX function's (measured faster to build and to evaluate than a replay on MX
+    scalars, see DEVELOPERS.md).
+
+    Where the numeric compile fell back to SuperLU (a dense solution), so does this one,
+    to CasADi's ``solve`` on the equations stamped with ``variables`` (``linear_solver``
+    for MX).
+
+    Pivots and other part values. An unknown with a single row left at its step has that
+    row as its pivot at any part values, and the pivot can vanish only where the
+    remaining equations are singular, which for positive R, L, C they are not. Where more
+    than one row had the unknown (a *contested* step), the pivot chosen at ``values`` may
+    become small elsewhere. With ``bounds``, every contested pivot whose column depends on
+    bounded parts is checked at the corners of the box over those parts (each part alone
+    at each bound, and all low and all high, when there are more than eight): it must
+    stay at least ``MIN_PIVOT_RATIO`` of its column. If it does not, the pivots are chosen
+    again at the centre of the box and checked the same way; if that fails too, the
+    compile is refused (``unstable_elimination``) naming the parts and the equation.
+    """
+    import casadi
+
+    backend = Backend(sqrt=casadi.sqrt)
+    if block.elimination_order is None:
+        eq = assemble(topology, {**values, **variables}, backend, probes)
+        mx = any(isinstance(v, casadi.MX) for v in variables.values())
+        return symbolic_from_equations(eq, block, mx=mx, linear_solver=linear_solver)
+    box = _checked_bounds(bounds or {}, variables)
+    symbols = {name: casadi.SX.sym(name) for name in variables}
+    eq = assemble(topology, {**values, **symbols}, backend, probes)
+    order = block.elimination_order
+    first_failure = None
+    for centre in (False, True) if box else (False,):
+        if centre:
+            point = {**values, **{name: _centre(*box[name]) for name in box}}
+            order = _numeric_order(topology, point, probes)
+        sym, contested = _replay(eq, block, casadi.SX, order)
+        failure = _box_failure(topology, values, probes, order, contested, box)
+        if failure is None:
+            break
+        first_failure = first_failure or failure
+    else:
+        raise _unstable_error(first_failure)
+    if not variables:
+        return sym
+    compiled = casadi.Function(
+        "compiled_circuit",
+        list(symbols.values()),
+        [sym.A, sym.B, sym.C, sym.D, sym.state_offset],
+    )
+    with _exact_casadi_arithmetic():  # inlined into SX values: the same operations again
+        A, B, C, D, offset = compiled(*variables.values())
+    return dataclasses.replace(sym, A=A, B=B, C=C, D=D, state_offset=offset)
+
+
+@contextmanager
+def _exact_casadi_arithmetic() -> Iterator[None]:
+    """Pause CasADi's rewriting of SX expressions as they are built.
+
+    CasADi simplifies ``(x*y)/y`` to ``x`` and ``(x+y)-y`` to ``x``: exact in real
+    numbers, not in floating point, and the replay must make the numeric compile's
+    operations (measured: with the rewriting, one entry of an aux_buck mode differed by
+    3.4e-10 of itself from the numeric compile; without it, not at all). The stamps are
+    built with the rewriting on, which removes their ``1*x`` and ``-1*x`` (exact; half the
+    instructions of a ladder's matrices). The switch is CasADi's global option, restored
+    on the way out.
+    """
+    import casadi
+
+    was = casadi.GlobalOptions.getSimplificationOnTheFly()
+    casadi.GlobalOptions.setSimplificationOnTheFly(False)
+    try:
+        yield
+    finally:
+        casadi.GlobalOptions.setSimplificationOnTheFly(was)
+
+
+def symbolic_from_equations(
+    eq: Equations,
+    block: CircuitBlock,
+    *,
+    mx: bool,
+    linear_solver: str = "symbolicqr",
+) -> SymbolicStateSpace:
+    """Eliminate equations stamped with CasADi values; ``block`` is their numeric compile.
+
+    The symbolic half of :func:`block_from_equations`: the block's pivots
+    (:attr:`~wirestate.lti.CircuitBlock.elimination_order`) are replayed on the CasADi rows
+    by :func:`wirestate.elimination.eliminate`, the same function and the same operations
+    as the numeric compile. ``block`` also fixes which states are shifted. A
+    block compiled by SuperLU (a dense solution) has no pivots; then CasADi's ``solve``
+    eliminates (symbolic QR for ``SX``, ``linear_solver`` for ``MX``).
+    """
     import casadi
 
     kind = casadi.MX if mx else casadi.SX
+    if block.elimination_order is not None:
+        return _replay(eq, block, kind, block.elimination_order)[0]
     layout = _layout(eq)
     w_t, k_t = _triplets(eq.rows, layout)
     M = _casadi_matrix(kind, w_t, (len(eq.rows), eq.n_w))
@@ -591,24 +732,52 @@ def symbolic_from_equations(
     Yw = _casadi_matrix(kind, yw_t, (len(eq.outputs), eq.n_w))
     Yk = _casadi_matrix(kind, yk_t, (len(eq.outputs), layout.width))
     Y = casadi.mtimes(Yw, W) + Yk
+    return _symbolic_matrices(kind, W[eq.d_offset : eq.d_offset + layout.n_x, :], Y, eq, block)
+
+
+def _replay(
+    eq: Equations, block: CircuitBlock, kind: Any, order: Sequence[tuple[int, int]]
+) -> tuple[SymbolicStateSpace, dict[int, list[Any]]]:
+    """The matrices by the replayed elimination, and its contested columns."""
+    layout = _layout(eq)
+    y_unknown, y_known = _rows(eq.outputs, layout)
+    with _exact_casadi_arithmetic():
+        result = _eliminated(eq, layout, order=order)
+        assert result is not None  # no budget: a replay never gives up
+        y_forms = _output_forms(y_unknown, y_known, result.solution)
+        Y = _casadi_from_forms(kind, y_forms, layout)
+        d_forms = result.solution[eq.d_offset : eq.d_offset + layout.n_x]
+        Wd = _casadi_from_forms(kind, d_forms, layout)
+        return _symbolic_matrices(kind, Wd, Y, eq, block), result.contested
+
+
+def _symbolic_matrices(
+    kind: Any, Wd: Any, Y: Any, eq: Equations, block: CircuitBlock
+) -> SymbolicStateSpace:
+    """``A, B, C, D`` from the solved state-derivative rows ``Wd`` and outputs ``Y``
+    (columns ``[x; u; du]``), with the block's shifted states (as in
+    :func:`block_from_equations`)."""
+    import casadi
+
+    layout = _layout(eq)
     n_x, n_u = layout.n_x, layout.n_u
-    d = slice(eq.d_offset, eq.d_offset + n_x)
-    A = W[d, :n_x]
-    B0 = W[d, n_x : n_x + n_u]
+    A = Wd[:, :n_x]
+    B0 = Wd[:, n_x : n_x + n_u]
     C = Y[:, :n_x]
     D0 = Y[:, n_x : n_x + n_u]
-    B1 = kind.zeros(n_x, n_u)
-    if layout.du_inputs:
-        B1_du = W[d, n_x + n_u :]
-        for k, index in enumerate(layout.du_inputs):
-            for row in range(n_x):
-                if block.state_offset[row, index] != 0.0:
-                    B1[row, index] = B1_du[row, k]
+    B1 = kind(n_x, n_u)
+    for k, index in enumerate(layout.du_inputs):
+        for row in range(n_x):
+            if block.state_offset[row, index] != 0.0:
+                B1[row, index] = Wd[row, n_x + n_u + k]
+    if B1.nnz():
+        B0 = casadi.mtimes(A, B1) + B0
+        D0 = D0 + casadi.mtimes(C, B1)
     return SymbolicStateSpace(
         A=A,
-        B=casadi.mtimes(A, B1) + B0,
+        B=B0,
         C=C,
-        D=D0 + casadi.mtimes(C, B1),
+        D=D0,
         state_offset=B1,
         states=list(block.states),
         inputs=list(block.inputs),
@@ -617,22 +786,131 @@ def symbolic_from_equations(
     )
 
 
+def _casadi_from_forms(kind: Any, forms: list[dict], layout: _Layout) -> Any:
+    """Rows ``{column: value}`` as one sparse CasADi matrix (structural zeros left out)."""
+    triplets = [
+        (r, c, v) for r, form in enumerate(forms) for c, v in form.items() if not is_exact_zero(v)
+    ]
+    return _casadi_matrix(kind, triplets, (len(forms), layout.width))
+
+
+#: a replayed pivot must stay at least this fraction of the largest coefficient of its
+#: unknown over the caller's bounds: growth of at most 101 per contested step, ten times
+#: below the threshold the pivots are chosen with (Duff, Erisman and Reid 2017, sec. 5.3,
+#: give 0.01 to 0.1 as the usual thresholds; from memory)
+MIN_PIVOT_RATIO = 0.01
+#: with more bounded parts acting on contested pivots, the check takes each at its bounds
+#: alone and all at their low and all at their high bounds instead of every corner
+_MAX_CORNER_PARTS = 8
+
+
+@dataclass
+class _PivotFailure:
+    corner: dict[str, float]
+    equation: str
+    ratio: float
+
+
+def _checked_bounds(
+    bounds: Mapping[str, tuple[float, float]], variables: Mapping[str, Any]
+) -> dict[str, tuple[float, float]]:
+    _refuse_unknown(bounds, variables, "a variable, so it takes no bounds", "variables")
+    box = {}
+    for name, (low, high) in bounds.items():
+        low, high = float(low), float(high)
+        if not (math.isfinite(low) and math.isfinite(high) and low <= high):
+            raise CompileError(
+                "out_of_range",
+                f"the bounds of {name} must be finite with low <= high, got ({low}, {high})",
+                location=("parts", name),
+            )
+        box[name] = (low, high)
+    return box
+
+
+def _centre(low: float, high: float) -> float:
+    """The middle of a bound on a log scale where it is positive (part values spread over
+    decades), else the arithmetic middle."""
+    return math.sqrt(low * high) if low > 0.0 else 0.5 * (low + high)
+
+
+def _numeric_order(
+    topology: Topology, values: Mapping[str, Any], probes: tuple[tuple[str, str], ...]
+) -> list[tuple[int, int]]:
+    """The pivots the numeric elimination chooses at ``values``."""
+    eq = assemble(topology, values, probes=probes)
+    try:
+        return _eliminated(eq).pivots  # no budget: never None
+    except SingularEquations:
+        raise _singular_error(eq) from None
+
+
+def _box_failure(
+    topology: Topology,
+    values: Mapping[str, Any],
+    probes: tuple[tuple[str, str], ...],
+    order: Sequence[tuple[int, int]],
+    contested: dict[int, list[Any]],
+    box: dict[str, tuple[float, float]],
+) -> _PivotFailure | None:
+    """The first corner of ``box`` where a contested pivot of ``order`` falls below
+    ``MIN_PIVOT_RATIO`` of its column (``None``: none does)."""
+    import casadi
+
+    entries = [v for column in contested.values() for v in column if isinstance(v, casadi.SX)]
+    if not entries or not box:
+        return None
+    acting_names = {s.name() for s in casadi.symvar(casadi.vertcat(*entries))}
+    acting = [name for name in box if name in acting_names]
+    for corner in _corners(acting, box):
+        eq = assemble(topology, {**values, **corner}, probes=probes)
+        try:
+            _eliminated(eq, order=order, min_ratio=MIN_PIVOT_RATIO)
+        except UnstablePivot as exc:
+            return _PivotFailure(corner, eq.row_labels[exc.row], exc.ratio)
+        except SingularEquations as exc:
+            return _PivotFailure(corner, f"unknown {exc.column}", 0.0)
+    return None
+
+
+def _corners(names: list[str], box: dict[str, tuple[float, float]]) -> Iterator[dict[str, float]]:
+    if len(names) <= _MAX_CORNER_PARTS:
+        for choice in itertools.product(*(box[name] for name in names)):
+            yield dict(zip(names, choice, strict=True))
+        return
+    yield {name: box[name][0] for name in names}
+    yield {name: box[name][1] for name in names}
+    for name in names:
+        for bound in box[name]:
+            yield {name: bound}
+
+
+def _unstable_error(failure: _PivotFailure) -> CompileError:
+    at = ", ".join(f"{name} = {value:.4g}" for name, value in failure.corner.items())
+    return CompileError(
+        "unstable_elimination",
+        f"no elimination order of the circuit equations keeps its pivots over the bounds: "
+        f"the order chosen at the file's values and the one chosen at the centre of the "
+        f"bounds both fail; at {at} the pivot of equation '{failure.equation}' falls to "
+        f"{failure.ratio:.2g} of its column (below {MIN_PIVOT_RATIO}); narrow the bounds "
+        f"of {', '.join(failure.corner)}",
+        location=("parts", next(iter(failure.corner), "")),
+    )
+
+
 def _casadi_matrix(kind: Any, triplets: list, shape: tuple[int, int]) -> Any:
+    import casadi
+
     merged: dict[tuple[int, int], Any] = {}
     for row, col, value in triplets:
         merged[(row, col)] = merged[(row, col)] + value if (row, col) in merged else value
-    if kind.__name__ == "MX" and merged:
-        import casadi
-
-        # one sparse MX from all nonzeros at once: assigning entries one by one makes a
-        # graph of one node per entry, which made the derivatives of a 50-section ladder
-        # about 5x slower to build and to evaluate
-        keys = list(merged)
-        sparsity, order = casadi.Sparsity.triplet(
-            shape[0], shape[1], [r for r, _ in keys], [c for _, c in keys], False
-        )
-        return casadi.MX(sparsity, casadi.vertcat(*[merged[keys[k]] for k in order]))
-    out = kind.zeros(*shape)
-    for (row, col), value in merged.items():
-        out[row, col] = value
-    return out
+    if not merged:
+        return kind(*shape)
+    # one sparse matrix from all nonzeros at once: assigning entries one by one makes an MX
+    # graph of one node per entry (which made the derivatives of a 50-section ladder about
+    # 5x slower to build and to evaluate) and costs SX a sparsity change per entry
+    keys = list(merged)
+    sparsity, order = casadi.Sparsity.triplet(
+        shape[0], shape[1], [r for r, _ in keys], [c for _, c in keys], False
+    )
+    return kind(sparsity, casadi.vertcat(*[merged[keys[k]] for k in order]))

@@ -16,10 +16,11 @@ the mode's stamped equations), so a mode is exactly affine:
 
 Each mode is stamped by :func:`wirestate.equations.assemble` with that mode's
 resistances and eliminated by :func:`wirestate.reduce.block_from_equations` (numbers) or
-:func:`wirestate.reduce.symbolic_from_equations` (CasADi): the one compile path, once per
-mode actually visited, cached. This is the piecewise-linear view of switched networks of
-state-space averaging (Middlebrook and Cuk, "A general unified approach to modelling
-switching-converter power stages", IEEE PESC 1976), without the averaging.
+:func:`wirestate.reduce.symbolic_from_values` (CasADi, replaying the numeric pivots): the
+one compile path, once per mode actually visited, cached. This is the piecewise-linear
+view of switched networks of state-space averaging (Middlebrook and Cuk, "A general
+unified approach to modelling switching-converter power stages", IEEE PESC 1976), without
+the averaging.
 """
 
 from __future__ import annotations
@@ -31,9 +32,9 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.equations import FORWARD, Backend, assemble, nominal_values
+from wirestate.equations import FORWARD, assemble, nominal_values
 from wirestate.lti import CircuitBlock
-from wirestate.reduce import block_from_equations, symbolic_from_equations
+from wirestate.reduce import block_from_equations, check_valued_parts, symbolic_from_values
 from wirestate.spec.circuit import SWITCHING_KINDS, CircuitSpec
 from wirestate.topology import CONSTANT_BRANCH, analyse
 
@@ -189,24 +190,28 @@ class SwitchedCircuit:
         variables: Mapping[str, Any],
         *,
         linear_solver: str = "symbolicqr",
+        bounds: Mapping[str, tuple[float, float]] | None = None,
     ) -> Any:
         """The mode's state space with some part values as CasADi expressions.
 
-        Same stamps and elimination as :meth:`mode` (see
-        :func:`wirestate.reduce.symbolic_from_equations`). The returned
+        Same stamps and elimination as :meth:`mode`: its pivots replayed on CasADi values
+        (see :func:`wirestate.reduce.symbolic_from_values`). The returned
         :class:`~wirestate.reduce.SymbolicStateSpace` has the block inputs followed by the
         unit constant, so its last column of ``B`` is ``f`` and of ``D`` is ``g``; the
         outputs are the file's outputs followed by every device current then voltage.
-        ``linear_solver`` as for :func:`wirestate.reduce.symbolic_state_space`.
+        ``linear_solver`` and ``bounds`` as for
+        :func:`wirestate.reduce.symbolic_state_space`.
         """
-        import casadi
-
-        values = self.values(on)
-        values.update(variables)
-        eq = assemble(self.topology, values, Backend(sqrt=casadi.sqrt), probes=self.probes)
-        mx = any(isinstance(v, casadi.MX) for v in variables.values())
-        return symbolic_from_equations(
-            eq, self._compile(tuple(on)), mx=mx, linear_solver=linear_solver
+        on = tuple(bool(v) for v in on)
+        check_valued_parts(self.spec, variables)
+        return symbolic_from_values(
+            self.topology,
+            self.values(on),
+            variables,
+            self._compile(on),
+            probes=self.probes,
+            linear_solver=linear_solver,
+            bounds=bounds,
         )
 
     def describe(self, on: tuple[bool, ...]) -> str:

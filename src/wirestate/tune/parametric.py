@@ -158,7 +158,8 @@ class ParametricLoop:
         import casadi
 
         problem = self.problem
-        circuit = ParametricCircuit(problem.circuit, self.parameters)
+        # the box also bounds where the replayed elimination's pivots must hold
+        circuit = ParametricCircuit(problem.circuit, self.parameters, self.box)
         # small loops as SX (scalar graphs, the fastest to evaluate); large ones as MX,
         # whose matrix products stay single nodes (an SX exponential of a 24-state loop
         # has 170 000 scalar operations and its derivatives are slow to generate)
