@@ -250,14 +250,17 @@ def _path_limit(
     """A limit on samples (maximum, minimum, overshoot, settling, peak current) or the
     energy: the active row of :func:`wirestate.tune.limits.ranges`."""
     samples = measures.limit_samples(limit, problem)
-    candidates = []  # (excess, position, side)
+    excess, positions, sides = [], [], []  # every row's excess, its sample, its side
     for index, (e, lower, upper) in enumerate(measures.ranges(limit, problem, ev, start)):
         e = np.atleast_1d(np.asarray(e, dtype=float)[0])
-        if upper is not None:
-            candidates += [(float(x - upper), k, (index, "upper")) for k, x in enumerate(e)]
-        if lower is not None:
-            candidates += [(float(lower - x), k, (index, "lower")) for k, x in enumerate(e)]
-    worst = max(c[0] for c in candidates)
+        for side, bound in (("upper", upper), ("lower", lower)):
+            if bound is not None:
+                excess.append(e - bound if side == "upper" else bound - e)
+                positions.append(np.arange(e.size))
+                sides += [(index, side)] * e.size
+    size = np.concatenate(excess)
+    position = np.concatenate(positions)
+    worst = float(np.max(size))
     value = float(value_from_excess(limit, worst))
     if not math.isfinite(value):
         return _Found(limit, value, None, "", note="not finite at this design: no elasticity")
@@ -274,15 +277,16 @@ def _path_limit(
             return "the horizon"
         return f"t = {_show(problem.times[samples[position]], 's')}"
 
-    ordered = sorted(candidates, key=lambda c: -c[0])
-    _, k, side = ordered[0]
+    order = np.argsort(-size, kind="stable")
+    first = int(order[0])
     tolerance = TIE_TOLERANCE * max(abs(value), abs(limit_bound(limit)), 1e-300)
     tied = [
-        (where(kk), expression(kk, s))
-        for x, kk, s in ordered[1:]
-        if worst - x <= tolerance and (kk, s) != (k, side)
-    ][:TIED_CHECKED]
-    return _Found(limit, value, expression(k, side), where(k), tied)
+        (where(int(position[i])), expression(int(position[i]), sides[i]))
+        for i in order[1 : TIED_CHECKED + 1]
+        if worst - size[i] <= tolerance
+    ]
+    return _Found(limit, value, expression(int(position[first]), sides[first]),
+                  where(int(position[first])), tied)  # fmt: skip
 
 
 def _impedance_limit(limit: Limit, problem: Problem, ev: Evaluation, sev: Evaluation) -> _Found:
