@@ -167,7 +167,7 @@ def elasticities(
     J = J.reshape(len(y), len(names))
     result: dict[str, dict[str, float | None]] = {}
     for row, label in enumerate(labels):
-        with np.errstate(over="ignore", invalid="ignore"):
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             row_values = J[row] * np.asarray(point) / y[row]
         if y[row] == 0.0 or not np.all(np.isfinite(row_values)):
             # zero, or a derivative beyond double precision: no elasticity to give

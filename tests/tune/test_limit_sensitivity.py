@@ -8,11 +8,16 @@ re-verification's path) on the bundled tuning files.
 from __future__ import annotations
 
 import math
+import textwrap
 
 import numpy as np
 import pytest
 
 from tests.conftest import MODELS
+from tests.tune.conftest import RLC
+from tests.tune.test_erickson_optimiser import CIRCUIT as FILTER
+from tests.tune.test_erickson_optimiser import TUNING as FILTER_TUNING
+from wirestate.spec.tuning import parse_tuning
 from wirestate.tune import load_tuning
 from wirestate.tune.margins import margin_table
 from wirestate.tune.problem import Problem
@@ -210,23 +215,13 @@ def _value_at(problem, start, point, name_index):
     return float(margin_table(problem, ev, start).value[0, name_index])
 
 
-@pytest.mark.parametrize(
-    ("tuning", "design"),
-    [
-        ("drive_bus_damping.toml", {"Rd": 0.22, "Cd": 240e-6}),  # its preferred values
-        ("drive_bus_loop_damping.toml", {}),  # the circuit file's values
-    ],
-)
-def test_ad_elasticities_agree_with_central_differences(tuning, design):
-    """AD through the parametric loop against a fourth-order central difference (in ln p,
-    step 1e-4) of the independent numeric path: truncation ~h^4 e^5 ~ 1e-9 even for the
-    largest elasticities here (~40), round-off ~1e-10 / 1e-4; the two paths' own
-    difference (Taylor truncation bound ~1e-12) is far below. Tolerance 1e-6 of the row's
-    largest elasticity (or of 1)."""
-    spec = load_tuning(MODELS / "tuning" / tuning)
-    problem = Problem(spec, file=tuning)
-    start = problem.evaluate([problem.start_values()])
-    found = limit_sensitivities(problem, design, start, at="test")
+def _check_against_differences(problem: Problem, found, start) -> int:
+    """AD elasticities against a fourth-order central difference (in ln p, step 1e-4) of
+    the independent numeric path (numeric compile, scipy's exponential, the verification's
+    margins): truncation ~h^4 e^5 ~ 1e-9 even for the largest elasticities here (~40),
+    round-off ~1e-10 / 1e-4; the two paths' own difference (Taylor truncation bound
+    ~1e-12) is far below. Tolerance 1e-6 of the row's largest elasticity (or of 1).
+    Returns the number of elasticities checked."""
     names = [limit.label for limit in problem.spec.limits]
     h = 1e-4
     checked = 0
@@ -248,7 +243,113 @@ def test_ad_elasticities_agree_with_central_differences(tuning, design):
                 part,
             )
             checked += 1
-    assert checked >= 5 * len(found.parts)
+    return checked
+
+
+@pytest.mark.parametrize(
+    ("tuning", "design"),
+    [
+        ("drive_bus_damping.toml", {"Rd": 0.22, "Cd": 240e-6}),  # its preferred values
+        ("drive_bus_loop_damping.toml", {}),  # the circuit file's values
+    ],
+)
+def test_ad_elasticities_agree_with_central_differences(tuning, design):
+    # the bundled tuning files: a continuous PI loop, and a system with a sampled PI
+    spec = load_tuning(MODELS / "tuning" / tuning)
+    problem = Problem(spec, file=tuning)
+    start = problem.evaluate([problem.start_values()])
+    found = limit_sensitivities(problem, design, start, at="test")
+    assert _check_against_differences(problem, found, start) >= 5 * len(found.parts)
+
+
+def test_sampled_loop_poles_agree_with_central_differences(tmp_path):
+    # a PI sampled every 40 us around a series RLC: both pole limits go through
+    # s = ln(z) / T of the loop's poles over one period (the verification's definition)
+    (tmp_path / "rlc.toml").write_text(textwrap.dedent(RLC), encoding="utf-8")
+    spec = {
+        "tuning": {"name": "sampled_rlc", "circuit": "rlc.toml"},
+        "variables": {"C1": {"min": "1uF", "max": "100uF", "start": "50uF"}},
+        "controller": {
+            "measurement": "v_out", "command": "Vs", "kp": 0.1, "ki": 150.0,
+            "reference": "1V", "sample_time": 40e-6,
+        },
+        "scenario": {"until": "3ms", "step": 20e-6, "initial": "zero"},
+        "limits": [
+            {"name": "damping", "kind": "damping_ratio", "min": 0.05},
+            {"name": "decay", "kind": "pole_real_part", "max": -10.0},
+            {"name": "peak", "kind": "maximum", "output": "v_out", "max": 5.0},
+        ],
+        "objective": {"capacitance": 1.0, "parts": ["C1"]},
+    }  # fmt: skip
+    problem = Problem(parse_tuning(spec, base_dir=str(tmp_path)))
+    assert problem.sampled
+    start = problem.evaluate([problem.start_values()])
+    found = limit_sensitivities(problem, {}, start, at="test")
+    assert found.active["damping"].startswith("mode ")
+    assert _check_against_differences(problem, found, start) == 3 * len(found.parts)
+
+
+def test_peak_impedance_agrees_with_central_differences(write):
+    # the peak of |Zout| on the verification's fine grid, at its active frequency
+    write("filter.toml", FILTER.format(cd="200uF"))
+    problem = Problem(load_tuning(write("tune.toml", FILTER_TUNING.format(n=2))))
+    start = problem.evaluate([problem.start_values()])
+    found = limit_sensitivities(problem, {"Rd": 0.8}, start, at="test")
+    assert found.active["output_impedance"].startswith("f = ")
+    assert _check_against_differences(problem, found, start) == len(found.parts)
+
+
+KINKED = """
+    [circuit]
+    name = "pair_and_section"
+    [parts.Vs]
+    kind = "voltage_source"
+    nodes = ["in", "gnd"]
+    value = "1V"
+    [parts.R1]
+    kind = "resistor"
+    nodes = ["in", "a"]
+    value = "10ohm"
+    [parts.L1]
+    kind = "inductor"
+    nodes = ["a", "out"]
+    value = "1mH"
+    [parts.C1]
+    kind = "capacitor"
+    nodes = ["out", "gnd"]
+    value = "10uF"
+    [parts.R2]
+    kind = "resistor"
+    nodes = ["in", "b"]
+    value = "200ohm"
+    [parts.C2]
+    kind = "capacitor"
+    nodes = ["b", "gnd"]
+    value = "1uF"
+    [outputs.v_out]
+    voltage = "out"
+"""
+
+
+def test_a_tie_with_other_derivatives_is_noted_as_a_kink(write):
+    # series RLC poles -R1/(2 L1) +- j..., real part -5000 1/s (zeta = (R1/2) sqrt(C1/L1)
+    # = 0.5, the textbook series RLC, e.g. Hayt and Kemmerly, from memory), and an RC
+    # section's pole -1/(R2 C2) = -5000 1/s too: the largest real part is attained by two
+    # distinct modes whose derivatives differ (elasticities +1/-1 to R1/L1 against -1/-1
+    # to R2/C2), so it has a kink there
+    write("rc.toml", KINKED)
+    path = write("rc_limits.toml", RC_TUNING)
+    problem = Problem(load_tuning(path), file=str(path))
+    found = limit_sensitivities(problem, {}, _start(problem), at="here")
+    pole = next(q for q in found.quantities if q.name == "pole")
+    assert pole.value == pytest.approx(-5000.0, rel=1e-9)
+    assert "kink" in pole.note and "also at mode" in pole.note
+    shown = {p: v for p, v in pole.elasticity.items() if abs(v) > 1e-9}
+    # the active mode's elasticities, one of the two closed forms (to AD round-off)
+    assert shown in (
+        pytest.approx({"R1": 1.0, "L1": -1.0}, rel=1e-9),
+        pytest.approx({"R2": -1.0, "C2": -1.0}, rel=1e-9),
+    )
 
 
 def test_one_jacobian_for_every_limit(rc_problem, monkeypatch):
