@@ -80,3 +80,13 @@ def test_tune_report_has_most_sensitive_parts(tmp_path, capsys):
         assert parts[0]["part"] in line
     assert "preferred values" in report["sensitivity_notes"]["design"]
     assert set(report["sensitivity_active"]) == LIMITS
+    # inspect at the preferred values the report records gives the same table: the same
+    # design, start and code path (1e-12: the same arithmetic, kept loose for BLAS order)
+    assert main(["inspect", str(TUNING), "--sensitivity", "--json", "--preferred",
+                 str(report_path)]) == 0  # fmt: skip
+    data = json.loads(capsys.readouterr().out)
+    assert str(report_path) in data["sensitivity_at"]["design"]
+    preferred = {n: v["preferred"] for n, v in report["variables"].items()}
+    assert {n: data["sensitivity_at"]["values"][n] for n in preferred} == preferred
+    for name, row in report["sensitivity"].items():
+        assert data["sensitivity"][name] == pytest.approx(row, rel=1e-12, abs=1e-12)

@@ -34,6 +34,12 @@ def configure(parser: argparse.ArgumentParser) -> None:
         help="also give the elasticities of every mode and DC gain (of a tuning file: of every "
         "limit's value) to every part value",
     )
+    parser.add_argument(
+        "--preferred",
+        metavar="REPORT",
+        help="with --sensitivity on a tuning file: take the elasticities at the preferred "
+        "values recorded in REPORT (the --json report of wirestate tune)",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -53,9 +59,17 @@ def run(args: argparse.Namespace) -> int:
         raise SimulationError(
             "invalid_field", "--pair chooses the curves of the --plot figure; give --plot too"
         )
+    if args.preferred and not args.sensitivity:
+        from wirestate.errors import SimulationError
+
+        raise SimulationError(
+            "invalid_field",
+            "--preferred chooses where --sensitivity takes the elasticities; give "
+            "--sensitivity too",
+        )
     found = inspect_file(args.model)
     pairs = [_pair(text, found.linear) for text in args.pair] or None  # with or without --plot
-    sensitivity = _sensitivity(found, args.model) if args.sensitivity else None
+    sensitivity = _sensitivity(found, args.model, args.preferred) if args.sensitivity else None
     if args.json:
         data = dict(found.data)
         if sensitivity is not None:
@@ -104,7 +118,7 @@ def _pair(text: str, block) -> tuple[str, str]:
     return source, output
 
 
-def _sensitivity(found, path: str):
+def _sensitivity(found, path: str, report: str | None):
     from wirestate.errors import ModelFileError, WirestateError
     from wirestate.sensitivity import circuit_sensitivities
 
@@ -113,9 +127,16 @@ def _sensitivity(found, path: str):
         from wirestate.tune.sensitivity import tuning_file_sensitivities
 
         try:
-            return tuning_file_sensitivities(load_tuning(path), file=path)
+            return tuning_file_sensitivities(load_tuning(path), file=path, report=report)
         except WirestateError as exc:
             raise exc.with_file(path) from None
+    if report:
+        raise ModelFileError(
+            "wrong_file_kind",
+            "--preferred: preferred values are recorded for tuning files; this is a "
+            f"{found.data.get('kind')} file",
+            file=path,
+        )
     spec = getattr(found.linear, "spec", None)
     if found.data.get("kind") != "circuit" or spec is None:
         raise ModelFileError(

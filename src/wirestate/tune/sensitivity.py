@@ -383,15 +383,83 @@ FILE_VALUES = (
 )
 
 
-def tuning_file_sensitivities(spec: Any, *, file: str | None = None) -> LimitSensitivities:
-    """Elasticities of every limit of a tuning file at the circuit file's part values
-    (design variables included), for ``wirestate inspect TUNING_FILE --sensitivity``.
+def tuning_file_sensitivities(
+    spec: Any, *, file: str | None = None, report: str | None = None
+) -> LimitSensitivities:
+    """Elasticities of every limit of a tuning file, for ``wirestate inspect TUNING_FILE
+    --sensitivity [--preferred REPORT]``.
 
-    The direction of a step and the scaling of each limit are fixed at the design
-    variables' starting values, as in ``wirestate tune``.
+    Taken at the preferred values of the design variables recorded in ``report`` (the
+    ``--json`` report of ``wirestate tune``, see :func:`preferred_from_report`) when one
+    is given, else at the circuit file's part values (design variables included); every
+    other part at the circuit file's value. The direction of a step and the scaling of
+    each limit are fixed at the design variables' starting values, as in ``wirestate
+    tune``.
     """
     from wirestate.tune.problem import Problem
 
     problem = Problem(spec, file=file)
     start = problem.evaluate([problem.start_values()])
-    return limit_sensitivities(problem, {}, start, at=FILE_VALUES)
+    if report is None:
+        return limit_sensitivities(problem, {}, start, at=FILE_VALUES)
+    values = preferred_from_report(report, problem)
+    return limit_sensitivities(
+        problem, values, start, at=f"the preferred values recorded in {report}"
+    )
+
+
+def preferred_from_report(path: str, problem: Problem) -> dict[str, float]:
+    """The preferred value of every design variable from a ``wirestate tune --json``
+    report of this tuning (SI units).
+
+    Raises
+    ------
+    TuningError
+        ``file_not_found`` (unreadable), ``wrong_file_kind`` (not such a report),
+        ``invalid_field`` (a report of another tuning, or without a finite, positive
+        preferred value for a variable: a tuning that failed records none),
+        ``unknown_variable`` (a design variable the report does not size).
+    """
+    import json
+    from pathlib import Path
+
+    from wirestate.errors import TuningError
+
+    def refuse(code: str, message: str, *location: str) -> TuningError:
+        return TuningError(code, f"--preferred: {message}", file=str(path), location=location)
+
+    try:
+        data = json.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise refuse(
+            "file_not_found", f"cannot read the report ({exc.__class__.__name__})"
+        ) from None
+    except (ValueError, RecursionError):
+        raise refuse("wrong_file_kind", "not a JSON report of wirestate tune --json") from None
+    variables = data.get("variables") if isinstance(data, dict) else None
+    if not isinstance(variables, dict):
+        raise refuse("wrong_file_kind", "no 'variables' table: not a report of wirestate tune")
+    if data.get("name") != problem.spec.name:
+        raise refuse(
+            "invalid_field",
+            f"the report is of tuning {data.get('name')!r}, not {problem.spec.name!r}",
+            "name",
+        )
+    values = {}
+    for name in problem.variables:
+        entry = variables.get(name)
+        if not isinstance(entry, dict):
+            raise refuse("unknown_variable", f"the report sizes no {name!r}", "variables", name)
+        value = entry.get("preferred")
+        good = isinstance(value, int | float) and not isinstance(value, bool)
+        if not good or not math.isfinite(value) or value <= 0:
+            raise refuse(
+                "invalid_field",
+                f"no positive preferred value of {name} (got {value!r}; a tuning that "
+                "did not reach preferred values records none)",
+                "variables",
+                name,
+                "preferred",
+            )
+        values[name] = float(value)
+    return values
