@@ -452,6 +452,8 @@ def tuning_report(report: dict[str, Any]) -> str:
         out += [""] + _stress_lines(report["stress"])
     if "most_sensitive_parts" in report:
         out += [""] + most_sensitive_lines(report)
+    elif "sensitivity_notes" in report:
+        out += ["", f"most sensitive parts: {report['sensitivity_notes']['design']}"]
     solver = report["solver"]
     out += [
         "",

@@ -367,6 +367,10 @@ def sensitivity_section(
         found = limit_sensitivities(problem, preferred, start, at="the preferred values")
     except WirestateError as exc:
         return {"sensitivity_notes": {"design": f"no elasticities: {exc.message}"}}
+    except (RuntimeError, np.linalg.LinAlgError) as exc:
+        # CasADi or LAPACK failing on numbers the verification accepted must not cost the
+        # user the tuning itself: the section says why it is missing
+        return {"sensitivity_notes": {"design": f"no elasticities: {exc}"}}
     return {
         "most_sensitive_parts": found.most_sensitive(),
         "sensitivity": found.to_dict(),

@@ -63,6 +63,9 @@ KINK_TOLERANCE = 1e-6
 #: that has no effect: the value's own round-off over the part's (common practice, no
 #: source; the display threshold of :mod:`wirestate.report.sensitivity_table`)
 NO_EFFECT = 1e-6
+#: limit kinds whose value is a row of :func:`wirestate.tune.limits.ranges` at one sample
+#: (or the whole horizon), measured as :func:`wirestate.tune.margins.value_from_excess` does
+SAMPLED_KINDS = (*measures.PATH_KINDS, "energy")
 #: the tuning report lists at most this many parts per limit
 REPORTED_PARTS = 3
 
@@ -105,11 +108,12 @@ class LimitSensitivities(Sensitivities):
         return out
 
     def limit_values(self) -> dict[str, dict[str, Any]]:
-        """Limit name -> ``kind``, ``value`` (SI), ``unit``, ``active``, ``note``."""
+        """Limit name -> ``kind``, ``value`` (SI; ``None`` when not finite), ``unit``,
+        ``active``, ``note``."""
         return {
             q.name: {
                 "kind": self.kinds[q.name],
-                "value": q.value,
+                "value": q.value if math.isfinite(q.value) else None,
                 "unit": q.unit,
                 "active": self.active.get(q.name, ""),
                 "note": q.note,
@@ -169,8 +173,11 @@ def limit_sensitivities(
             found.append(_pole_limit(limit, problem, ev, sev))
         elif limit.kind == "output_impedance":
             found.append(_impedance_limit(limit, problem, ev, sev))
-        else:
+        elif limit.kind in SAMPLED_KINDS:
             found.append(_path_limit(limit, problem, ev, sev, start))
+        else:
+            note = f"no elasticities are computed for {limit.kind} limits"
+            found.append(_Found(limit, math.nan, None, "", note=note))
     outputs: dict[str, Any] = {}
     for item in found:
         if item.expression is not None:
