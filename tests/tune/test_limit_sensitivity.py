@@ -170,29 +170,32 @@ def test_a_flat_maximum_is_noted_and_has_no_effect(rc_problem, write):
     assert found.most_sensitive()["start_level"] == []
 
 
-TWO_SECTIONS = (
-    RC.replace('name = "rc"', 'name = "two_rc"')
-    + """
+#: a second RC section from the source node, R2 = {r2}, C2 = 1 uF
+SECOND_SECTION = """
     [parts.R2]
     kind = "resistor"
     nodes = ["in", "b"]
-    value = "1kohm"
+    value = "{r2}"
     [parts.C2]
     kind = "capacitor"
     nodes = ["b", "gnd"]
     value = "1uF"
 """
-)
+
+
+def _pole_limit(write, circuit: str):
+    """The pole limit of ``RC_TUNING`` on ``circuit`` at the file's values."""
+    write("rc.toml", circuit)
+    path = write("rc_limits.toml", RC_TUNING)
+    problem = Problem(load_tuning(path), file=str(path))
+    found = limit_sensitivities(problem, {}, _start(problem), at="here")
+    return found, next(q for q in found.quantities if q.name == "pole")
 
 
 def test_a_repeated_active_pole_gets_a_note_not_a_number(write):
     # two RC sections with the same time constant (2 kohm x 0.5 uF = 1 kohm x 1 uF): the
     # loop's largest real part is a double pole, which has no derivative
-    write("rc.toml", TWO_SECTIONS)
-    path = write("rc_limits.toml", RC_TUNING)
-    problem = Problem(load_tuning(path), file=str(path))
-    found = limit_sensitivities(problem, {}, _start(problem), at="here")
-    pole = next(q for q in found.quantities if q.name == "pole")
+    found, pole = _pole_limit(write, RC + SECOND_SECTION.format(r2="1kohm"))
     assert pole.value == pytest.approx(-1e3, rel=1e-9)
     assert pole.elasticity is None and "repeated" in pole.note
     assert found.most_sensitive()["pole"] == []
@@ -299,49 +302,14 @@ def test_peak_impedance_agrees_with_central_differences(write):
     assert _check_against_differences(problem, found, start) == len(found.parts)
 
 
-KINKED = """
-    [circuit]
-    name = "pair_and_section"
-    [parts.Vs]
-    kind = "voltage_source"
-    nodes = ["in", "gnd"]
-    value = "1V"
-    [parts.R1]
-    kind = "resistor"
-    nodes = ["in", "a"]
-    value = "10ohm"
-    [parts.L1]
-    kind = "inductor"
-    nodes = ["a", "out"]
-    value = "1mH"
-    [parts.C1]
-    kind = "capacitor"
-    nodes = ["out", "gnd"]
-    value = "10uF"
-    [parts.R2]
-    kind = "resistor"
-    nodes = ["in", "b"]
-    value = "200ohm"
-    [parts.C2]
-    kind = "capacitor"
-    nodes = ["b", "gnd"]
-    value = "1uF"
-    [outputs.v_out]
-    voltage = "out"
-"""
-
-
 def test_a_tie_with_other_derivatives_is_noted_as_a_kink(write):
     # series RLC poles -R1/(2 L1) +- j..., real part -5000 1/s (zeta = (R1/2) sqrt(C1/L1)
     # = 0.5, the textbook series RLC, e.g. Hayt and Kemmerly, from memory), and an RC
     # section's pole -1/(R2 C2) = -5000 1/s too: the largest real part is attained by two
     # distinct modes whose derivatives differ (elasticities +1/-1 to R1/L1 against -1/-1
     # to R2/C2), so it has a kink there
-    write("rc.toml", KINKED)
-    path = write("rc_limits.toml", RC_TUNING)
-    problem = Problem(load_tuning(path), file=str(path))
-    found = limit_sensitivities(problem, {}, _start(problem), at="here")
-    pole = next(q for q in found.quantities if q.name == "pole")
+    # (the series RLC of tests/tune/conftest.py: 10 ohm, 1 mH, 10 uF)
+    _, pole = _pole_limit(write, RLC + SECOND_SECTION.format(r2="200ohm"))
     assert pole.value == pytest.approx(-5000.0, rel=1e-9)
     assert "kink" in pole.note and "also at mode" in pole.note
     shown = {p: v for p, v in pole.elasticity.items() if abs(v) > 1e-9}
