@@ -402,6 +402,14 @@ def _unit_elasticities(folder: Path, out: str) -> None:
     assert abs(found["R1"] + 1) < 1e-12 and abs(found["C1"] + 1) < 1e-12
 
 
+def _report(name: str, preferred: float | None) -> str:
+    """A ``wirestate tune --json`` report of tuning ``name`` (only what ``--preferred``
+    reads) with R1's preferred value."""
+    import json
+
+    return json.dumps({"name": name, "variables": {"R1": {"preferred": preferred}}})
+
+
 def _steady_rc(folder: Path, out: str) -> None:
     import csv
 
@@ -809,7 +817,65 @@ CASES: list[Case] = [
         "sensitivity",
         {"t.toml": TUNING, "rc.toml": RC_TOLERANCE},
         ["inspect", "{t.toml}", "--sensitivity"],
-        where=("t.toml", "--sensitivity"),
+        expect="ok",
+        check=_in_output("sensitivities of t", "vmax", "circuit file's part values"),
+    ),
+    Case(
+        "sens_preferred_report",
+        "sensitivity",
+        {"t.toml": TUNING, "rc.toml": RC_TOLERANCE, "r.json": _report("t", 2200.0)},
+        ["inspect", "{t.toml}", "--sensitivity", "--preferred", "{r.json}"],
+        expect="ok",
+        check=_in_output("preferred values recorded in"),
+    ),
+    Case(
+        "sens_preferred_missing",
+        "sensitivity",
+        {"t.toml": TUNING, "rc.toml": RC_TOLERANCE},
+        ["inspect", "{t.toml}", "--sensitivity", "--preferred", "{none.json}"],
+        where=("none.json", "--preferred"),
+    ),
+    Case(
+        "sens_preferred_not_json",
+        "sensitivity",
+        {"t.toml": TUNING, "rc.toml": RC_TOLERANCE},
+        ["inspect", "{t.toml}", "--sensitivity", "--preferred", "{rc.toml}"],
+        where=("rc.toml", "--preferred", "not a JSON report"),
+    ),
+    Case(
+        "sens_preferred_no_variables",
+        "sensitivity",
+        {"t.toml": TUNING, "rc.toml": RC_TOLERANCE, "r.json": '{"name": "t"}'},
+        ["inspect", "{t.toml}", "--sensitivity", "--preferred", "{r.json}"],
+        where=("r.json", "variables"),
+    ),
+    Case(
+        "sens_preferred_other_tuning",
+        "sensitivity",
+        {"t.toml": TUNING, "rc.toml": RC_TOLERANCE, "r.json": _report("other", 2200.0)},
+        ["inspect", "{t.toml}", "--sensitivity", "--preferred", "{r.json}"],
+        where=("r.json", "name", "'other'"),
+    ),
+    Case(
+        "sens_preferred_failed_tuning",
+        "sensitivity",
+        {"t.toml": TUNING, "rc.toml": RC_TOLERANCE, "r.json": _report("t", None)},
+        ["inspect", "{t.toml}", "--sensitivity", "--preferred", "{r.json}"],
+        where=("r.json", "variables.R1.preferred"),
+    ),
+    Case(
+        "sens_preferred_without_sensitivity",
+        "sensitivity",
+        {"t.toml": TUNING, "rc.toml": RC_TOLERANCE},
+        ["inspect", "{t.toml}", "--preferred", "{t.toml}"],
+        where=("--preferred", "--sensitivity"),
+    ),
+    Case(
+        "sens_preferred_circuit",
+        "sensitivity",
+        {"rc.toml": RC, "r.json": _report("t", 2200.0)},
+        ["inspect", "{rc.toml}", "--sensitivity", "--preferred", "{r.json}"],
+        where=("rc.toml", "--preferred"),
     ),
     Case(
         "sens_zero_resistor",

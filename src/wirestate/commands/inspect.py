@@ -31,7 +31,14 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--sensitivity",
         action="store_true",
-        help="also give the elasticities of every mode and DC gain to every part value",
+        help="also give the elasticities of every mode and DC gain (of a tuning file: of every "
+        "limit's value) to every part value",
+    )
+    parser.add_argument(
+        "--preferred",
+        metavar="REPORT",
+        help="with --sensitivity on a tuning file: take the elasticities at the preferred "
+        "values recorded in REPORT (the --json report of wirestate tune)",
     )
 
 
@@ -52,24 +59,40 @@ def run(args: argparse.Namespace) -> int:
         raise SimulationError(
             "invalid_field", "--pair chooses the curves of the --plot figure; give --plot too"
         )
+    if args.preferred and not args.sensitivity:
+        from wirestate.errors import SimulationError
+
+        raise SimulationError(
+            "invalid_field",
+            "--preferred chooses where --sensitivity takes the elasticities; give "
+            "--sensitivity too",
+        )
     found = inspect_file(args.model)
     pairs = [_pair(text, found.linear) for text in args.pair] or None  # with or without --plot
-    sensitivity = _sensitivity(found, args.model) if args.sensitivity else None
+    sensitivity = _sensitivity(found, args.model, args.preferred) if args.sensitivity else None
     if args.json:
         data = dict(found.data)
         if sensitivity is not None:
-            from wirestate.report.sensitivity_table import sensitivity_json
+            from wirestate.report.sensitivity_table import (
+                limit_sensitivity_json,
+                sensitivity_json,
+            )
 
-            data.update(sensitivity_json(sensitivity))
+            tuning = found.data.get("kind") == "tuning"
+            data.update((limit_sensitivity_json if tuning else sensitivity_json)(sensitivity))
         json.dump(data, sys.stdout, indent=2)
         sys.stdout.write("\n")
     else:
         print(found.summary)
         if sensitivity is not None:
-            from wirestate.report.sensitivity_table import sensitivity_text
+            from wirestate.report.sensitivity_table import (
+                limit_sensitivity_text,
+                sensitivity_text,
+            )
 
+            tuning = found.data.get("kind") == "tuning"
             print()
-            print(sensitivity_text(sensitivity))
+            print((limit_sensitivity_text if tuning else sensitivity_text)(sensitivity))
     if args.plot:
         from wirestate.report.inspect_plot import plot_inspection
 
@@ -95,16 +118,31 @@ def _pair(text: str, block) -> tuple[str, str]:
     return source, output
 
 
-def _sensitivity(found, path: str):
+def _sensitivity(found, path: str, report: str | None):
     from wirestate.errors import ModelFileError, WirestateError
     from wirestate.sensitivity import circuit_sensitivities
 
+    if found.data.get("kind") == "tuning":
+        from wirestate.tune import load_tuning
+        from wirestate.tune.sensitivity import tuning_file_sensitivities
+
+        try:
+            return tuning_file_sensitivities(load_tuning(path), file=path, report=report)
+        except WirestateError as exc:
+            raise exc.with_file(path) from None
+    if report:
+        raise ModelFileError(
+            "wrong_file_kind",
+            "--preferred: preferred values are recorded for tuning files; this is a "
+            f"{found.data.get('kind')} file",
+            file=path,
+        )
     spec = getattr(found.linear, "spec", None)
     if found.data.get("kind") != "circuit" or spec is None:
         raise ModelFileError(
             "wrong_file_kind",
-            "--sensitivity: elasticities are given for circuit files; inspect the circuit "
-            "file of this model",
+            "--sensitivity: elasticities are given for circuit and tuning files; inspect "
+            "the circuit file of this model",
             file=path,
         )
     try:

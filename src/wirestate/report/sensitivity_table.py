@@ -4,10 +4,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from wirestate.report.tables import table
 from wirestate.sensitivity import Sensitivities
+
+if TYPE_CHECKING:
+    from wirestate.tune.sensitivity import LimitSensitivities
 
 #: the table shows this many parts as columns, the most influential first
 TABLE_PARTS = 8
@@ -16,13 +19,16 @@ TABLE_PARTS = 8
 SHOWN_AS_ZERO = 1e-6
 
 
-def sensitivity_text(sens: Sensitivities, *, max_parts: int = TABLE_PARTS) -> str:
+def sensitivity_text(
+    sens: Sensitivities, *, max_parts: int = TABLE_PARTS, at: str = "the file's values"
+) -> str:
     """The sensitivity table ``wirestate inspect --sensitivity`` prints.
 
     Rows are quantities (natural frequency and damping ratio per mode, slowest first, then
     DC gains), columns the parts, the part with the largest elasticity anywhere first.
     Quantities without elasticities (repeated poles, zero or unbounded gains, damping
-    ratios of real poles) are listed under the notes with the reason.
+    ratios of real poles) are listed under the notes with the reason. ``at`` says where
+    the elasticities were taken.
     """
     ranked = sens.ranking()
     shown = [part for part, _, _ in ranked[:max_parts]]
@@ -34,8 +40,7 @@ def sensitivity_text(sens: Sensitivities, *, max_parts: int = TABLE_PARTS) -> st
         cells = [_rounded(q.elasticity.get(part, 0.0), scale) for part in shown]
         rows.append((q.name, float(f"{q.value:.5g}"), q.unit, *cells))
     out = [
-        f"sensitivities of {sens.block}: elasticities d ln(quantity) / d ln(part value) at "
-        "the file's values",
+        f"sensitivities of {sens.block}: elasticities d ln(quantity) / d ln(part value) at {at}",
         "  (+1: the quantity rises 1 % per 1 % increase of the part; values below "
         f"{SHOWN_AS_ZERO:g} times the row's largest (or 1) are shown as 0; every digit in "
         "--json)",
@@ -71,6 +76,27 @@ def sensitivity_json(sens: Sensitivities) -> dict[str, Any]:
     return {
         "sensitivity": sens.to_dict(),
         "sensitivity_notes": {**sens.quantity_notes(), **_general(sens.notes)},
+    }
+
+
+def limit_sensitivity_text(sens: LimitSensitivities) -> str:
+    """The table ``wirestate inspect TUNING_FILE --sensitivity`` prints: one row per limit
+    (its value at the design and its elasticities), then the sample, frequency or mode
+    that attains each limit's value."""
+    out = [sensitivity_text(sens, at=sens.at)]
+    rows = [(name, sens.active.get(name, "")) for name in sens.kinds]
+    out += ["", "each limit's value is attained at", table(("limit", "at"), rows)]
+    return "\n".join(out)
+
+
+def limit_sensitivity_json(sens: LimitSensitivities) -> dict[str, Any]:
+    """:func:`sensitivity_json` for a tuning file (quantities are limits), with
+    ``sensitivity_at`` (where the elasticities were taken, and the part values there) and
+    ``sensitivity_limits`` (limit -> kind, value, unit, the sample that attains it, note)."""
+    return {
+        **sensitivity_json(sens),
+        "sensitivity_at": {"design": sens.at, "values": dict(sens.values)},
+        "sensitivity_limits": sens.limit_values(),
     }
 
 

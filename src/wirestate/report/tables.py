@@ -402,6 +402,25 @@ def _stress_lines(stress: list[dict[str, Any]]) -> list[str]:
     return out
 
 
+def most_sensitive_lines(report: dict[str, Any]) -> list[str]:
+    """The "most sensitive parts" section of the tuning report: per limit, the parts whose
+    values move it most at the preferred values (elasticities, signed), with the sample
+    that attains it and the limit's notes."""
+    active = report.get("sensitivity_active", {})
+    notes = report.get("sensitivity_notes", {})
+    rows = []
+    for name, parts in report["most_sensitive_parts"].items():
+        shown = ", ".join(f"{p['part']} {p['elasticity']:+.3g}" for p in parts)
+        rows.append([name, active.get(name, ""), shown or "none"])
+    out = [
+        "most sensitive parts at the preferred values (elasticity: % change of the limit's "
+        "value per % change of the part)",
+        text_table(rows, ["limit", "attained at", "parts"]),
+    ]
+    out += [f"  {name}: {note}" for name, note in notes.items() if name != "design"]
+    return out
+
+
 def tuning_report(report: dict[str, Any]) -> str:
     """The text ``wirestate tune`` prints for a :meth:`TuningResult.to_dict` report."""
     from wirestate.tune.report import show_margin
@@ -431,6 +450,10 @@ def tuning_report(report: dict[str, Any]) -> str:
         ]
     if report["stress"]:
         out += [""] + _stress_lines(report["stress"])
+    if "most_sensitive_parts" in report:
+        out += [""] + most_sensitive_lines(report)
+    elif "sensitivity_notes" in report:
+        out += ["", f"most sensitive parts: {report['sensitivity_notes']['design']}"]
     solver = report["solver"]
     out += [
         "",

@@ -103,11 +103,19 @@ def _one_limit(
             return peak, limit.max - peak
         vectors = measures.excess(limit, problem, ev, start)
         worst = np.max(np.column_stack([_row_max(v) for v in vectors]), axis=1)
+    return value_from_excess(limit, worst), -worst
+
+
+def value_from_excess(limit: Limit, worst: Any) -> Any:
+    """A path, energy or impedance limit's value from its largest excess over its bound
+    (:func:`wirestate.tune.limits.excess`; numbers or CasADi expressions): the least
+    sample of a minimum, the largest deviation of a settling band, else the largest
+    sample."""
     if limit.kind == "minimum":
-        return limit.min - worst, -worst
+        return limit.min - worst
     if limit.kind == "settling":
-        return limit.band + worst, -worst
-    return limit.max + worst, -worst
+        return limit.band + worst
+    return limit.max + worst
 
 
 def _row_max(vector: Any) -> np.ndarray:

@@ -25,6 +25,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from wirestate.parametric import ParametricCircuit, batch_call
+from wirestate.spec.circuit import part_parameter
 from wirestate.tune import expm as cexpm
 from wirestate.tune.closed_loop import held_pair, loop_matrices
 from wirestate.tune.evaluation import (
@@ -81,6 +82,15 @@ def _norms(A: Any, B: Any, h: float) -> Any:
     return casadi.vertcat(one, infinity)
 
 
+def part_nominal_value(problem: Problem, name: str) -> float:
+    """A parameter's nominal value: a resistor's, capacitor's or inductor's from
+    ``problem.nominal``, any other part's primary value (a gain, a coupling) from the file."""
+    if name in problem.nominal:
+        return problem.nominal[name]
+    part = problem.circuit.parts[name]
+    return float(getattr(part, part_parameter(part.kind)))
+
+
 #: largest ``states + inputs`` of the circuit whose loop is built as SX (else as MX)
 SX_SIZE = 16
 #: largest ``states**2 * steps * (1 + parameters)`` whose trajectory is unrolled into one
@@ -110,7 +120,9 @@ class ParametricLoop:
         self.problem = problem
         self.parameters = list(parameters)
         self.box = {n: (float(box[n][0]), float(box[n][1])) for n in self.parameters}
-        self.nominal_row = np.array([problem.nominal[n] for n in self.parameters], dtype=float)
+        self.nominal_row = np.array(
+            [part_nominal_value(problem, n) for n in self.parameters], dtype=float
+        )
         self.energy_parts = energy_parts(problem)
         self._functions: dict[str, Any] | None = None
         #: times this copy built its CasADi functions (a pickled copy starts again at 0)
@@ -200,8 +212,17 @@ class ParametricLoop:
                                      list(energies))  # fmt: skip
         return {
             "loop": function, "keys": keys, "squarings": squarings, "circuit": circuit,
-            "energy": energy, "states": self._states(p, named) if kind is casadi.SX else None,
+            "energy": energy, "unrolled": (p, named) if kind is casadi.SX else None,
         }  # fmt: skip
+
+    def _unrolled_states(self) -> Any:
+        """The function of :meth:`_states`, built on first use (``None`` for large
+        loops)."""
+        compiled = self._compiled()
+        if "states" not in compiled:
+            arguments = compiled["unrolled"]
+            compiled["states"] = None if arguments is None else self._states(*arguments)
+        return compiled["states"]
 
     def _states(self, p: Any, named: dict[str, Any]) -> Any:
         """``p -> X``: the whole trajectory as one SX function, for the condensed NLP (its
@@ -305,12 +326,19 @@ class ParametricLoop:
         )  # fmt: skip
 
     def symbolic(
-        self, values: dict[str, Any], *, X: Any = None, horizon: int | None = None
+        self,
+        values: dict[str, Any],
+        *,
+        X: Any = None,
+        horizon: int | None = None,
+        unrolled: bool = True,
     ) -> Evaluation:
         """The case with part values as CasADi expressions (missing parts: nominal).
 
         ``X`` gives the states (multiple shooting); otherwise they are eliminated
         (:func:`~wirestate.tune.evaluation.condensed_states`) up to sample ``horizon``.
+        ``unrolled=False`` steps through blocks of one function even for a small loop
+        (whose derivatives are quicker to generate once than the unrolled trajectory's).
         """
         import casadi
 
@@ -324,8 +352,9 @@ class ParametricLoop:
         out = dict(zip(self.keys, self.function(vector), strict=True))
         problem = self.problem
         V = problem.schedule.inputs
-        if X is None and compiled["states"] is not None:
-            X = compiled["states"](vector)
+        states = self._unrolled_states() if X is None and unrolled else None
+        if states is not None:
+            X = states(vector)
         elif X is None:
             X = condensed_states(out["Phi"], out["Gamma"], out["x0"], V, horizon)
         columns = problem.schedule.steady_columns

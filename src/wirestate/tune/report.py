@@ -52,6 +52,9 @@ class TuningResult:
     responses: dict[str, Any] = field(default_factory=dict, repr=False)
     #: the verdict (:func:`verdict`): status, exit status, what failed, one line
     verdict: dict[str, Any] = field(default_factory=dict)
+    #: the elasticities of every limit's value at the preferred values
+    #: (:func:`sensitivity_section`); empty when there are no preferred values
+    sensitivity: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready report; every number in SI base units."""
@@ -70,6 +73,7 @@ class TuningResult:
             "notes": list(self.notes),
             "cautions": list(self.cautions),
             "verdict": dict(self.verdict),
+            **self.sensitivity,
         }
 
 
@@ -335,4 +339,44 @@ def failure_verdict(
         "over_ratings": [],
         "active_bounds": bounds,
         "summary": line,
+    }
+
+
+def sensitivity_section(
+    problem: Problem, preferred: dict[str, float], start: Evaluation
+) -> dict[str, Any]:
+    """The report's "most sensitive parts": per limit, the parts whose values move its value
+    most at the preferred design (:func:`wirestate.tune.sensitivity.limit_sensitivities`,
+    one AD evaluation through the case's own loop).
+
+    Returns
+    -------
+    dict
+        ``most_sensitive_parts`` (limit -> up to three ``{part, elasticity}``, largest
+        ``|elasticity|`` first), ``sensitivity`` (limit -> part -> elasticity, every part
+        with a value), ``sensitivity_notes`` (limit -> note; ``"design"``: where the
+        elasticities were taken and how maxima over samples are differentiated) and
+        ``sensitivity_active`` (limit -> the sample, frequency or mode that attains it).
+        Empty, with a note under ``sensitivity_notes``, when the derivatives cannot be
+        evaluated at these values.
+    """
+    from wirestate.errors import WirestateError
+    from wirestate.tune.sensitivity import limit_sensitivities
+
+    try:
+        found = limit_sensitivities(problem, preferred, start, at="the preferred values")
+    except WirestateError as exc:
+        return {"sensitivity_notes": {"design": f"no elasticities: {exc.message}"}}
+    except (RuntimeError, np.linalg.LinAlgError) as exc:
+        # CasADi or LAPACK failing on numbers the verification accepted must not cost the
+        # user the tuning itself: the section says why it is missing
+        return {"sensitivity_notes": {"design": f"no elasticities: {exc}"}}
+    return {
+        "most_sensitive_parts": found.most_sensitive(),
+        "sensitivity": found.to_dict(),
+        "sensitivity_notes": {
+            **found.quantity_notes(),
+            "design": "; ".join([f"at {found.at}", *found.notes]),
+        },
+        "sensitivity_active": dict(found.active),
     }

@@ -28,6 +28,7 @@ from wirestate.tune.report import (
     failure_verdict,
     responses,
     run_notes,
+    sensitivity_section,
     solver_figures,
     variable_rows,
     verdict,
@@ -152,6 +153,7 @@ def _report(
             problem, start.row(0), verification.evaluation, optimum, verification.envelope
         ),
         verdict=verdict(limits, verification.stress, verification.corners_checked, snapped.series),
+        sensitivity=sensitivity_section(problem, snapped.values, start),
     )
 
 
