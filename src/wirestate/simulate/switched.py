@@ -32,6 +32,7 @@ forward voltage (or on it and rising), off otherwise; one instant allows at most
 
 from __future__ import annotations
 
+import bisect
 import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -126,8 +127,16 @@ class _Modal:
     propagate: bool  # well enough conditioned to advance the state in modal form
 
 
+#: at most this many sets of held inputs keep their constants per mode (a run whose
+#: inputs change at every output step must not grow the cache without bound)
+HELD_CACHE_SIZE = 16
+
+
 class _ModeData:
-    def __init__(self, mode: ModeModel, diode_rows: np.ndarray) -> None:
+    """Everything about one mode that does not depend on the state: matrices, modal
+    form, and (lazily) the exponentials of the search points that recur in every visit."""
+
+    def __init__(self, mode: ModeModel, diode_rows: np.ndarray, diodes: list[int]) -> None:
         self.mode = mode
         self.disc = Discretization(mode.A, mode.B_affine, max_entries=256)
         self.Pv = mode.P[diode_rows]
@@ -135,7 +144,76 @@ class _ModeData:
         self.pv = mode.p[diode_rows]
         self.Pv_abs = np.abs(self.Pv)
         self.Qv_abs = np.abs(self.Qv)
-        self.modal = _modal(mode.A, self.Pv)
+        self.modal = m = _modal(mode.A, self.Pv)
+        self.on_diodes = np.array([mode.on[k] for k in diodes], dtype=bool)
+        #: +1 for a conducting diode (its margin must stay >= 0), -1 for a blocking one
+        self.sign = np.where(self.on_diodes, 1.0, -1.0)
+        self.has_offset = bool(np.any(mode.state_offset))
+        self.Vinv_abs = np.abs(m.Vinv)
+        self.R_abs = np.abs(m.R)
+        # the state-dependent parts of the margin band and of the modal noise, one product
+        self.tolerance_rows = 1e-12 * self.Pv_abs + 1e-13 * (self.R_abs @ self.Vinv_abs)
+        #: margins and their rates in one product: ``[Pv; Pv A] @ x``
+        self.margin_rows = np.vstack([self.Pv, self.Pv @ mode.A])
+        self.lam_real = m.lam.real
+        self.inverse_rate = 1.0 / np.maximum(np.abs(m.lam), 1e-300)
+        lam = m.lam
+        #: every eigenvalue in the open left half-plane (see ``_never_crosses``)
+        self.stable = bool(
+            lam.size and not (np.any(lam.real > 0.0) or np.any(np.abs(lam) < 1e-300))
+        )
+        #: the slowest rate: ``tau * slowest >= 1e-8`` lets ``_phi1`` skip its series
+        self.slowest = float(np.abs(lam).min(initial=math.inf))
+        self.oscillating = np.flatnonzero((lam.imag > 0.0) & np.isfinite(lam))
+        self.R_oscillating = m.R[:, self.oscillating]
+        self.decay = (-lam.real[self.oscillating]).tolist()
+        #: eight search points per period of each oscillating eigenvalue
+        self.spacing = math.pi / (4.0 * lam.imag[self.oscillating])
+        #: the earliest point a ring of the search can put (infinity without rings)
+        self.first_ring = float(self.spacing.min(initial=math.inf))
+        self._rings: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
+        self.held: dict[bytes, _Held] = {}
+
+    def ring(self, j: int, count: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``e^{lambda tau}`` and ``tau phi1(lambda tau)`` at ``tau = k spacing[j]`` (the
+        ``j``-th oscillating eigenvalue's spacing),
+        ``k = 1 ... >= count``, as ``(n, K)`` arrays computed once per mode and grown;
+        first the times ``tau``."""
+        found = self._rings.get(j)
+        if found is None or len(found[0]) < count:
+            size = count if found is None else max(count, 2 * len(found[0]))
+            tau = self.spacing[j] * np.arange(1, size + 1)
+            w = self.modal.lam[:, None] * tau[None, :]
+            e = np.exp(w)
+            found = (tau, e, tau[None, :] * _phi1(w, e=e))
+            self._rings[j] = found
+        return found
+
+
+class _Held:
+    """The constants of one mode with one set of held inputs ``u``."""
+
+    __slots__ = (
+        "c", "b", "q", "tol_base", "tol_inputs", "noise_inputs", "Rb", "final", "b_lam",
+        "b_oscillating", "tol_const", "Pc",
+    )  # fmt: skip
+
+    def __init__(self, data: _ModeData, u: np.ndarray, vf: np.ndarray) -> None:
+        mode, m = data.mode, data.modal
+        self.c = mode.B @ u + mode.f  # dx/dt = A x + c
+        self.q = data.Qv @ u + data.pv - vf  # margin = Pv x + q
+        u_abs = np.abs(u)
+        self.tol_base = 1e-9 * (1.0 + float(u_abs.max(initial=0.0)))
+        self.tol_inputs = data.Qv_abs @ u_abs + np.abs(data.pv)
+        self.tol_const = self.tol_base + 1e-12 * self.tol_inputs
+        self.Pc = data.Pv @ self.c  # the input part of the margins' rates
+        self.b = m.Vinv @ self.c  # modal form of c
+        self.noise_inputs = data.Vinv_abs @ np.abs(self.c)
+        self.Rb = m.R * self.b[None, :]
+        self.b_oscillating = self.b[data.oscillating] / m.lam[data.oscillating]
+        if data.stable:
+            self.b_lam = self.b / m.lam
+            self.final = data.sign * (self.q - (m.R @ self.b_lam).real)
 
 
 def _modal(A: np.ndarray, rows: np.ndarray) -> _Modal:
@@ -153,9 +231,38 @@ def _modal(A: np.ndarray, rows: np.ndarray) -> _Modal:
     return _Modal(lam, V, Vinv, rows @ V, omega, ok, cond <= MODAL_PROPAGATION_LIMIT)
 
 
-def _phi1(w: np.ndarray) -> np.ndarray:
-    """``(e^w - 1) / w``, and its series ``1 + w / 2`` where ``|w| < 1e-8``."""
-    return np.divide(np.expm1(w), w, out=1.0 + 0.5 * w, where=np.abs(w) >= 1e-8)
+#: Taylor coefficients of phi1(w) = sum w^k / (k + 1)!, highest first (seven terms: the
+#: first one left out is below 2.5e-19 for |w| < 1e-2)
+_PHI1_SERIES = tuple(1.0 / math.factorial(k + 1) for k in range(6, -1, -1))
+#: arrays up to this size take numpy's expm1 (fewer calls); larger ones the cheaper form
+_PHI1_SMALL_ARRAY = 256
+
+
+def _phi1(w: np.ndarray, smallest: float = 0.0, e: np.ndarray | None = None) -> np.ndarray:
+    """``(e^w - 1) / w``, with ``1`` at ``w = 0``.
+
+    ``smallest``, a lower bound on ``|w|`` known to the caller, skips the special case
+    (``>= 1e-8``). Large arrays (samples of a whole stretch) avoid numpy's complex
+    ``expm1``, which costs three times ``exp``: where ``|w| >= 1e-2`` the quotient is
+    formed from ``e = e^w`` (passed in when the caller has it; relative error at most
+    about ``eps / |w| <= 2e-14``), below that from the Taylor series.
+    """
+    if w.size <= _PHI1_SMALL_ARRAY:
+        if smallest >= 1e-8:
+            return np.expm1(w) / w
+        return np.divide(np.expm1(w), w, out=1.0 + 0.5 * w, where=np.abs(w) >= 1e-8)
+    if e is None:
+        e = np.exp(w)
+    near = np.abs(w) < 1e-2
+    out = np.divide(e - 1.0, w, out=np.ones_like(w), where=~near)
+    if near.any():
+        ws = w[near]
+        series = np.full_like(ws, _PHI1_SERIES[0])
+        for coefficient in _PHI1_SERIES[1:]:
+            series *= ws
+            series += coefficient
+        out[near] = series
+    return out
 
 
 class Chunk(NamedTuple):
@@ -218,8 +325,18 @@ class SwitchedEngine:
         key = tuple(self.on) if on is None else on
         found = self._data.get(key)
         if found is None:
-            found = _ModeData(self.circuit.mode(key), self._diode_rows)
+            found = _ModeData(self.circuit.mode(key), self._diode_rows, self.diodes)
             self._data[key] = found
+        return found
+
+    def _held(self, data: _ModeData) -> _Held:
+        """The constants of ``data``'s mode with the inputs held now (cached per mode)."""
+        key = self._u.tobytes()
+        found = data.held.get(key)
+        if found is None:
+            if len(data.held) >= HELD_CACHE_SIZE:
+                data.held.clear()
+            found = data.held[key] = _Held(data, self._u, self._vf)
         return found
 
     def _change(self, k: int, record: bool) -> None:
@@ -232,7 +349,9 @@ class SwitchedEngine:
             self.events.append(SwitchEvent(float(self.time), d.name, change, self._located))
             self._fresh = True
         # a shifted state keeps its physical value across the change
-        if np.any(before.mode.state_offset != after.mode.state_offset):
+        if (before.has_offset or after.has_offset) and np.any(
+            before.mode.state_offset != after.mode.state_offset
+        ):
             self.x = self.x + (before.mode.state_offset - after.mode.state_offset) @ self._u
 
     def apply(self, u: np.ndarray, *, record: bool = True) -> None:
@@ -278,25 +397,30 @@ class SwitchedEngine:
         if not self.diodes:
             return None
         data = self.data()
-        m = data.mode
-        v = data.Pv @ self.x + data.Qv @ self._u + data.pv - self._vf
-        rate = data.Pv @ (m.A @ self.x + m.B @ self._u + m.f)
-        on = np.array([self.on[k] for k in self.diodes])
-        tol = self._margin_tolerance(data) + np.abs(rate) * self._time_slack
-        wrong = np.where(on, v < -tol, v > tol)
-        near = np.abs(v) <= tol
-        if near.any():
-            # inside the band the search's verdict counts: it saw the margin beyond -tol
-            # a little later, on the exact solution; the instantaneous rate is a
-            # difference of stiff terms (1e14 /s times volts) and can have either sign
-            leaving = np.array([k in self._leaving for k in self.diodes])
-            wrong |= near & (leaving | np.where(on, rate < 0.0, rate > 0.0))
-        if not wrong.any():
-            return None
-        score = np.where(wrong, np.abs(v) + 1e-300, 0.0)
-        return self.diodes[int(np.argmax(score))]
+        held = self._held(data)
+        x = self.x
+        n = len(self.diodes)
+        both = (data.margin_rows @ x).tolist()
+        tol = self._margin_tolerance(data, held).tolist()
+        slack = self._time_slack
+        # a few diodes: plain Python per diode beats a dozen numpy calls on tiny arrays
+        found, score = None, 0.0
+        for i, (q, pc, on) in enumerate(
+            zip(held.q.tolist(), held.Pc.tolist(), data.on_diodes.tolist(), strict=True)
+        ):
+            vi, ri = both[i] + q, both[n + i] + pc
+            ti = tol[i] + abs(ri) * slack if slack else tol[i]
+            wrong = vi < -ti if on else vi > ti
+            if not wrong and abs(vi) <= ti:
+                # inside the band the search's verdict counts: it saw the margin beyond
+                # -tol a little later, on the exact solution; the instantaneous rate is a
+                # difference of stiff terms (1e14 /s times volts) and can have either sign
+                wrong = self.diodes[i] in self._leaving or (ri < 0.0 if on else ri > 0.0)
+            if wrong and abs(vi) + 1e-300 > score:
+                found, score = i, abs(vi) + 1e-300
+        return None if found is None else self.diodes[found]
 
-    def _margin_tolerance(self, data: _ModeData) -> np.ndarray:
+    def _margin_tolerance(self, data: _ModeData, held: _Held) -> np.ndarray:
         """Per diode, how far from its forward voltage a voltage counts as on it (V).
 
         An off diode's voltage is a difference of large terms (the off resistance times a
@@ -304,9 +428,7 @@ class SwitchedEngine:
         result: 1e-12 of their magnitude, plus 1e-9 of the inputs (measured: 3.5e-7 V of
         round-off at 10 Mohm, where the fixed 1e-9 V scale made a diode chatter).
         """
-        u = np.abs(self._u)
-        terms = data.Pv_abs @ np.abs(self.x) + data.Qv_abs @ u + np.abs(data.pv)
-        return 1e-9 * (1.0 + float(u.max(initial=0.0))) + 1e-12 * terms
+        return held.tol_const + 1e-12 * (data.Pv_abs @ np.abs(self.x))
 
     # -- advancing -----------------------------------------------------------------------
     def advance(self, h: float, sample: Sampler | None = None) -> list[Chunk]:
@@ -329,15 +451,18 @@ class SwitchedEngine:
         while end - self.time > tol_t:
             remaining = end - self.time
             data = self.data()
-            tau = self._first_crossing(data, remaining, tol_t) if self.diodes else None
+            held = self._held(data)
+            # the state in modal coordinates, shared by the search, the samples and the step
+            z0 = data.modal.Vinv @ self.x if data.modal.ok else None
+            tau = self._first_crossing(data, held, z0, remaining, tol_t) if self.diodes else None
             stop = remaining if tau is None else tau
             if sample is not None:
                 times = sample(self.time, self.time + stop, include_start)
                 if len(times):
-                    states = self.states_at(data, times - self.time)
+                    states = self.states_at(data, times - self.time, z0, held)
                     chunks.append(Chunk(times, states, tuple(self.on), self._u))
             if stop > 0.0:
-                self.x = self._propagate(data, stop)
+                self.x = self._propagate(data, stop, z0, held)
             self._fresh = False
             if tau is None:
                 break
@@ -363,69 +488,85 @@ class SwitchedEngine:
         self.time = end
         return chunks
 
-    def _propagate(self, data: _ModeData, tau: float) -> np.ndarray:
+    def _propagate(
+        self, data: _ModeData, tau: float, z0: np.ndarray | None, held: _Held
+    ) -> np.ndarray:
         m = data.modal
         if m.propagate:
-            z0 = m.Vinv @ self.x
-            b = m.Vinv @ (data.mode.B @ self._u + data.mode.f)
             w = m.lam * tau
-            return (m.V @ (np.exp(w) * z0 + tau * _phi1(w) * b)).real
+            return (m.V @ (np.exp(w) * z0 + tau * _phi1(w, tau * data.slowest) * held.b)).real
         Ad, Bd = data.disc.zoh(tau)
         return Ad @ self.x + Bd[:, :-1] @ self._u + Bd[:, -1]
 
-    def states_at(self, data: _ModeData, taus: np.ndarray) -> np.ndarray:
-        """``(n, len(taus))`` states ``taus`` seconds from now in the present mode."""
+    def states_at(
+        self,
+        data: _ModeData,
+        taus: np.ndarray,
+        z0: np.ndarray | None = None,
+        held: _Held | None = None,
+    ) -> np.ndarray:
+        """``(n, len(taus))`` states ``taus`` seconds from now in the present mode
+        (``z0``, the state in modal coordinates, and ``held`` are computed if not given)."""
         m = data.modal
+        held = self._held(data) if held is None else held
         if m.propagate:
-            z0 = m.Vinv @ self.x
-            b = m.Vinv @ (data.mode.B @ self._u + data.mode.f)
+            z0 = m.Vinv @ self.x if z0 is None else z0
             w = m.lam[:, None] * taus[None, :]
-            modal = np.exp(w) * z0[:, None] + taus[None, :] * _phi1(w) * b[:, None]
+            e = np.exp(w)
+            modal = e * z0[:, None] + taus[None, :] * _phi1(w, e=e) * held.b[:, None]
             return (m.V @ modal).real
-        return np.column_stack([self._propagate(data, float(t)) for t in taus])
+        return np.column_stack([self._propagate(data, float(t), z0, held) for t in taus])
 
-    def _first_crossing(self, data: _ModeData, h: float, tol_t: float) -> float | None:
+    def _first_crossing(
+        self, data: _ModeData, held: _Held, z0: np.ndarray | None, h: float, tol_t: float
+    ) -> float | None:
         """Earliest time in ``(0, h]`` where a diode leaves its side, or None."""
         m = data.modal
-        sign = np.array([1.0 if self.on[k] else -1.0 for k in self.diodes])
-        q = data.Qv @ self._u + data.pv - self._vf
-        tol = self._margin_tolerance(data)
+        sign = data.sign
+        q = held.q
+        x_abs = np.abs(self.x)
         if m.ok:
-            z0 = m.Vinv @ self.x
-            c = data.mode.B @ self._u + data.mode.f
-            b = m.Vinv @ c
-            tol = tol + self._modal_noise(m, c, h)
-            if self._never_crosses(m, sign, q, z0, b, tol):
-                return None
-            grid = self._search_grid(m, h, z0, b, float(tol.min()))
+            # the margin band (see _margin_tolerance) widened by the modal noise
+            tol = held.tol_const + data.tolerance_rows @ x_abs + self._modal_noise(data, held, h)
             # the modal sum at tau = 0 differs from P x by round-off that grows with the
             # condition of V and the size of the terms (10 Mohm off states); measured
             # from the direct value, a margin cannot seem to cross at tau = 0
             bias = data.Pv @ self.x - (m.R @ z0).real
-            values = sign[:, None] * (self._modal_values(m, z0, b, grid) + (q + bias)[:, None])
+            offset = q + bias
+            first = min(h * (_EARLY[0] if self._fresh else _EVEN[0]), data.first_ring)
+            if self._never_crosses(data, held, z0, offset, tol, first):
+                return None
+            grid, modal = self._search(data, held, z0, h, float(tol.min()))
+            values = sign[:, None] * (modal + offset[:, None])
         else:
+            tol = held.tol_const + 1e-12 * (data.Pv_abs @ x_abs)
             bias = np.zeros(len(self.diodes))
-            grid = self._search_grid(m, h)
+            pieces, rings = self._search_times(data, h)
+            rings = [data.spacing[j] * np.arange(1, count + 1) for j, count in rings]
+            grid = np.concatenate([*pieces, *rings])
             values = np.column_stack([
                 sign * (data.Pv @ self._exact_state(data, t) + q) for t in grid
             ])  # fmt: skip
         below = values < -tol[:, None]
         if not below.any():
             return None
+        order = np.argsort(grid, kind="stable")
+        grid, below = grid[order], below[:, order]
         column = int(np.argmax(below.any(axis=0)))
         roots = {}
         for row in np.flatnonzero(below[:, column]):
             a = 0.0 if column == 0 else grid[column - 1]
             offset = q[row] + bias[row]
             roots[row] = self._refine(
-                data, row, sign[row], offset, a, grid[column], tol_t, tol[row]
+                data, held, z0, row, sign[row], offset, a, grid[column], tol_t, tol[row]
             )
         best = min(roots.values())
         self._leaving = {self.diodes[row] for row, root in roots.items() if root <= best + tol_t}
         return best
 
-    def _modal_noise(self, m: _Modal, c: np.ndarray, h: float) -> np.ndarray:
-        """Per diode, how far round-off in the modal amplitudes can move a margin (V).
+    def _modal_noise(self, data: _ModeData, held: _Held, h: float) -> np.ndarray:
+        """Per diode, how far round-off in the modal amplitudes can move a margin (V):
+        the part from the inputs (``data.tolerance_rows`` holds the state's part).
 
         A state on the slow manifold of a stiff mode still has a round-off amplitude
         ``~1e-16 |V^-1| |x|`` along the fast eigenvector; the modal sum turns it into a
@@ -434,78 +575,113 @@ class SwitchedEngine:
         there (measured 2e-6 V on the bundled buck, where the direct rate showed the
         diode moving away). 1e-13 of the terms (1000 ulps) keeps such sign changes out.
         """
-        absVinv = np.abs(m.Vinv)
-        scale = np.minimum(h, 1.0 / np.maximum(np.abs(m.lam), 1e-300))
-        amplitude = absVinv @ np.abs(self.x) + (absVinv @ np.abs(c)) * scale
-        return 1e-13 * (np.abs(m.R) @ amplitude)
+        scale = np.minimum(h, data.inverse_rate)
+        return 1e-13 * (data.R_abs @ (held.noise_inputs * scale))
 
     @staticmethod
     def _never_crosses(
-        m: _Modal, sign: np.ndarray, q: np.ndarray, z0: np.ndarray, b: np.ndarray, tol
+        data: _ModeData,
+        held: _Held,
+        z0: np.ndarray,
+        offset: np.ndarray,
+        tol: np.ndarray,
+        first: float,
     ) -> bool:
-        """True when no diode can leave its side at any later time in this mode.
+        """True when no diode can leave its side at any search point (all at or after
+        ``first`` seconds) in this mode.
 
         With every eigenvalue in the closed left half-plane and none at zero, the modal
-        solution is ``z(t) = e^{lambda t} (z0 + b / lambda) - b / lambda``, so each margin
-        is its final value plus terms no larger than ``|r_k (z0_k + b_k / lambda_k)|``.
-        If the final value exceeds their sum, the margin keeps its sign for ever.
+        solution is ``z(t) = e^{lambda t} (z0 + b / lambda) - b / lambda``, so from
+        ``first`` on each margin is its final value plus terms no larger than
+        ``|r_k (z0_k + b_k / lambda_k)| e^{Re(lambda_k) first}``. If the final value
+        exceeds their sum, the margin keeps its sign there. The decay over ``first``
+        matters in stiff modes: a 1e15 /s mode carries the round-off of its large
+        amplitude, gone long before the first point the search would look at.
         """
-        lam = m.lam
-        if lam.size == 0:
-            return bool(np.all(sign * q > tol))
-        if np.any(lam.real > 0.0) or np.any(np.abs(lam) < 1e-300):
+        if data.modal.lam.size == 0:
+            return bool((data.sign * held.q > tol).all())
+        if not data.stable:
             return False
-        final = sign * (q - (m.R @ (b / lam)).real)
-        spread = np.abs(m.R * (z0 + b / lam)[None, :]).sum(axis=1)
-        return bool(np.all(final - spread > tol))
+        spread = data.R_abs @ np.abs((z0 + held.b_lam) * np.exp(data.lam_real * first))
+        final = held.final + data.sign * (offset - held.q)
+        return bool((final - spread > tol).all())
 
-    def _search_grid(
+    def _search_times(
         self,
-        m: _Modal,
+        data: _ModeData,
         h: float,
         z0: np.ndarray | None = None,
-        b: np.ndarray | None = None,
+        held: _Held | None = None,
         tol: float = 0.0,
-    ) -> np.ndarray:
-        """Trial points in ``(0, h]`` for the sign-change search.
+    ) -> tuple[list[np.ndarray], list[tuple[int, int]]]:
+        """Trial points in ``(0, h]`` for the sign-change search: ``(pieces, rings)``.
 
         Sixteen even points, eight per period of each oscillating mode while that mode can
         still move a margin by more than ``tol`` (its weight times its decay), and
         geometric points right after an event, where fast modes act. A ring at 50 MHz
         dies within a few hundred nanoseconds, so it sets the spacing there and not over
-        the whole off-time.
+        the whole off-time. ``pieces`` are arrays of times; each ring ``(j, count)``
+        stands for the times ``k * data.spacing[j]``, ``k = 1 ... count`` (the same in
+        every visit of the mode, so their exponentials are computed once: ``data.ring``).
         """
-        pieces = [np.linspace(0.0, h, 17)[1:]]
+        pieces = [h * _EVEN]
         if self._fresh:
             pieces.append(h * _EARLY)
-        lam = m.lam
-        oscillating = np.flatnonzero((lam.imag > 0.0) & np.isfinite(lam))
-        if len(oscillating):
-            life = np.full(len(oscillating), h)
+        rings: list[tuple[int, int]] = []
+        if len(data.oscillating):
+            weights = None
             if z0 is not None and tol > 0.0:
-                mu = lam[oscillating]
-                c = z0[oscillating] + np.divide(b[oscillating], mu)
-                weight = np.abs(m.R[:, oscillating] * c[None, :]).max(axis=0, initial=0.0)
-                decaying = (mu.real < 0.0) & (weight > 0.0)
-                with np.errstate(divide="ignore"):
-                    dies = np.log(np.maximum(weight / tol, 1.0)) / -mu.real
-                life = np.where(decaying, np.minimum(h, dies), h)
-                life = np.where(weight > 0.0, life, 0.0)
-            counts = np.ceil(life * lam[oscillating].imag * 4.0 / math.pi).astype(int)
+                c = z0[data.oscillating] + held.b_oscillating
+                weights = np.abs(data.R_oscillating * c[None, :]).max(axis=0, initial=0.0)
+                weights = weights.tolist()
             budget = 20000
-            for span, count in zip(life, counts, strict=True):
+            for i, spacing in enumerate(data.spacing.tolist()):
+                span = h
+                if weights is not None:
+                    weight, decay = weights[i], data.decay[i]
+                    if weight <= 0.0:
+                        span = 0.0
+                    elif decay > 0.0:
+                        span = min(h, math.log(max(weight / tol, 1.0)) / decay)
+                count = math.ceil(span / spacing)
                 if count > 16 and span > 0.0:
-                    count = min(count, budget)
+                    if count > budget:  # thinner, but still over the whole life
+                        count = max(budget, 0)
+                        pieces.append(np.linspace(0.0, span, count + 1)[1:])
+                    else:
+                        rings.append((i, min(count, math.floor(h / spacing))))
                     budget -= count
-                    pieces.append(np.linspace(0.0, span, count + 1)[1:])
-        grid = np.concatenate(pieces)
-        grid.sort()  # repeated points cost one evaluation each and change nothing
-        return grid
+        return pieces, rings
+
+    def _search(
+        self, data: _ModeData, held: _Held, z0: np.ndarray, h: float, tol: float
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """The search's trial times (unsorted) and the modal part of every diode margin
+        there, ``Re(r (e^{lambda tau} z0 + tau phi1(lambda tau) b))``."""
+        pieces, rings = self._search_times(data, h, z0, held, tol)
+        times = np.concatenate(pieces)
+        first = h * (_EARLY[0] if self._fresh else _EVEN[0])  # the earliest of `times`
+        values = [self._modal_values(data, z0, held.b, times, first)]
+        if rings:
+            times = [times]
+            Rz = data.modal.R * z0[None, :]
+            for j, count in rings:
+                tau, E, Phi = data.ring(j, count)
+                values.append((Rz @ E[:, :count] + held.Rb @ Phi[:, :count]).real)
+                times.append(tau[:count])
+            return np.concatenate(times), np.hstack(values)
+        return times, values[0]
 
     @staticmethod
-    def _modal_values(m: _Modal, z0: np.ndarray, b: np.ndarray, tau: np.ndarray) -> np.ndarray:
+    def _modal_values(
+        data: _ModeData, z0: np.ndarray, b: np.ndarray, tau: np.ndarray, first: float
+    ) -> np.ndarray:
+        """The modal part of the margins at times ``tau`` (none before ``first``)."""
+        m = data.modal
         w = m.lam[:, None] * tau[None, :]
-        modal = np.exp(w) * z0[:, None] + tau[None, :] * _phi1(w) * b[:, None]
+        e = np.exp(w)
+        phi = _phi1(w, first * data.slowest, e)
+        modal = e * z0[:, None] + tau[None, :] * phi * b[:, None]
         return (m.R @ modal).real
 
     def _exact_state(self, data: _ModeData, tau: float) -> np.ndarray:
@@ -516,7 +692,7 @@ class SwitchedEngine:
         E = expm(M)
         return E[:n, :n] @ self.x + E[:n, n]
 
-    def _refine(self, data, row, sign, q, a, b, tol_t, tol_v) -> float:
+    def _refine(self, data, held, z0, row, sign, q, a, b, tol_t, tol_v) -> float:
         """Root of one diode's watch function in ``[a, b]`` (safeguarded Newton).
 
         The watch function is above ``-tol_v`` at ``a`` and below it at ``b``. Its zero is
@@ -527,10 +703,9 @@ class SwitchedEngine:
         """
         m = data.modal
         if m.ok:
-            z0 = m.Vinv @ self.x
-            bb = m.Vinv @ (data.mode.B @ self._u + data.mode.f)
-            rz, rb = m.R[row] * z0, m.R[row] * bb
-            slope = rz * m.lam + rb  # d/dtau of r z(tau) is slope @ e^{lambda tau}
+            lam, slowest = m.lam, data.slowest
+            rz, rb = m.R[row] * z0, held.Rb[row]
+            slope = rz * lam + rb  # d/dtau of r z(tau) is slope @ e^{lambda tau}
 
         def value(tau: float) -> tuple[float, float]:
             if not m.ok:
@@ -538,9 +713,9 @@ class SwitchedEngine:
                 mm = data.mode
                 rate = data.Pv[row] @ (mm.A @ x + mm.B @ self._u + mm.f)
                 return sign * (data.Pv[row] @ x + q) - level, sign * rate
-            w = m.lam * tau
+            w = lam * tau
             e = np.exp(w)
-            v = (rz @ e + tau * (rb @ _phi1(w))).real
+            v = (rz @ e + tau * (rb @ _phi1(w, tau * slowest))).real
             return sign * (v + q) - level, sign * (slope @ e).real
 
         level = 0.0
@@ -605,6 +780,8 @@ class SwitchedEngine:
 
 #: fractions of a segment sampled right after an event, where fast modes act
 _EARLY = np.logspace(-9, -1, 9)
+#: sixteen even fractions of a segment, the search's coarsest points
+_EVEN = np.arange(1, 17) / 16.0
 
 
 def _gate_edges(waveforms: Mapping[str, Waveform], gates: list[str], until: float) -> np.ndarray:
@@ -734,6 +911,7 @@ class SampleClock:
         self.grid = grid
         self.step = step
         self.snap = SNAP * step
+        self._grid = grid.tolist()  # for bisect: a search per stretch of the run
         self.until = float(grid[-1])
         self.engine = engine
         self.fine = fine
@@ -767,16 +945,39 @@ class SampleClock:
         times = last + fs * np.arange(first, first + count)
         return times[times < last + window]
 
+    def _fine_range(self, t0: float, t1: float, low: float, high: float) -> tuple[float, int, int]:
+        """``(last, k0, k1)``: the fine samples ``last + fine_step * k``, ``k0 <= k < k1``,
+        of :meth:`_fine_times` that lie in ``[low, high)`` (the same floating-point
+        expressions, in plain arithmetic: this runs once per stretch of a run)."""
+        events = self.engine.events
+        if not self.fine or not events:
+            return 0.0, 0, 0
+        fs, window = self.fine
+        last = events[-1].time
+        first = max(1, math.floor((t0 - last) / fs))
+        stop = min(t1, last + window)
+        end = first + math.floor((stop - last) / fs) + 1 - first
+        top = min(last + window, high)
+        k0, k1 = first, end
+        while k0 < k1 and last + fs * k0 < low:
+            k0 += 1
+        while k1 > k0 and not last + fs * (k1 - 1) < top:
+            k1 -= 1
+        return last, k0, k1
+
     def sample(self, t0: float, t1: float, include_start: bool) -> np.ndarray:
         """Output steps and fine samples in ``(t0, t1)`` (``[t0, t1)`` with
         ``include_start``), each at most once (a :data:`Sampler`)."""
         low = t0 - self.snap if include_start else t0 + self.snap
-        lo = int(np.searchsorted(self.grid, low, side="left"))
-        hi = int(np.searchsorted(self.grid, t1 - self.snap, side="left"))
+        high = t1 - self.snap
+        lo = bisect.bisect_left(self._grid, low)
+        hi = bisect.bisect_left(self._grid, high)
         times = self.grid[lo:hi]
-        fine = self._fine_times(t0, t1)
-        if len(fine):
-            fine = fine[(fine >= low) & (fine < t1 - self.snap)]
+        last, k0, k1 = self._fine_range(t0, t1, low, high)
+        if k1 > k0:
+            fine = last + self.fine[0] * np.arange(k0, k1)
+            if hi == lo and self.fine[0] > self.snap:
+                return fine  # sorted, and no two within snap of each other
             times = np.sort(np.concatenate([times, fine]))
             times = times[np.concatenate([[True], np.diff(times) > self.snap])]
         return times
@@ -896,32 +1097,45 @@ class _Run:
         states = [s.removesuffix("_shifted") for s in c.states]
         for s, s_phys in zip(c.states, states, strict=True):
             units[s_phys] = c.units.get(s, "")
-        times, ys, xs, us = [], [], [], []
         rows = [i for _, what, i in self.extra if what == "row"]
         on_rows = [i for _, what, i in self.extra if what == "on"]
-        for chunk in self.chunks:
+        slots = [len(c.outputs) + j for j, (_, w, _) in enumerate(self.extra) if w == "row"]
+        on_slots = [len(c.outputs) + j for j, (_, w, _) in enumerate(self.extra) if w == "on"]
+        time = np.concatenate([chunk.times for chunk in self.chunks])
+        sizes = [len(chunk.times) for chunk in self.chunks]
+        # the chunks of one mode with one set of inputs share every product: their columns
+        # are gathered into one block per such group (hundreds of chunks, a few groups)
+        groups: dict[tuple, int] = {}
+        members = [groups.setdefault((ch.on, ch.u.tobytes()), len(groups)) for ch in self.chunks]
+        column_group = np.repeat(members, sizes)
+        order = np.argsort(column_group, kind="stable")
+        bounds = np.searchsorted(column_group[order], np.arange(len(groups) + 1)).tolist()
+        X_sorted = np.hstack([chunk.states for chunk in self.chunks])[:, order]
+        Y = np.empty((len(names), len(time)))
+        X = np.empty_like(X_sorted)
+        n_y = len(c.outputs)
+        for g, i in {g: i for i, g in reversed(list(enumerate(members)))}.items():
+            chunk = self.chunks[i]
             m = e.data(chunk.on).mode
-            k = len(chunk.times)
-            X = chunk.states
-            y = m.C @ X + (m.D @ chunk.u + m.g)[:, None]
-            dev = (m.P @ X + (m.Q @ chunk.u + m.p)[:, None])[rows]
-            flags = np.repeat(np.array(chunk.on, dtype=float)[on_rows][:, None], k, axis=1)
-            extra = np.empty((len(self.extra), k))
-            extra[[j for j, (_, w, _) in enumerate(self.extra) if w == "row"]] = dev
-            extra[[j for j, (_, w, _) in enumerate(self.extra) if w == "on"]] = flags
-            times.append(chunk.times)
-            ys.append(np.vstack([y, extra]))
-            xs.append(X + (m.state_offset @ chunk.u)[:, None])
-            us.append(np.repeat(chunk.u[:, None], k, axis=1))
+            block = slice(bounds[g], bounds[g + 1])
+            Xg = X_sorted[:, block]
+            Y[:n_y, block] = m.C @ Xg + (m.D @ chunk.u + m.g)[:, None]
+            Y[slots, block] = (m.P @ Xg + (m.Q @ chunk.u + m.p)[:, None])[rows]
+            Y[on_slots, block] = np.array(chunk.on, dtype=float)[on_rows][:, None]
+            X[:, block] = Xg + (m.state_offset @ chunk.u)[:, None]
+        back = np.empty_like(order)
+        back[order] = np.arange(len(order))
+        Y, X = Y[:, back], X[:, back]
+        U = np.repeat(np.array([chunk.u for chunk in self.chunks]).T, sizes, axis=1)
         return SimulationResult(
             name=c.name,
-            time=np.concatenate(times),
+            time=time,
             output_names=names,
-            outputs=np.hstack(ys),
+            outputs=Y,
             state_names=states,
-            states=np.hstack(xs),
+            states=X,
             input_names=list(c.inputs),
-            inputs=np.hstack(us),
+            inputs=U,
             units=units,
             method=(
                 f"exact piecewise-linear: ZOH within each mode, {len(e.events)} switching "
