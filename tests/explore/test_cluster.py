@@ -59,6 +59,8 @@ def test_each_worker_compiles_the_model_once_for_every_batch(rc_spread, dask_clu
     )
     batches = [np.array([[1e3, 1e-6]] * 50) * (1 + 0.01 * k) for k in range(12)]
     with Client(dask_cluster.scheduler_address) as client:
+        # under load a worker process can register late; the count below needs both
+        client.wait_for_workers(2, timeout=60)
         handle = scatter_evaluator(client, evaluator)
         workers = worker_addresses(client)
         before = [client.submit(_compilations, handle, workers=[w], pure=False).result()
