@@ -28,6 +28,7 @@ import signal
 import threading
 import time
 import warnings
+from collections import OrderedDict
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -146,14 +147,40 @@ def connect(scheduler: str | None, workers: int) -> Iterator[tuple[Any, ClusterI
         )
 
 
+#: this process's prepared evaluators by token, most recent last. A worker can hold more
+#: than one deserialised copy of one scattered evaluator (a replica fetched from a peer,
+#: data spilled to disk and read back), and each copy would build its compiled loop again;
+#: tasks use the copy registered here, so the loop is built once per process.
+_PREPARED: OrderedDict[str, MarginEvaluator] = OrderedDict()
+#: evaluators kept per process (a long-lived cluster serves many runs)
+KEEP_PREPARED = 4
+
+
+def prepared(evaluator: MarginEvaluator) -> MarginEvaluator:
+    """This process's prepared copy of ``evaluator`` (built on first use)."""
+    mine = _PREPARED.get(evaluator.token)
+    if mine is None:
+        mine = _PREPARED[evaluator.token] = evaluator.prepare()
+        while len(_PREPARED) > KEEP_PREPARED:
+            _PREPARED.popitem(last=False)
+    _PREPARED.move_to_end(evaluator.token)
+    return mine
+
+
+def local_compilations(evaluator: MarginEvaluator) -> int:
+    """Times this process built the compiled loop of ``evaluator`` (0 when it has not)."""
+    mine = _PREPARED.get(evaluator.token)
+    return 0 if mine is None else mine.compilations
+
+
 def _evaluate(evaluator: MarginEvaluator, batch: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    margins = evaluator.evaluate(batch)
+    margins = prepared(evaluator).evaluate(batch)
     return margins.margin, margins.relative
 
 
 def _prepare(evaluator: MarginEvaluator) -> float:
     t0 = time.perf_counter()
-    evaluator.prepare()
+    prepared(evaluator)
     return time.perf_counter() - t0
 
 

@@ -20,6 +20,7 @@ same margins; tests check the two agree.
 
 from __future__ import annotations
 
+import uuid
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -85,6 +86,8 @@ class MarginEvaluator:
         fixed: Mapping[str, float] | None = None,
     ) -> None:
         self.model = model
+        #: names this evaluator in every process it is copied to (see explore.cluster)
+        self.token = uuid.uuid4().hex
         self.parts = list(parts)
         self.fixed = {k: float(v) for k, v in (fixed or {}).items() if k not in self.parts}
         self.ranges = {p: (float(ranges[p][0]), float(ranges[p][1])) for p in self.parts}
