@@ -139,6 +139,12 @@ def test_the_robust_demo_passes_every_corner_in_re_verification(demo):
         # 1e-8 relative constraint tolerance)
         assert row["margin_at_optimum"] >= -1e-7 * abs(row["bound"]), row
     assert result.tightest["margin_worst_corner"] > 0
+    # the worst corner is printed with each part's unit (Cd = 192 µF, not 0.000192)
+    from wirestate.report.tables import tuning_report
+
+    line = next(x for x in tuning_report(result.to_dict()).splitlines() if "worst corner (" in x)
+    assert "Cd = " in line and "F" in line.split("Cd = ")[1].split(",")[0], line
+    assert "Rd = " in line and "Ω" in line.split("Rd = ")[1].split(",")[0], line
 
 
 def test_the_exchange_reaches_the_optimum_of_every_row_at_every_corner(demo):

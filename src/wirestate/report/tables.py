@@ -440,7 +440,10 @@ def tuning_report(report: dict[str, Any]) -> str:
     out.append(text_table(_limit_rows(report), header))
     tight = report.get("tightest")
     if tight:
-        corner = ", ".join(f"{k} = {v:.4g}" for k, v in tight["worst_corner"].items()) or "nominal"
+        units = tight.get("worst_corner_units", {})
+        worst = tight["worst_corner"].items()
+        corner = ", ".join(f"{k} = {format_quantity(v, units.get(k, ''))}" for k, v in worst)
+        corner = corner or "nominal"
         kind = next((x["kind"] for x in report["limits"] if x["name"] == tight["name"]), "")
         out += [
             "",

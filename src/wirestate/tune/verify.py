@@ -22,6 +22,7 @@ import numpy as np
 from wirestate.errors import WirestateError
 from wirestate.tune.evaluation import Evaluation
 from wirestate.tune.margins import limit_margins, margin_rows, margin_table
+from wirestate.tune.problem import VALUE_UNITS
 from wirestate.tune.snap import corner_points
 from wirestate.tune.stress import stress_report
 
@@ -49,6 +50,8 @@ class Verification:
     corners_checked: int
     toleranced: list[str]
     evaluation: Evaluation
+    #: SI unit of each toleranced part's value
+    part_units: dict[str, str] = field(default_factory=dict)
     envelope: dict[str, np.ndarray] | None = None
     notes: list[str] = field(default_factory=list)
 
@@ -60,7 +63,7 @@ class Verification:
         t = min(self.rows, key=lambda r: r["relative_margin_worst_corner"])
         keys = ("name", "margin", "margin_worst_corner", "relative_margin_worst_corner",
                 "worst_corner", "unit")  # fmt: skip
-        return {k: t[k] for k in keys}
+        return {**{k: t[k] for k in keys}, "worst_corner_units": self.part_units}
 
 
 def verify(
@@ -102,7 +105,13 @@ def verify(
         evaluation=independent,
         envelope=envelope,
         notes=notes,
+        part_units={n: _value_unit(problem, n) for n in toleranced},
     )
+
+
+def _value_unit(problem: Problem, name: str) -> str:
+    part = problem.base_circuit.parts.get(name)
+    return VALUE_UNITS.get(getattr(part, "kind", ""), "")
 
 
 def _corner_margins(
