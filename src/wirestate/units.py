@@ -284,6 +284,16 @@ def is_si_unit(text: str) -> bool:
     )
 
 
+def same_unit(a: str, b: str) -> bool:
+    """True when two signal units name the same unit: equal as written, or two spellings
+    :data:`UNITS` accepts for one unit (``N*m`` and ``Nm``, ``ohm`` and ``Ω``)."""
+    if a == b:
+        return True
+    keys_a = {key for key, spellings in UNITS.items() if a == key or a in spellings}
+    keys_b = {key for key, spellings in UNITS.items() if b == key or b in spellings}
+    return bool(keys_a & keys_b)
+
+
 def format_count(n: int, noun: str) -> str:
     """``"1 state"``, ``"3 states"``: a count with its (regular English) noun in the right
     number."""

@@ -59,11 +59,19 @@ import re
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator, model_validator
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    field_validator,
+    model_validator,
+)
 
-from wirestate.errors import WirestateError
+from wirestate.errors import QuantityError, WirestateError
 from wirestate.spec.load import QuantityInput, expect_file_kind, read_toml, validate
-from wirestate.units import UNITS, parse_quantity
+from wirestate.units import UNITS, is_si_unit, parse_quantity
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 _SIGNAL = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*\.[A-Za-z_][A-Za-z0-9_]*$")
@@ -92,6 +100,21 @@ def _signal(value: Any) -> str:
 
 
 Signal = Annotated[str, BeforeValidator(_signal)]
+
+
+def _signal_unit(value: str) -> str:
+    # a block's signals are in SI base units, so a prefixed unit (mV) or a word (volts)
+    # would misstate every value that crosses the wire
+    if value and not is_si_unit(value):
+        raise QuantityError(
+            "wrong_unit",
+            f"{value!r} is not a unit in SI symbols; signals are in SI base units, so write "
+            "the unit without a prefix, e.g. V, A, rad/s, N*m or 1 (dimensionless)",
+        )
+    return value
+
+
+SignalUnit = Annotated[str, AfterValidator(_signal_unit)]
 Seconds = Annotated[float, _q("s")]
 Gain = Annotated[float, _q("1")]
 
@@ -174,7 +197,7 @@ class _ControllerSpec(_Block):
     output_limits: tuple[str | float | None, str | float | None] | None = Field(
         default=None, description="[low, high] in `unit`"
     )
-    unit: str = Field(default="", description="unit of the command, e.g. 'V'")
+    unit: SignalUnit = Field(default="", description="unit of the command, e.g. 'V'")
     anti_windup: Literal["back_calculation", "conditional", "none"] = "back_calculation"
     tracking_time: Seconds | None = Field(default=None, gt=0)
     delay: bool = False
@@ -183,7 +206,9 @@ class _ControllerSpec(_Block):
         """``output_limits`` read in the command unit (SI)."""
         if self.output_limits is None:
             return None
-        key = self.unit if self.unit in UNITS else "1"
+        # any accepted spelling of a unit reads the limits (unit = "Nm" takes "2Nm")
+        keys = [k for k, spellings in UNITS.items() if self.unit == k or self.unit in spellings]
+        key = keys[0] if keys else "1"
         return tuple(  # type: ignore[return-value]
             None if v is None else parse_quantity(v, key, field="output_limits")
             for v in self.output_limits
@@ -226,7 +251,7 @@ class SensorFilterSpec(_Block):
     kind: Literal["sensor_filter"]
     time_constant: Seconds = Field(gt=0)
     gain: Gain = 1.0
-    unit: str = ""
+    unit: SignalUnit = ""
 
 
 class GainSpec(_Block):
@@ -235,7 +260,7 @@ class GainSpec(_Block):
 
     kind: Literal["gain"]
     gain: Gain
-    unit: str = ""
+    unit: SignalUnit = ""
 
 
 class ModulatorSpec(_Block):
