@@ -31,7 +31,12 @@ from wirestate.simulate.discretize import Discretization
 from wirestate.simulate.inputs import InputSet, Waveform
 from wirestate.simulate.pwm import PulseWidth
 from wirestate.simulate.results import SimulationResult
-from wirestate.simulate.switched import SwitchedEngine, device_output_names, run_setup
+from wirestate.simulate.switched import (
+    SwitchedEngine,
+    device_output_names,
+    run_setup,
+    start_state,
+)
 from wirestate.switching import switched_circuit
 
 
@@ -153,6 +158,7 @@ def simulate_averaged(
     circuit = switched_circuit(model)
     if circuit is None:
         raise SimulationError("invalid_field", "the model has no switches or diodes")
+    x0 = start_state(model, circuit, x0)
     grid, input_set, _ = run_setup(circuit, until, step, inputs, use_defaults, base)
     gates = sorted({d.gate for d in circuit.devices if d.gate is not None})
     U = input_set.matrix(circuit.inputs, grid)
