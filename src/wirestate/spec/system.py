@@ -277,10 +277,11 @@ class ModulatorSpec(_Block):
 
     @model_validator(mode="after")
     def _dead_time_within_a_period(self):
-        if not self.dead_time < 1.0 / self.frequency:
+        # from half a period on, one output of a leg never turns on at any duty
+        if not self.dead_time * self.frequency < 0.5 - 1e-9:  # round-off of "5us" and the like
             raise ValueError(
-                f"dead_time ({self.dead_time:g} s) must be shorter than the carrier period "
-                f"({1.0 / self.frequency:g} s)"
+                f"dead_time ({self.dead_time:g} s) must be shorter than half the carrier "
+                f"period ({0.5 / self.frequency:g} s)"
             )
         return self
 
