@@ -1530,6 +1530,13 @@ SWITCHED_CASES = [
         _loop('frequency = "100kHz"', 'frequency = "100kHz"\nphase = nan'),
         "blocks.pwm.phase",
     ),  # fmt: skip
+    # the angle written as pwm:...,phase=90deg takes it (was refused as "not in ")
+    _modulated(
+        "modulator_phase_in_degrees",
+        _loop('frequency = "100kHz"', 'frequency = "100kHz"\nphase = "90deg"'),
+        expect="ok",
+        check=_in_output("v_out"),
+    ),
     _modulated(
         "modulator_unknown_field",
         _loop('frequency = "100kHz"', 'frequency = "100kHz"\nduty = 0.5'),

@@ -116,6 +116,14 @@ def _signal_unit(value: str) -> str:
 
 SignalUnit = Annotated[str, AfterValidator(_signal_unit)]
 Seconds = Annotated[float, _q("s")]
+# an angle in degrees, written as a number or with "deg" as pwm:...,phase=90deg takes it
+Degrees = Annotated[
+    float,
+    BeforeValidator(
+        lambda v: _q("1").func(v.strip().removesuffix("deg") if isinstance(v, str) else v),
+        json_schema_input_type=QuantityInput,
+    ),
+]
 Gain = Annotated[float, _q("1")]
 
 
@@ -273,7 +281,7 @@ class ModulatorSpec(_Block):
         default=False, description="two outputs, high and low, instead of one gate"
     )
     dead_time: Seconds = Field(default=0.0, ge=0, description="turn-on delay of each output")
-    phase: Gain = Field(default=0.0, description="carrier delay in degrees of a period")
+    phase: Degrees = Field(default=0.0, description="carrier delay in degrees of a period")
 
     @model_validator(mode="after")
     def _dead_time_within_a_period(self):
