@@ -8,33 +8,23 @@ from pathlib import Path
 
 import pytest
 
+from tests.robustness.test_new_features_corpus import RC as _CORPUS_RC
 from wirestate.blocks import rotary_inertia, sensor_filter, static_gain
 from wirestate.cli import main
 from wirestate.compose import compose, system_from_spec
 from wirestate.errors import WirestateError
 from wirestate.spec.system import parse_system
 
-# an RC filter driven by a voltage source Vs: input Vs (V), output v_out (V)
-RC = """
-[circuit]
-name = "rc"
-[parts.Vs]
-kind = "voltage_source"
-nodes = ["a", "gnd"]
+# the corpus's RC filter (input V1, output v, both V) with a current source Is (A) at its
+# capacitor
+RC = (
+    _CORPUS_RC
+    + """
 [parts.Is]
 kind = "current_source"
 nodes = ["gnd", "b"]
-[parts.R1]
-kind = "resistor"
-nodes = ["a", "b"]
-value = "1kohm"
-[parts.C1]
-kind = "capacitor"
-nodes = ["b", "gnd"]
-value = "1uF"
-[outputs.v_out]
-voltage = "b"
 """
+)
 
 # a probe measuring the filter's voltage and a sampled PI driving its source: every unit
 # stated agrees with the signal it names
@@ -46,9 +36,9 @@ GOOD = {
         "loop": {"kind": "pi", "kp": 0.1, "ki": 10.0, "unit": "V"},
     },
     "wiring": {
-        "probe.signal": "filter.v_out",
+        "probe.signal": "filter.v",
         "loop.measurement": "probe.measured",
-        "filter.Vs": "loop.command",
+        "filter.V1": "loop.command",
     },
     "inputs": {"v_ref": "loop.reference", "i_load": "filter.Is"},
     "outputs": {"v": "probe.measured"},
@@ -78,8 +68,8 @@ def test_the_consistent_system_composes(tmp_path):
 
 
 def _one_input_for_two_units(data):
-    del data["wiring"]["filter.Vs"], data["inputs"]["i_load"]
-    data["inputs"]["drive"] = ["filter.Vs", "filter.Is"]
+    del data["wiring"]["filter.V1"], data["inputs"]["i_load"]
+    data["inputs"]["drive"] = ["filter.V1", "filter.Is"]
 
 
 @pytest.mark.parametrize(
@@ -90,9 +80,9 @@ def _one_input_for_two_units(data):
         (_set("probe", "unit", "mV"), ("blocks", "probe", "unit"), "'mV'"),
         (_set("loop", "unit", "Vx"), ("blocks", "loop", "unit"), "'Vx'"),
         # a current command into a voltage source input
-        (_set("loop", "unit", "A"), ("blocks", "loop", "unit"), "filter.Vs, which is in V"),
+        (_set("loop", "unit", "A"), ("blocks", "loop", "unit"), "filter.V1, which is in V"),
         # a probe in amperes on a voltage output
-        (_set("probe", "unit", "A"), ("blocks", "probe", "unit"), "filter.v_out is in V"),
+        (_set("probe", "unit", "A"), ("blocks", "probe", "unit"), "filter.v is in V"),
         # one external input driving a voltage input and a current input
         (
             _one_input_for_two_units,
@@ -116,7 +106,7 @@ def test_a_gain_output_in_the_wrong_unit_is_placed_at_its_unit_field(tmp_path):
     def change(data):
         data["blocks"]["scale"] = {"kind": "gain", "gain": 2.0, "unit": "A"}
         data["wiring"]["scale.input"] = "loop.command"
-        data["wiring"]["filter.Vs"] = "scale.output"
+        data["wiring"]["filter.V1"] = "scale.output"
 
     with pytest.raises(WirestateError) as info:
         _system(tmp_path, change)
@@ -159,9 +149,9 @@ kind = "sensor_filter"
 time_constant = "10us"
 unit = "A"
 [wiring]
-"probe.signal" = "filter.v_out"
+"probe.signal" = "filter.v"
 [inputs]
-Vs = "filter.Vs"
+V1 = "filter.V1"
 Is = "filter.Is"
 """
     path = tmp_path / "s.toml"

@@ -18,6 +18,7 @@ from pathlib import Path
 
 import pytest
 
+from tests.simulate import test_switched_system as _switched_system
 from wirestate.cli import main
 
 # -- the files the cases start from (scenarios of our own) ---------------------------------
@@ -1301,64 +1302,9 @@ CASES: list[Case] = [
 
 # -- switched circuits, pwm waveforms and modulator blocks (issue 12 features) -------------
 
-# a diode buck stage (a scenario of our own): 12 V, switch Q1 on gate g, diode D1
-BUCK = """
-[circuit]
-name = "buck"
-[parts.Vin]
-kind = "voltage_source"
-nodes = ["in", "gnd"]
-value = "12V"
-[parts.Q1]
-kind = "switch"
-nodes = ["in", "sw"]
-gate = "g"
-[parts.D1]
-kind = "diode"
-nodes = ["gnd", "sw"]
-[parts.L1]
-kind = "inductor"
-nodes = ["sw", "out"]
-value = "100uH"
-[parts.C1]
-kind = "capacitor"
-nodes = ["out", "gnd"]
-value = "100uF"
-[parts.R1]
-kind = "resistor"
-nodes = ["out", "gnd"]
-value = "2ohm"
-[outputs.v_out]
-voltage = "out"
-"""
-
-# the buck under a sampled PI through a modulator
-BUCK_LOOP = """
-[system]
-name = "buck_loop"
-[blocks.stage]
-kind = "circuit"
-file = "buck.toml"
-[blocks.pwm]
-kind = "modulator"
-frequency = "100kHz"
-[blocks.vloop]
-kind = "pi"
-kp = 0.02
-ki = 300.0
-sample_time = "10us"
-output_limits = [0.0, 0.9]
-delay = true
-[wiring]
-"stage.g" = "pwm.gate"
-"pwm.duty" = "vloop.command"
-"vloop.measurement" = "stage.v_out"
-[inputs]
-v_ref = "vloop.reference"
-Vin = "stage.Vin"
-[outputs]
-v_out = "stage.v_out"
-"""
+# a diode buck stage on gate g, and the same under a sampled PI through a modulator (the
+# scenarios of the switched-system tests)
+BUCK, BUCK_LOOP = _switched_system.BUCK, _switched_system.LOOP
 
 
 def _buck(old: str, new: str) -> str:
@@ -1440,7 +1386,7 @@ SWITCHED_CASES = [
     ),  # fmt: skip
     _switched(
         "diode_negative_forward_voltage",
-        _buck('nodes = ["gnd", "sw"]', 'nodes = ["gnd", "sw"]\nforward_voltage = "-0.7V"'),
+        _buck('forward_voltage = "0.5V"', 'forward_voltage = "-0.7V"'),
         [],
         "parts.D1.forward_voltage",
     ),  # fmt: skip
@@ -1552,7 +1498,7 @@ SWITCHED_CASES = [
     _modulated(
         "modulator_gate_into_a_source",
         _loop('"stage.g" = "pwm.gate"', '"stage.Vin" = "pwm.gate"').replace(
-            'Vin = "stage.Vin"', 'g = "stage.g"'
+            'Vbat = "stage.Vin"', 'g = "stage.g"'
         ),
         "wiring.stage.Vin",
     ),  # fmt: skip
