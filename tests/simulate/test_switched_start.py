@@ -156,3 +156,20 @@ def test_stepper_and_export_of_switched_models_are_handled():
     with pytest.raises(WirestateError) as info:
         Stepper(system, 1e-6)
     assert info.value.code == "unsupported_switched_system"
+
+
+def test_a_system_with_a_diode_block_and_no_modulator_is_refused_with_its_reason(tmp_path):
+    from tests.robustness.test_new_features_corpus import RECTIFIER
+
+    (tmp_path / "rect.toml").write_text(RECTIFIER)
+    path = tmp_path / "s.toml"
+    path.write_text(
+        '[system]\nname = "s"\n[blocks.rect]\nkind = "circuit"\nfile = "rect.toml"\n'
+        '[blocks.probe]\nkind = "sensor_filter"\ntime_constant = "10us"\nunit = "V"\n'
+        '[wiring]\n"probe.signal" = "rect.v"\n[inputs]\nVac = "rect.Vac"\n'
+    )
+    with pytest.raises(WirestateError) as info:
+        start_from(load_system(path), "steady_state")
+    assert info.value.location == ("initial",)
+    assert "block rect switches" in info.value.message
+    assert "depends on the whole system" in info.value.message

@@ -210,13 +210,21 @@ def _refuse_switched_system(system: ComposedSystem) -> None:
     if not has_switching(system):
         return
     named = [b.name for b in system.blocks.values() if b.category in (SWITCHED, MODULATOR)]
+    modulated = any(system.blocks[name].category == MODULATOR for name in named)
+    why = (
+        "its steady state is periodic, at a duty cycle the loop itself sets"
+        if modulated
+        else "which mode its switches and diodes hold depends on the whole system"
+    )
+    which = (
+        f"block {named[0]} switches" if len(named) == 1 else (f"blocks {', '.join(named)} switch")
+    )
     raise SimulationError(
         "invalid_field",
-        f"{system.name}: blocks {', '.join(named)} switch, so the system has no equilibrium to "
-        "start from (its steady state is periodic, and the duty cycle is the loop's own "
-        "unknown); start from the parts' initial values (--initial parts) or from zero and "
-        "set the states you know with --initial-value, or simulate the circuit alone with "
-        "a fixed pwm duty and --initial steady_state",
+        f"{system.name}: {which}, so the system has no equilibrium to start from ({why}); "
+        "start from the parts' initial values (--initial parts) or from zero and set the "
+        "states you know with --initial-value, or simulate the circuit alone (with a fixed "
+        "pwm duty) and --initial steady_state",
         location=("initial",),
     )
 
