@@ -185,7 +185,7 @@ def _sampled_loop(system: Any) -> LoopPoles:
     part = loop.continuous_part(block.A, block.B, block.C, block.D)
     T = float(periods[0])
     hold = zoh(part.A, part.B, T)
-    Phi, _, _ = loop.discrete(part, hold.Ad, hold.Bd)
+    Phi = loop.discrete(part, hold.Ad, hold.Bd)[0]  # (Phi, Gamma, maps, held)
     z = np.linalg.eigvals(Phi) if Phi.size else np.zeros(0, dtype=complex)
     return LoopPoles(
         sampled_to_continuous(z, T),
