@@ -160,3 +160,25 @@ Is = "filter.Is"
     err = capsys.readouterr().err
     assert err.count("\n") == 1
     assert err.startswith(f"error: {path}: blocks.probe.unit: unit 'A' of block 'probe'")
+
+
+def test_output_limits_with_a_unit_on_a_block_without_one_say_what_to_set(tmp_path):
+    # before: "'-5V' is not in  (accepted: a plain number, ...)", an empty unit named
+    def change(data):
+        del data["blocks"]["loop"]["unit"]
+        data["blocks"]["loop"]["output_limits"] = ["-5V", "5V"]
+
+    with pytest.raises(WirestateError) as info:
+        _system(tmp_path, change)
+    assert info.value.code == "wrong_unit"
+    assert info.value.location[:2] == ("blocks", "loop")
+    assert "set unit" in info.value.message and "not in  " not in info.value.message
+
+
+def test_a_unit_on_a_plain_number_is_named_as_such():
+    from wirestate.units import parse_quantity
+
+    with pytest.raises(WirestateError) as info:
+        parse_quantity("5V", "1", field="phase")
+    assert info.value.message == "phase: '5V' carries a unit, but this value is a plain number " \
+        "(dimensionless, an SI prefix allowed)"  # fmt: skip

@@ -155,11 +155,18 @@ def parse_quantity(text: str | float | int, unit: str, *, field: str = "value") 
     number = float(match.group(1))
     rest = match.group(2).replace(" ", "")
     scale = _unit_scale(rest, unit)
+    if scale is None and unit == "1":
+        # "is not in  (accepted: a plain number...)" named no unit at all
+        raise QuantityError(
+            "wrong_unit",
+            f"{_lead(field)}{text!r} carries a unit, but this value is a plain number "
+            "(dimensionless, an SI prefix allowed)",
+        )
     if scale is None:
         raise QuantityError(
             "wrong_unit",
             f"{_lead(field)}{text!r} is not in {_display(unit)} "
-            f"(accepted: {', '.join(_spellings(unit)) or 'a plain number'}, with an SI prefix)",
+            f"(accepted: {', '.join(_spellings(unit))}, with an SI prefix)",
         )
     value = number * scale
     if not math.isfinite(value):

@@ -217,10 +217,19 @@ class _ControllerSpec(_Block):
         # any accepted spelling of a unit reads the limits (unit = "Nm" takes "2Nm")
         keys = [k for k, spellings in UNITS.items() if self.unit == k or self.unit in spellings]
         key = keys[0] if keys else "1"
-        return tuple(  # type: ignore[return-value]
-            None if v is None else parse_quantity(v, key, field="output_limits")
-            for v in self.output_limits
-        )
+        try:
+            return tuple(  # type: ignore[return-value]
+                None if v is None else parse_quantity(v, key, field="output_limits")
+                for v in self.output_limits
+            )
+        except QuantityError as exc:
+            if key != "1" or exc.code != "wrong_unit":
+                raise
+            raise QuantityError(
+                "wrong_unit",
+                f"output_limits {list(self.output_limits)} carry a unit, but the block states "
+                'none: set unit (that of the command, e.g. unit = "V") or write plain numbers',
+            ) from None
 
 
 class PISpec(_ControllerSpec):
