@@ -173,3 +173,15 @@ def test_a_system_with_a_diode_block_and_no_modulator_is_refused_with_its_reason
     assert info.value.location == ("initial",)
     assert "block rect switches" in info.value.message
     assert "depends on the whole system" in info.value.message
+
+
+def test_the_averaged_run_refuses_a_capacitor_across_a_switch():
+    from wirestate.spec import load_circuit
+
+    # the switch's output capacitance swings by the bus voltage every period: the average
+    # kept the freewheeling diode off and gave 47 V where the switched run settles at 11.5 V
+    block = compile_circuit(load_circuit(MODELS / "aux_buck.toml"))
+    with pytest.raises(WirestateError) as info:
+        simulate(block, 1e-4, 1e-6, {"gate": "pwm:100kHz,duty=0.25"}, averaged=True)
+    assert info.value.location == ("parts", "Coss")
+    assert "switch Q1" in info.value.message
