@@ -489,3 +489,26 @@ def test_not_reducible_code(tmp_path, capsys):
     )
     assert main(["reduce", str(model), "--order", "0", "--out", str(tmp_path / "r.toml")]) == 2
     assert "parts.D1" in capsys.readouterr().err
+
+
+def test_switched_model_code():
+    from wirestate.reduce import compile_circuit
+    from wirestate.simulate.linear import simulate_linear
+    from wirestate.spec import parse_circuit
+
+    # a half-wave rectifier given to the linear-only entry point
+    block = compile_circuit(
+        parse_circuit(
+            {
+                "circuit": {"name": "rect"},
+                "parts": {
+                    "Vac": {"kind": "voltage_source", "nodes": ["a", "gnd"]},
+                    "D1": {"kind": "diode", "nodes": ["a", "b"]},
+                    "R1": {"kind": "resistor", "nodes": ["b", "gnd"], "value": 1e3},
+                },
+            }
+        )
+    )
+    with pytest.raises(WirestateError) as info:
+        simulate_linear(block, 1e-3, 1e-4)
+    assert info.value.code == "switched_model" and info.value.location == ("parts", "D1")

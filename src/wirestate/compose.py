@@ -453,6 +453,7 @@ def compose(
     _check_loops(views, wiring_map, file)
 
     _controller_units(views, wiring_map)
+    _check_units(views, wiring_map, ext_in, file)
     units: dict[str, str] = {}
     defaults: dict[str, float] = {}
     for b in views.values():
@@ -484,6 +485,49 @@ def _controller_units(views: dict[str, BlockView], wiring: dict[str, str]) -> No
                 unit = views[block].units.get(sig, "")
                 measured = ("measurement", "reference", "derivative_filter", "last_measurement")
                 b.units = {**b.units, **dict.fromkeys(measured, unit)}
+
+
+def _check_units(
+    views: dict[str, BlockView],
+    wiring: dict[str, str],
+    external: dict[str, list[str]],
+    file: str | None,
+) -> None:
+    """Refuse a wire whose two ends state different units (a current command into a
+    voltage input), and an external input that drives inputs of different units. A signal
+    without a unit (``""``) takes whatever it is wired to."""
+    from wirestate.units import same_unit
+
+    def unit_of(signal: str) -> str:
+        block, sig = signal.split(".")
+        return views[block].units.get(sig, "") or ""
+
+    def shown(unit: str) -> str:
+        return "1 (dimensionless)" if unit == "1" else unit
+
+    for dest, src in wiring.items():
+        a, b = unit_of(src), unit_of(dest)
+        if a and b and not same_unit(a, b):
+            error = CompositionError(
+                "wrong_unit",
+                f"{src} is in {shown(a)} and drives {dest}, which is in {shown(b)}; the units "
+                "of a wire must agree",
+                file=file,
+                location=("wiring", dest),
+            )
+            error.signals = (dest, src)  # type: ignore[attr-defined]
+            raise error
+    for name, dests in external.items():
+        found = [(d, unit_of(d)) for d in dests if unit_of(d)]
+        other = [(d, u) for d, u in found if not same_unit(u, found[0][1])]
+        if other:
+            raise CompositionError(
+                "wrong_unit",
+                f"external input {name!r} drives {found[0][0]} ({shown(found[0][1])}) and "
+                f"{other[0][0]} ({shown(other[0][1])}); one input has one unit",
+                file=file,
+                location=("inputs", name),
+            )
 
 
 def _check_loops(views: dict[str, BlockView], wiring: dict[str, str], file: str | None) -> None:
@@ -646,14 +690,36 @@ def system_from_spec(spec: SystemSpec, *, file: str | Path | None = None) -> Com
                 exc.location = ("blocks", name, *exc.location)
                 exc.args = (str(exc),)
             raise
-    return compose(
-        blocks,
-        spec.wiring,
-        spec.input_targets(),
-        spec.outputs or None,
-        name=spec.name,
-        file=None if file is None else str(file),
-    )
+    try:
+        return compose(
+            blocks,
+            spec.wiring,
+            spec.input_targets(),
+            spec.outputs or None,
+            name=spec.name,
+            file=None if file is None else str(file),
+        )
+    except CompositionError as exc:
+        if exc.code == "wrong_unit" and hasattr(exc, "signals"):
+            raise _at_unit_field(exc, spec) from None
+        raise
+
+
+def _at_unit_field(exc: CompositionError, spec: SystemSpec) -> CompositionError:
+    """A unit clash on a wire, placed at the ``unit`` field of the block that stated the
+    unit (a controller's command, a gain's output, a sensor filter's signal), if any."""
+    dest, src = exc.signals  # type: ignore[attr-defined]
+    source, target = src.split(".")[0], dest.split(".")[0]
+    for block in (source, target):
+        stated = getattr(spec.blocks[block], "unit", "")
+        if stated and (block == source or spec.blocks[block].kind == "sensor_filter"):
+            exc.location = ("blocks", block, "unit")
+            exc.message = f"unit {stated!r} of block {block!r} contradicts the wiring: " + (
+                exc.message
+            )
+            exc.args = (str(exc),)
+            break
+    return exc
 
 
 def load_system(path: str | Path) -> ComposedSystem:

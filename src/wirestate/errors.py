@@ -57,6 +57,8 @@ ERROR_CODES: dict[str, str] = {
     "switching_chatter": "switches or diodes that keep changing mode at one instant",
     "unsupported_switched_system": "a system with switched circuits and blocks the switched "
     "engine cannot run with them (continuous nonlinear blocks)",
+    "switched_model": "a circuit with switches or diodes given to an entry point for linear "
+    "time-invariant models only",
     # tuning
     "unknown_variable": "a design variable that names no part value",
     "invalid_limit": "a limit that names an unknown output or has inconsistent bounds",

@@ -155,11 +155,18 @@ def parse_quantity(text: str | float | int, unit: str, *, field: str = "value") 
     number = float(match.group(1))
     rest = match.group(2).replace(" ", "")
     scale = _unit_scale(rest, unit)
+    if scale is None and unit == "1":
+        # "is not in  (accepted: a plain number...)" named no unit at all
+        raise QuantityError(
+            "wrong_unit",
+            f"{_lead(field)}{text!r} carries a unit, but this value is a plain number "
+            "(dimensionless, an SI prefix allowed)",
+        )
     if scale is None:
         raise QuantityError(
             "wrong_unit",
             f"{_lead(field)}{text!r} is not in {_display(unit)} "
-            f"(accepted: {', '.join(_spellings(unit)) or 'a plain number'}, with an SI prefix)",
+            f"(accepted: {', '.join(_spellings(unit))}, with an SI prefix)",
         )
     value = number * scale
     if not math.isfinite(value):
@@ -282,6 +289,16 @@ def is_si_unit(text: str) -> bool:
         (match := _UNIT_FACTOR.match(f)) is not None and match.group(1) in SI_SYMBOLS
         for f in factors
     )
+
+
+def same_unit(a: str, b: str) -> bool:
+    """True when two signal units name the same unit: equal as written, or two spellings
+    :data:`UNITS` accepts for one unit (``N*m`` and ``Nm``, ``ohm`` and ``Ω``)."""
+    if a == b:
+        return True
+    keys_a = {key for key, spellings in UNITS.items() if a == key or a in spellings}
+    keys_b = {key for key, spellings in UNITS.items() if b == key or b in spellings}
+    return bool(keys_a & keys_b)
 
 
 def format_count(n: int, noun: str) -> str:

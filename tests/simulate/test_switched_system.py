@@ -207,12 +207,21 @@ def test_synchronous_buck_leg_never_conducts_through(tmp_path):
 
 
 def test_a_gate_from_a_continuous_signal_is_refused(loop_file, tmp_path):
-    text = LOOP.replace('"stage.g" = "pwm.gate"', '"stage.g" = "stage.v_out"')
+    # through a gain without a unit: wired straight, the output's V against the gate's
+    # dimensionless unit is refused when the system is read (wrong_unit), below
+    text = LOOP.replace(
+        '"stage.g" = "pwm.gate"', '"stage.g" = "k.output"\n"k.input" = "stage.v_out"'
+    )
     path = tmp_path / "analog.toml"
-    path.write_text(text)
+    path.write_text(text.replace("[wiring]", '[blocks.k]\nkind = "gain"\ngain = 1.0\n[wiring]'))
     with pytest.raises(WirestateError) as info:
         simulate(load_system(path), 1e-4, 1e-6)
     assert info.value.code == "invalid_gate"
+    assert info.value.location == ("wiring", "stage.g")
+    path.write_text(LOOP.replace('"stage.g" = "pwm.gate"', '"stage.g" = "stage.v_out"'))
+    with pytest.raises(WirestateError) as info:
+        load_system(path)
+    assert info.value.code == "wrong_unit"
     assert info.value.location == ("wiring", "stage.g")
 
 

@@ -6,7 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from wirestate.errors import SimulationError
+from wirestate.errors import SimulationError, WirestateError
 from wirestate.units import format_count, format_quantity, parse_quantity
 
 #: runs with more steps than this report progress on stderr
@@ -113,7 +113,12 @@ def run(args: argparse.Namespace) -> int:
         model = block_from_state_space(parse_state_space(data, file=str(path)), file=path)
         options = {}
     else:
-        model = compile_circuit(parse_circuit(data, file=str(path)))
+        circuit = parse_circuit(data, file=str(path))
+        try:
+            model = compile_circuit(circuit)
+        except WirestateError as exc:
+            # the compiler knows parts, not files: name the file as every other error does
+            raise exc.with_file(str(path)) from None
         options = {}
     options.update(_switched_options(args))
     if args.initial != "parts" or args.initial_value:

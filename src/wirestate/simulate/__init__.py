@@ -105,6 +105,7 @@ def simulate(
     # a run that cannot fit is refused before any array is made (issue 10.10)
     nonlinear = isinstance(model, ComposedSystem) and not model.is_linear
     guards.check_run_size(model, until, step, streamable=not nonlinear)
+    guards.check_switching_events(model, until, inputs)
     with np.errstate(over="ignore", invalid="ignore"):  # a non-finite run is reported below
         result = _dispatch(model, until, step, inputs, hold, use_defaults, base, progress, options)
     guards.check_finite_result(

@@ -123,6 +123,43 @@ def check_run_size(
     return n
 
 
+#: memory one switching event keeps in a result (its SwitchEvent and ModeInterval records
+#: with their Python objects; about 0.5 KB measured, doubled for margin)
+EVENT_BYTES = 1024
+
+
+def check_switching_events(model: Any, until: float, inputs: Any) -> None:
+    """Refuse a switched run whose gate edges alone would not fit in memory: two edges per
+    carrier period of every ``pwm:`` input and modulator block over ``until`` (a 1 THz
+    carrier typed for 1 MHz), before the first one is located."""
+    from wirestate.simulate.pwm import PulseWidth, parse_pwm
+
+    frequencies = []
+    for value in (inputs or {}).values():
+        if isinstance(value, PulseWidth):
+            frequencies.append(value.frequency)
+        elif isinstance(value, str) and value.strip().startswith("pwm:"):
+            try:
+                frequencies.append(parse_pwm(value.strip()[4:]).frequency)
+            except ValueError:
+                continue  # the waveform's own error is reported where it is read
+    for block in (getattr(model, "blocks", None) or {}).values():
+        frequency = getattr(block.source, "frequency", None)
+        if block.category == "modulator" and frequency:
+            frequencies.append(float(frequency))
+    edges = sum(2.0 * f * until for f in frequencies)
+    budget = memory_budget()
+    if edges * EVENT_BYTES > budget:
+        raise SimulationError(
+            "run_too_large",
+            f"about {_count(int(edges))} gate edges to {until:g} s (carriers of "
+            f"{', '.join(f'{f:g} Hz' for f in sorted(set(frequencies)))}) would need about "
+            f"{format_bytes(edges * EVENT_BYTES)} of memory for the switching events "
+            f"({format_bytes(budget)} may be used): check the carrier frequency, or take a "
+            "shorter --until",
+        )
+
+
 def check_grid_size(n_samples: int, until: float, step: float) -> None:
     """Refuse a time grid that alone would not fit in memory (8 bytes per sample)."""
     budget = memory_budget()

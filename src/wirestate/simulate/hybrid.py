@@ -72,7 +72,17 @@ def simulate_system(
     -------
     SimulationResult
         External outputs and every state (``block.state``) at each output step.
+
+    A system with a switched circuit block or a modulator runs on the switched engine
+    (:func:`~wirestate.simulate.switched_system.simulate_switched_system`), as
+    :func:`wirestate.simulate.simulate` does: this engine has no switching events.
     """
+    from wirestate.simulate.switched_system import has_switching, simulate_switched_system
+
+    if has_switching(system):
+        return simulate_switched_system(
+            system, until, step, inputs, use_defaults=use_defaults, base=base, progress=progress
+        )
     t = time_grid(until, step)
     input_set = build_inputs(
         inputs or {},

@@ -33,6 +33,7 @@ from wirestate.errors import SimulationError, WirestateError
 from wirestate.lti import LARGE_BLOCK_STATES, CircuitBlock, dc_gain_limit
 from wirestate.simulate.inputs import Waveform, build_inputs, parse_waveform
 from wirestate.simulate.linear import LinearModel, as_linear_model
+from wirestate.switching import switched_circuit
 from wirestate.units import parse_quantity
 
 #: ways to start: the parts' (and blocks') own initial values, zero, the steady state
@@ -111,10 +112,13 @@ def start_from(
     elif initial == "zero":
         x = np.zeros(len(model.states))
     elif system:
+        _refuse_switched_system(model)
         x = _system_steady_state(model, u0, notes)
+    elif switched_circuit(model) is not None:
+        x = _switched_steady_state(model, input_set, u0, notes)
     else:
         x = _block_steady_state(model, u0, notes)
-    if initial == "steady_state":
+    if initial == "steady_state" and switched_circuit(model) is None:
         _note_unstable(model, notes)
     x = np.array(x, dtype=float)
     for name, value in (values or {}).items():
@@ -181,6 +185,168 @@ def _block_steady_state(model: Any, u0: np.ndarray, notes: list[str]) -> np.ndar
     if n <= LARGE_BLOCK_STATES and np.linalg.matrix_rank(A) < n:
         notes.append(_not_unique(model.name))
     return gain @ u0[used]
+
+
+#: rounds of "conduction pattern -> equilibrium -> its conduction pattern" (one mode) and
+#: Newton steps (a pwm period) before a switched circuit's start is refused
+_SWITCHED_ROUNDS = 20
+#: the periodic state is taken when one period moves it by less than this fraction of its
+#: largest entry (the events are located to ~1e-12 of the step; common practice, no source)
+_PERIODIC = 1e-9
+#: relative finite-difference step of the period map's Jacobian: within one event sequence
+#: the map is affine, so the step only needs to stay clear of round-off
+_DIFFERENCE = 1e-6
+#: carrier periods run from rest before the Newton steps start
+_WARM_UP_PERIODS = 3
+#: above this many states the periodic start (one period per state per Newton step) is
+#: refused rather than left to run for minutes (common practice, no source)
+_PERIODIC_MAX_STATES = 200
+
+
+def _refuse_switched_system(system: ComposedSystem) -> None:
+    from wirestate.compose import MODULATOR, SWITCHED
+    from wirestate.simulate.switched_system import has_switching
+
+    if not has_switching(system):
+        return
+    named = [b.name for b in system.blocks.values() if b.category in (SWITCHED, MODULATOR)]
+    modulated = any(system.blocks[name].category == MODULATOR for name in named)
+    why = (
+        "its steady state is periodic, at a duty cycle the loop itself sets"
+        if modulated
+        else "which mode its switches and diodes hold depends on the whole system"
+    )
+    which = (
+        f"block {named[0]} switches" if len(named) == 1 else (f"blocks {', '.join(named)} switch")
+    )
+    raise SimulationError(
+        "invalid_field",
+        f"{system.name}: {which}, so the system has no equilibrium to start from ({why}); "
+        "start from the parts' initial values (--initial parts) or from zero and set the "
+        "states you know with --initial-value, or simulate the circuit alone (with a fixed "
+        "pwm duty) and --initial steady_state",
+        location=("initial",),
+    )
+
+
+def _switched_steady_state(
+    model: Any, input_set: Any, u0: np.ndarray, notes: list[str]
+) -> np.ndarray:
+    """The start of a circuit with switches or diodes at the inputs' values at t = 0.
+
+    With pwm gates: the periodic steady state, the state that one carrier period of the
+    switched run (every event located) brings back to itself, found by Newton's method on
+    the period map with a finite-difference Jacobian (the shooting method; Aprille and
+    Trick, Proc. IEEE 60(1), 1972). Without: the steady state of the one mode the gates and
+    diodes then hold, with the diodes consistent with it."""
+    from wirestate.simulate.pwm import PulseWidth
+
+    circuit = switched_circuit(model)
+    waves = input_set.waveforms
+    gates = sorted({d.gate for d in circuit.devices if d.gate is not None})
+    pwm = [g for g in gates if isinstance(waves.get(g), PulseWidth)]
+    if pwm:
+        return _periodic_state(model, circuit, {g: waves[g] for g in pwm}, u0, notes)
+    from wirestate.simulate.averaged import AveragedModel
+
+    combinations = [(1.0, {g: float(u0[circuit.inputs.index(g)]) for g in gates})]
+    one_mode = AveragedModel(circuit)
+    u = np.append(u0, 1.0)
+    x = np.zeros(len(circuit.states))
+    pattern = None
+    for _ in range(_SWITCHED_ROUNDS):
+        A, Bf = one_mode.at(x, u0, combinations)[:2]
+        if one_mode.last_pattern == pattern:
+            break
+        pattern = one_mode.last_pattern
+        x = _solve(np.asarray(A, dtype=float), -np.asarray(Bf) @ u, model.name, notes)
+    else:
+        raise SimulationError(
+            "invalid_field",
+            f"{model.name}: the diodes find no conduction pattern consistent with its own "
+            "steady state at the inputs at t = 0; start from zero or from the parts' "
+            "initial values",
+            location=("initial",),
+        )
+    on = [d.name for d, conducting in zip(circuit.devices, pattern[0], strict=True) if conducting]
+    notes.append(
+        f"the switches and diodes of {model.name} hold one mode at the inputs at t = 0 "
+        f"({', '.join(on) or 'none'} conducting): the run starts from that mode's steady state"
+    )
+    return x
+
+
+def _periodic_state(
+    model: Any, circuit: Any, pwm: dict[str, Any], u0: np.ndarray, notes: list[str]
+) -> np.ndarray:
+    from wirestate.simulate.switched import simulate_switched
+
+    frequencies = sorted({w.frequency for w in pwm.values()})
+    n = len(circuit.states)
+    refusal = None
+    if len(frequencies) > 1:
+        refusal = (
+            f"its pwm gates run at different frequencies "
+            f"({', '.join(f'{f:g} Hz' for f in frequencies)}), so no one period repeats"
+        )
+    elif any(s.endswith("_shifted") for s in circuit.states):
+        refusal = "it has shifted states (a capacitor across a source), whose start is not set"
+    elif n > _PERIODIC_MAX_STATES:
+        refusal = f"it has {n} states (the search runs a period per state per step)"
+    if refusal:
+        raise SimulationError(
+            "invalid_field",
+            f"{model.name}: no periodic steady state is computed: {refusal}; start from zero "
+            "or from the parts' initial values and let the run settle",
+            location=("initial",),
+        )
+    period = 1.0 / frequencies[0]
+    inputs: dict[str, Any] = {
+        name: float(u0[i]) for i, name in enumerate(circuit.inputs) if name not in pwm
+    }
+    inputs.update(pwm)
+
+    def after_a_period(x: np.ndarray) -> np.ndarray:
+        run = simulate_switched(circuit, period, period, inputs, use_defaults=False, x0=x)
+        return run.states[:, -1]
+
+    # a few periods from rest first: at rest a diode sits exactly at its threshold, where
+    # the differences of the period map would make it chatter
+    x = np.zeros(n)
+    for _ in range(_WARM_UP_PERIODS):
+        x = after_a_period(x)
+    for _ in range(_SWITCHED_ROUNDS):
+        moved = after_a_period(x) - x
+        size = max(float(np.abs(x).max(initial=0.0)), float(np.abs(moved).max()), 1e-12)
+        if np.abs(moved).max() <= _PERIODIC * size:
+            break
+        J = np.empty((n, n))
+        for j in range(n):
+            h = _DIFFERENCE * max(abs(x[j]), 1e-3 * size, 1e-9)
+            e = x.copy()
+            e[j] += h
+            J[:, j] = (after_a_period(e) - e - moved) / h
+        try:
+            x = x - np.linalg.solve(J, moved)
+        except np.linalg.LinAlgError:
+            raise _no_steady_state(model.name) from None
+        if not np.isfinite(x).all():
+            raise _no_steady_state(model.name)
+    else:
+        raise SimulationError(
+            "invalid_field",
+            f"{model.name}: the periodic steady state was not found in {_SWITCHED_ROUNDS} "
+            "Newton steps (the event sequence keeps changing); start from zero or from the "
+            "parts' initial values and let the run settle",
+            location=("initial",),
+        )
+    duties = ", ".join(f"{g} duty {w.duty:g} at {w.frequency:g} Hz" for g, w in pwm.items())
+    notes.append(
+        f"{model.name} switches, so it has no equilibrium: the run starts from its periodic "
+        f"steady state ({duties}; the state one carrier period brings back to itself, other "
+        "inputs held at their values at t = 0)"
+    )
+    return x
 
 
 def _note_unstable(model: Any, notes: list[str]) -> None:

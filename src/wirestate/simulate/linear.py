@@ -137,6 +137,25 @@ def as_linear_model(system: Any, *, keep_sparse: bool = False) -> LinearModel:
     )
 
 
+def refuse_switched(model: Any, entry: str) -> None:
+    """Raise ``switched_model`` for the compiled block of a circuit with switches or diodes:
+    ``entry`` runs linear time-invariant models only, and one mode's matrices would give a
+    silently wrong response."""
+    if not isinstance(model, CircuitBlock) or getattr(model, "spec", None) is None:
+        return
+    from wirestate.switching import is_switched
+
+    if is_switched(model.spec):
+        devices = [n for n, p in model.spec.parts.items() if p.kind in ("switch", "diode")]
+        raise SimulationError(
+            "switched_model",
+            f"{model.name}: {entry} runs linear time-invariant models; this circuit switches "
+            f"({', '.join(devices)}). Use wirestate.simulate.simulate (or simulate_switched), "
+            "which locates every switching event",
+            location=("parts", devices[0]),
+        )
+
+
 def time_grid(until: float, step: float) -> np.ndarray:
     """``0, step, 2 step, ...`` up to ``until`` (s); ``until`` must be a whole number of steps
     to within 1e-9 relative (common practice, no source: guards against rounding only)."""
@@ -283,6 +302,7 @@ def simulate_linear(
     SimulationResult
         Outputs ``y[k] = C x[k] + D u[k]`` at every grid point including ``t = 0``.
     """
+    refuse_switched(system, "simulate_linear")
     model = as_linear_model(system, keep_sparse=True)
     t = time_grid(until, step)
     input_set = build_inputs(

@@ -145,8 +145,13 @@ def parse_pwm(rest: str) -> PulseWidth:
         raise ValueError("pwm needs duty=..., e.g. duty=0.42 or duty=42%")
     duty = _duty(options["duty"])
     dead = parse_quantity(options.get("dead", "0"), "s", field="")
-    if not 0.0 <= dead < 1.0 / frequency:
-        raise ValueError(f"dead time must lie in [0, one period), got {options.get('dead')!r}")
+    if not 0.0 <= dead * frequency < 0.5 - 1e-9:  # 5us at 100 kHz reads as 4.99...e-6 s
+        # from half a period on, one switch of a leg never turns on at any duty (and a
+        # single gate never at a duty below one half): no converter runs so
+        raise ValueError(
+            f"dead time must lie in [0, half a period) = [0, {0.5 / frequency:g} s), got "
+            f"{options.get('dead')!r}"
+        )
     side = options.get("side", "high").lower()
     carrier = options.get("carrier", "sawtooth").lower()
     if side not in SIDES:

@@ -19,7 +19,13 @@ from wirestate.errors import SimulationError
 from wirestate.simulate import guards
 from wirestate.simulate.exponential_action import SparseHold, is_cheaper_than_dense
 from wirestate.simulate.inputs import build_inputs
-from wirestate.simulate.linear import _discretization, apply, as_linear_model, simulate_arrays
+from wirestate.simulate.linear import (
+    _discretization,
+    apply,
+    as_linear_model,
+    refuse_switched,
+    simulate_arrays,
+)
 from wirestate.simulate.results import write_csv_header, write_csv_rows
 
 #: samples per streamed block (about 8 MB per signal; common practice, no source)
@@ -64,6 +70,7 @@ def stream_linear_to_csv(
 
     block_samples = block_samples or BLOCK_SAMPLES
 
+    refuse_switched(system, "stream_linear_to_csv")
     model = as_linear_model(system, keep_sparse=True)
     n = guards.step_count(until, step)
     guards.check_csv_space(path, n + 1, len(model.outputs))

@@ -857,11 +857,23 @@ def simulate_switched(
     circuit = switched_circuit(model)
     if circuit is None:
         raise SimulationError("invalid_field", "the model has no switches or diodes")
+    x0 = start_state(model, circuit, x0)
     grid, input_set, fine = run_setup(
         circuit, until, step, inputs, use_defaults, base, fine_step, fine_window
     )
     run = _Run(circuit, grid, step, input_set, fine, x0, max_changes)
     return run.execute(progress)
+
+
+def start_state(model: Any, circuit: Any, x0: np.ndarray | None) -> np.ndarray | None:
+    """``x0``, or else the start a compiled block carries (``wirestate.simulate.start_from``
+    sets it: ``--initial zero``, ``steady_state``, ``--initial-value``); ``None`` leaves
+    the parts' ``initial`` values of ``circuit``."""
+    if x0 is not None or model is circuit or getattr(model, "x0", None) is None:
+        return x0
+    if list(getattr(model, "states", [])) != list(circuit.states):
+        return None
+    return np.array(model.x0, dtype=float)
 
 
 def run_setup(

@@ -59,11 +59,19 @@ import re
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator, model_validator
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    field_validator,
+    model_validator,
+)
 
-from wirestate.errors import WirestateError
+from wirestate.errors import QuantityError, WirestateError
 from wirestate.spec.load import QuantityInput, expect_file_kind, read_toml, validate
-from wirestate.units import UNITS, parse_quantity
+from wirestate.units import UNITS, is_si_unit, parse_quantity
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 _SIGNAL = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*\.[A-Za-z_][A-Za-z0-9_]*$")
@@ -92,7 +100,30 @@ def _signal(value: Any) -> str:
 
 
 Signal = Annotated[str, BeforeValidator(_signal)]
+
+
+def _signal_unit(value: str) -> str:
+    # a block's signals are in SI base units, so a prefixed unit (mV) or a word (volts)
+    # would misstate every value that crosses the wire
+    if value and not is_si_unit(value):
+        raise QuantityError(
+            "wrong_unit",
+            f"{value!r} is not a unit in SI symbols; signals are in SI base units, so write "
+            "the unit without a prefix, e.g. V, A, rad/s, N*m or 1 (dimensionless)",
+        )
+    return value
+
+
+SignalUnit = Annotated[str, AfterValidator(_signal_unit)]
 Seconds = Annotated[float, _q("s")]
+# an angle in degrees, written as a number or with "deg" as pwm:...,phase=90deg takes it
+Degrees = Annotated[
+    float,
+    BeforeValidator(
+        lambda v: _q("1").func(v.strip().removesuffix("deg") if isinstance(v, str) else v),
+        json_schema_input_type=QuantityInput,
+    ),
+]
 Gain = Annotated[float, _q("1")]
 
 
@@ -174,7 +205,7 @@ class _ControllerSpec(_Block):
     output_limits: tuple[str | float | None, str | float | None] | None = Field(
         default=None, description="[low, high] in `unit`"
     )
-    unit: str = Field(default="", description="unit of the command, e.g. 'V'")
+    unit: SignalUnit = Field(default="", description="unit of the command, e.g. 'V'")
     anti_windup: Literal["back_calculation", "conditional", "none"] = "back_calculation"
     tracking_time: Seconds | None = Field(default=None, gt=0)
     delay: bool = False
@@ -183,11 +214,22 @@ class _ControllerSpec(_Block):
         """``output_limits`` read in the command unit (SI)."""
         if self.output_limits is None:
             return None
-        key = self.unit if self.unit in UNITS else "1"
-        return tuple(  # type: ignore[return-value]
-            None if v is None else parse_quantity(v, key, field="output_limits")
-            for v in self.output_limits
-        )
+        # any accepted spelling of a unit reads the limits (unit = "Nm" takes "2Nm")
+        keys = [k for k, spellings in UNITS.items() if self.unit == k or self.unit in spellings]
+        key = keys[0] if keys else "1"
+        try:
+            return tuple(  # type: ignore[return-value]
+                None if v is None else parse_quantity(v, key, field="output_limits")
+                for v in self.output_limits
+            )
+        except QuantityError as exc:
+            if key != "1" or exc.code != "wrong_unit":
+                raise
+            raise QuantityError(
+                "wrong_unit",
+                f"output_limits {list(self.output_limits)} carry a unit, but the block states "
+                'none: set unit (that of the command, e.g. unit = "V") or write plain numbers',
+            ) from None
 
 
 class PISpec(_ControllerSpec):
@@ -226,7 +268,7 @@ class SensorFilterSpec(_Block):
     kind: Literal["sensor_filter"]
     time_constant: Seconds = Field(gt=0)
     gain: Gain = 1.0
-    unit: str = ""
+    unit: SignalUnit = ""
 
 
 class GainSpec(_Block):
@@ -235,7 +277,7 @@ class GainSpec(_Block):
 
     kind: Literal["gain"]
     gain: Gain
-    unit: str = ""
+    unit: SignalUnit = ""
 
 
 class ModulatorSpec(_Block):
@@ -248,14 +290,15 @@ class ModulatorSpec(_Block):
         default=False, description="two outputs, high and low, instead of one gate"
     )
     dead_time: Seconds = Field(default=0.0, ge=0, description="turn-on delay of each output")
-    phase: Gain = Field(default=0.0, description="carrier delay in degrees of a period")
+    phase: Degrees = Field(default=0.0, description="carrier delay in degrees of a period")
 
     @model_validator(mode="after")
     def _dead_time_within_a_period(self):
-        if not self.dead_time < 1.0 / self.frequency:
+        # from half a period on, one output of a leg never turns on at any duty
+        if not self.dead_time * self.frequency < 0.5 - 1e-9:  # round-off of "5us" and the like
             raise ValueError(
-                f"dead_time ({self.dead_time:g} s) must be shorter than the carrier period "
-                f"({1.0 / self.frequency:g} s)"
+                f"dead_time ({self.dead_time:g} s) must be shorter than half the carrier "
+                f"period ({0.5 / self.frequency:g} s)"
             )
         return self
 
