@@ -69,11 +69,14 @@ class PeriodSequence:
         """What must stay the same for the sequence to count as settled."""
         return (self.modes, tuple((b.part, b.change, b.located) for b in self.boundaries))
 
-    def describe(self, devices: list[str]) -> str:
-        parts = []
-        for b in self.boundaries:
-            parts.append(f"{b.part} {b.change.split(' -> ')[1]} at {b.time * 1e9:.4g} ns")
-        return "; ".join(parts)
+    def describe(self, times: Any = None) -> str:
+        """``"D1 off at 0.197 ns; Q1 off at 2607 ns; ..."`` (``times``: the boundaries'
+        times to show, default those of the run)."""
+        times = [b.time for b in self.boundaries] if times is None else list(times)
+        return "; ".join(
+            f"{b.part} {b.change.split(' -> ')[1]} at {t * 1e9:.4g} ns"
+            for b, t in zip(self.boundaries, times, strict=True)
+        )
 
 
 @dataclass
@@ -81,7 +84,8 @@ class SequenceModel:
     """The CasADi function of one period's sequence and how to read it.
 
     ``function(values, duty, located) -> (equations, rows, quantities, boundary_states,
-    stress, times)``: ``values`` the part values of :attr:`parts` (SI), ``duty`` the
+    times)``, ``stress_function(...) -> stress`` (samples x part currents and voltages):
+    ``values`` the part values of :attr:`parts` (SI), ``duty`` the
     switch's on fraction, ``located`` the length of each mode that a located event ends,
     relative to its length in the run the sequence came from (1 there).
     ``rows`` stacks every limit's rows, ``row_slices[label]`` picks them, with
@@ -89,6 +93,7 @@ class SequenceModel:
     """
 
     function: Any
+    stress_function: Any
     parts: list[str]
     sequence: PeriodSequence
     located: list[int]  # boundary indices with an unknown time
@@ -271,13 +276,14 @@ def build_sequence_model(
     Gs = [substitute(G) for G in Gs]
     # equations: located diode margins, loop condition
     equations = []
-    for j, k in enumerate(b.located):
+    for k in b.located:
         event = sequence.boundaries[k]
         device = circuit.devices[circuit.device_index(event.part)]
         v = ca.mtimes(b.row(k, f"v_{event.part}"), boundary_states[k + 1])
         equations.append((v - device.forward_voltage) / max(abs(reference), 1.0))
     y = ca.mtimes(b.row(0, measure), boundary_states[0])
     equations.append((gain * y - reference) / max(abs(reference), 1e-12))
+
     # energies per period
     def energy(part: str) -> Any:
         total = 0
@@ -310,22 +316,28 @@ def build_sequence_model(
             stress_names.append(f"{what}_{part}")
             stress.append(ca.vertcat(*[ca.mtimes(b.row(k, f"{what}_{part}"), z_k)
                                        for k, z_k in stress_samples]))  # fmt: skip
+    inputs = [b.values, b.duty, b.theta]
     function = ca.Function(
         "period",
-        [b.values, b.duty, b.theta],
+        inputs,
         [
             ca.vertcat(*equations),
             ca.vertcat(*rows_out) if rows_out else ca.SX.zeros(0, 1),
             ca.vertcat(*quantities) if quantities else ca.SX.zeros(0, 1),
             ca.horzcat(*boundary_states),
-            ca.horzcat(*stress) if stress else ca.SX.zeros(0, 1),
             ca.vertcat(*[t if isinstance(t, ca.SX) else ca.SX(t) for t in times]),
         ],
         ["values", "duty", "located"],
-        ["equations", "rows", "quantities", "states", "stress", "times"],
+        ["equations", "rows", "quantities", "states", "times"],
     )
+    # the stress samples apart: the optimiser never differentiates them
+    stress_function = ca.Function(
+        "stress", inputs, [ca.horzcat(*stress) if stress else ca.SX.zeros(0, 1)],
+        ["values", "duty", "located"], ["stress"],
+    )  # fmt: skip
     return SequenceModel(
         function=function,
+        stress_function=stress_function,
         parts=list(parts),
         sequence=sequence,
         located=b.located,
@@ -368,7 +380,14 @@ def _window(b: _Builder, limit: Limit, times, states) -> list[tuple[int, Any, An
         for j, z in enumerate(zs):
             if j == count and nominal[k + 1] < end_nominal:
                 continue  # the next mode starts here
-            out.append((k, z, times[k] + length * (j / count), nominal[k] + (stop_nominal - nominal[k]) * j / count - start))
+            out.append(
+                (
+                    k,
+                    z,
+                    times[k] + length * (j / count),
+                    nominal[k] + (stop_nominal - nominal[k]) * j / count - start,
+                )
+            )
         k += 1
     return out
 

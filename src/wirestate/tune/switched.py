@@ -25,7 +25,7 @@ import itertools
 import math
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -76,6 +76,8 @@ class Point:
     duty: float
     located: np.ndarray
     out: dict[str, np.ndarray]
+    #: (duty, located) of tolerance corners imposed in the optimiser, by corner
+    corner_guess: dict[tuple, tuple] = field(default_factory=dict)
 
 
 def sequence_point(
@@ -102,7 +104,7 @@ def sequence_point(
 def _point(model: SequenceModel, values, duty, located) -> Point:
     p = np.array([values[n] for n in model.parts])
     res = model.function(p, duty, located)
-    names = ["equations", "rows", "quantities", "states", "stress", "times"]
+    names = ["equations", "rows", "quantities", "states", "times"]
     return Point(dict(values), float(duty), np.asarray(located, dtype=float).ravel(),
                  {k: np.array(v) for k, v in zip(names, res, strict=True)})  # fmt: skip
 
@@ -150,43 +152,64 @@ class RoundResult:
     violation: float
 
 
-def _solve_nlp(problem, model, point: Point, scale, max_iterations, tolerance) -> RoundResult:
-    """IPOPT on one sequence: log design values, duty and located times as unknowns."""
+def _solve_nlp(
+    problem, model, point: Point, scale, max_iterations, tolerance, corners=()
+) -> RoundResult:
+    """IPOPT on one sequence: log design values, duty and located times as unknowns.
+
+    ``corners`` (part-value multipliers, e.g. ``{"Lloop": 1.3}``) add the limits at those
+    tolerance corners, each with its own duty and located times (its own steady state on
+    the same sequence). The NLP is written in MX around calls of the sequence model's SX
+    function, so its derivatives are generated once however many corners are imposed.
+    """
     import casadi as ca
 
     nv, nl = len(problem.variables), len(model.located)
-    w = ca.SX.sym("w", nv + 1 + nl)
-    fixed = ca.SX.sym("fixed", len(model.parts))
-    values = ca.vertcat(*[ca.exp(w[problem.variables.index(n)]) if n in problem.variables
-                          else fixed[i] for i, n in enumerate(model.parts)])  # fmt: skip
-    eq, rows, quantities, states, _, times = model.function(values, w[nv], w[nv + 1 :])
-    named = {n: values[i] for i, n in enumerate(model.parts)}
-    f = _objective(problem, model, named, quantities, scale)
-    lower, upper, scaled = [], [], []
-    for limit in problem.spec.limits:
-        lo, hi = model.row_bounds[limit.label]
-        size = max([abs(v) for v in (*lo, *hi) if math.isfinite(v)] or [1.0]) or 1.0
-        scaled.append(rows[model.row_slices[limit.label]] / size)
-        lower.append(lo / size)
-        upper.append(hi / size)
-    durations = (times[1:] - times[:-1]) / model.sequence.period
-    n_eq, n_mode = int(eq.shape[0]), int(durations.shape[0])
-    g = ca.vertcat(eq, durations, *scaled)
-    lbg = np.concatenate([np.zeros(n_eq), np.full(n_mode, 1e-9), *lower])
-    ubg = np.concatenate([np.zeros(n_eq), np.full(n_mode, np.inf), *upper])
-    lbw = [math.log(problem.bounds[n][0]) for n in problem.variables] + [
-        point.duty / DUTY_ROOM] + [1.0 / LOCATED_ROOM] * nl
-    ubw = [math.log(problem.bounds[n][1]) for n in problem.variables] + [
-        min(0.999, point.duty * DUTY_ROOM)] + [LOCATED_ROOM] * nl
+    cases = [{}, *corners]
+    w = ca.MX.sym("w", nv + len(cases) * (1 + nl))
+    fixed = ca.MX.sym("fixed", len(model.parts))
+    g, lbg, ubg, f = [], [], [], 0
+    for c, corner in enumerate(cases):
+        values = ca.vertcat(*[
+            (ca.exp(w[problem.variables.index(n)]) if n in problem.variables else fixed[i])
+            * corner.get(n, 1.0)
+            for i, n in enumerate(model.parts)
+        ])  # fmt: skip
+        at = nv + c * (1 + nl)
+        eq, rows, quantities, _, times = model.function(values, w[at], w[at + 1 : at + 1 + nl])
+        if c == 0:
+            named = {n: values[i] for i, n in enumerate(model.parts)}
+            f = _objective(problem, model, named, quantities, scale)
+        durations = (times[1:] - times[:-1]) / model.sequence.period
+        n_eq, n_mode = int(eq.shape[0]), int(durations.shape[0])
+        g += [eq, durations]
+        lbg += [np.zeros(n_eq), np.full(n_mode, 1e-9)]
+        ubg += [np.zeros(n_eq), np.full(n_mode, np.inf)]
+        for limit in problem.spec.limits:
+            lo, hi = model.row_bounds[limit.label]
+            size = max([abs(v) for v in (*lo, *hi) if math.isfinite(v)] or [1.0]) or 1.0
+            g.append(rows[model.row_slices[limit.label]] / size)
+            lbg.append(lo / size)
+            ubg.append(hi / size)
+    lbg, ubg = np.concatenate(lbg), np.concatenate(ubg)
+    duty_low, duty_high = point.duty / DUTY_ROOM, min(0.999, point.duty * DUTY_ROOM)
+    lbw = [math.log(problem.bounds[n][0]) for n in problem.variables]
+    ubw = [math.log(problem.bounds[n][1]) for n in problem.variables]
+    w0 = [math.log(point.values[n]) for n in problem.variables]
+    for corner in cases:
+        lbw += [duty_low] + [1.0 / LOCATED_ROOM] * nl
+        ubw += [duty_high] + [LOCATED_ROOM] * nl
+        guess = point.corner_guess.get(_corner_key(corner), (point.duty, point.located))
+        w0 += [guess[0], *guess[1]]
     options = {
         "ipopt.print_level": 0, "print_time": False, "ipopt.sb": "yes",
         "ipopt.hessian_approximation": "limited-memory", "ipopt.max_iter": max_iterations,
-        "ipopt.tol": tolerance, "ipopt.mu_strategy": "adaptive",
-        "ipopt.acceptable_tol": 1e-5, "ipopt.acceptable_iter": 5,
+        "ipopt.tol": max(tolerance, 1e-6), "ipopt.mu_strategy": "adaptive",
+        "ipopt.acceptable_tol": 1e-5, "ipopt.acceptable_iter": 2,
         "ipopt.constr_viol_tol": STEADY, "ipopt.bound_push": 1e-6, "ipopt.bound_frac": 1e-6,
     }  # fmt: skip
-    solver = ca.nlpsol("switched", "ipopt", {"x": w, "p": fixed, "f": f, "g": g}, options)
-    w0 = [math.log(point.values[n]) for n in problem.variables] + [point.duty, *point.located]
+    nlp = {"x": w, "p": fixed, "f": f, "g": ca.vertcat(*g)}
+    solver = ca.nlpsol("switched", "ipopt", nlp, options)
     p0 = [point.values[n] for n in model.parts]
     sol = solver(x0=w0, p=p0, lbx=lbw, ubx=ubw, lbg=lbg, ubg=ubg)
     stats = solver.stats()
@@ -196,8 +219,15 @@ def _solve_nlp(problem, model, point: Point, scale, max_iterations, tolerance) -
         design[n] = float(math.exp(x[i]))
     gv = np.array(sol["g"]).ravel()
     violation = float(max(0.0, np.max(lbg - gv, initial=0.0), np.max(gv - ubg, initial=0.0)))
-    return RoundResult(_point(model, design, x[nv], x[nv + 1 :]), stats["return_status"],
-                       int(stats["iter_count"]), violation)  # fmt: skip
+    result = _point(model, design, x[nv], x[nv + 1 : nv + 1 + nl])
+    for c, corner in enumerate(cases[1:], start=1):
+        at = nv + c * (1 + nl)
+        result.corner_guess[_corner_key(corner)] = (float(x[at]), x[at + 1 : at + 1 + nl])
+    return RoundResult(result, stats["return_status"], int(stats["iter_count"]), violation)
+
+
+def _corner_key(corner: dict[str, float]) -> tuple:
+    return tuple(sorted(corner.items()))
 
 
 def is_settled(imposed: PeriodSequence, point: Point, found: PeriodSequence) -> bool:
@@ -293,32 +323,47 @@ class _Exchange:
         problem = self.problem
         sequence, start, model = self.start()
         if np.max(np.abs(start.out["equations"])) > STEADY:
-            raise TuningError("solver_failed", "no periodic steady state of the starting "
-                              "design's mode sequence was found", location=("scenario",))
+            raise TuningError(
+                "solver_failed",
+                "no periodic steady state of the starting design's mode sequence was found",
+                location=("scenario",),
+            )
         q0 = start.out["quantities"].ravel()
         scale = (self._energy_scale(model, q0), self._capacitance_scale(start.values))
-        point, rounds, iterations, history = start, 0, 0, []
+        point, rounds, iterations = start, 0, 0
         settled, status, violation = False, "", 0.0
+        corners: list[dict[str, float]] = []
+        corner_parts: list[str] | None = None
         while rounds < MAX_ROUNDS:
             rounds += 1
-            result = _solve_nlp(problem, model, point, scale, max_iterations, tolerance)
+            result = _solve_nlp(problem, model, point, scale, max_iterations, tolerance, corners)
             point, status = result.point, result.status
             iterations += result.iterations
             violation = result.violation
             x0 = point.out["states"][: model.n_states, 0]
             found = self.simulate(point.values, x0, point.duty, CHECK_PERIODS)
-            history.append(found.describe([]))
             self.say(f"round {rounds}: {status} after {result.iterations} iterations; "
-                     f"sequence {found.describe([])}")  # fmt: skip
-            if is_settled(model.sequence, point, found):
-                settled = True
+                     f"sequence {found.describe()}"
+                     + (f"; {len(corners)} corner(s) imposed" if corners else ""))  # fmt: skip
+            settled = is_settled(model.sequence, point, found)
+            if not settled:
+                guesses = point.corner_guess
+                model = self.model(found, point.values)
+                point = sequence_point(model, point.values, found.duty, _located(model, found))
+                point.corner_guess = guesses
+                continue
+            if not problem.spec.solver.robust:
                 break
-            model = self.model(found, point.values)
-            point = sequence_point(model, point.values, found.duty, _located(model, found))
+            if corner_parts is None:
+                corner_parts = _corner_parts(problem, model, point)
+            worst = _worst_corner(problem, model, point, corner_parts)
+            if worst is None or worst in corners:
+                break
+            corners.append(worst)
         return {"start": start, "start_model": self.models[sequence.signature()],
                 "point": point, "model": model, "rounds": rounds, "settled": settled,
                 "status": status, "iterations": iterations, "violation": violation,
-                "scale": scale}  # fmt: skip
+                "scale": scale, "corners": corners, "corner_parts": corner_parts}  # fmt: skip
 
     def _energy_scale(self, model: SequenceModel, q0: np.ndarray) -> float:
         spec = self.problem.spec.objective
@@ -361,37 +406,97 @@ def solve_switched(
             code = "infeasible_limits" if "Infeasible" in found["status"] else "solver_failed"
             failing = [f"{r['name']} misses by {-r['margin']:.4g}" for r in rows
                        if r["relative_margin"] < -FEASIBLE]  # fmt: skip
-            raise TuningError(code, f"the optimiser stopped ({found['status']}); "
-                              + "; ".join(failing), file=file, location=("limits",))
-    chosen, candidates_checked = _snap(problem, model, point, series, found["scale"])
-    verification = _verify(problem, exchange, model, chosen, say)
+            raise TuningError(
+                code,
+                f"the optimiser stopped ({found['status']}); " + "; ".join(failing),
+                file=file,
+                location=("limits",),
+            )
+    chosen, candidates_checked, corner_parts = _snap(problem, model, point, series,
+                                                     found["scale"])  # fmt: skip
+    verification = _verify(problem, exchange, model, chosen, say, corner_parts)
     return _result(problem, found, chosen, verification, series, candidates_checked,
                    solve_seconds, exchange)  # fmt: skip
 
 
 def _snap(problem, model, point: Point, series: str, scale):
     """The least-objective combination of neighbouring preferred values that meets every
-    limit (each with its own steady state on the same sequence)."""
-    options = [preferred.candidates(point.values[n], series) for n in problem.variables]
-    best, best_key, count = None, None, 0
-    for combo in itertools.product(*options):
-        values = dict(point.values)
-        values.update(zip(problem.variables, combo, strict=True))
-        candidate = sequence_point(model, values, point.duty, point.located)
-        if np.max(np.abs(candidate.out["equations"])) > STEADY:
+    limit (each with its own steady state on the same sequence). With
+    ``stress.corners_must_pass``, every tolerance corner too: two neighbours each side,
+    then four when none of those passes. Returns the chosen point, the number of
+    candidates evaluated and the corner parts (``None`` when corners are not required)."""
+    strict = (problem.spec.stress.corners_must_pass or problem.spec.solver.robust) and (
+        problem.spec.stress.tolerance_corners
+    )
+    seen: dict[tuple, tuple] = {}
+    corner_parts = None
+    for count in (2, 4) if strict else (1,):
+        options = [preferred.candidates(point.values[n], series, count)
+                   for n in problem.variables]  # fmt: skip
+        for combo in itertools.product(*options):
+            if combo not in seen:
+                seen[combo] = _candidate(problem, model, point, combo, scale)
+        ranked = sorted((v for v in seen.values() if v is not None), key=lambda r: r[0])
+        if not ranked:
+            raise TuningError(
+                "solver_failed",
+                "no preferred-value combination has a steady state on the optimum's mode sequence",
+                location=("variables",),
+            )
+        if not strict:
+            return ranked[0][1], len(seen), None
+        if corner_parts is None:
+            corner_parts = _corner_parts(problem, model, ranked[0][1])
+        for key, candidate in ranked:
+            if key[0] == 0 and _passes_corners(problem, model, candidate, corner_parts):
+                return candidate, len(seen), corner_parts
+    return ranked[0][1], len(seen), corner_parts
+
+
+def _candidate(problem, model, point: Point, combo: tuple, scale):
+    """``((failing, objective or worst violation), point)`` of one combination, or
+    ``None`` when its steady state on the sequence is not found."""
+    values = dict(point.values)
+    values.update(zip(problem.variables, combo, strict=True))
+    candidate = sequence_point(model, values, point.duty, point.located)
+    if np.max(np.abs(candidate.out["equations"])) > STEADY:
+        return None
+    rows = margins(problem, model, candidate)
+    q = candidate.out["quantities"].ravel()
+    objective = float(_objective(problem, model, values, q, scale))
+    worst = min(r["relative_margin"] for r in rows)
+    return ((0, objective) if worst >= -FEASIBLE else (1, -worst)), candidate
+
+
+def _worst_corner(problem, model, point: Point, parts: list[str]) -> dict[str, float] | None:
+    """The tolerance corner (part-value multipliers) with the least relative margin, if
+    some limit fails there."""
+    worst, key = None, -FEASIBLE
+    for corner in _corners(problem, point.values, parts):
+        p = sequence_point(model, corner, point.duty, point.located)
+        if np.max(np.abs(p.out["equations"])) > STEADY:
             continue
-        count += 1
-        rows = margins(problem, model, candidate)
-        q = candidate.out["quantities"].ravel()
-        objective = float(_objective(problem, model, values, q, scale))
-        worst = min(r["relative_margin"] for r in rows)
-        key = (0, objective) if worst >= -FEASIBLE else (1, -worst)
-        if best_key is None or key < best_key:
-            best, best_key = candidate, key
-    if best is None:
-        raise TuningError("solver_failed", "no preferred-value combination has a steady state "
-                          "on the optimum's mode sequence", location=("variables",))
-    return best, count
+        least = min(r["relative_margin"] for r in margins(problem, model, p))
+        if least < key:
+            key = least
+            worst = {n: corner[n] / point.values[n] for n in parts}
+    return worst
+
+
+def _corners(problem, values: dict[str, float], parts: list[str]):
+    for signs in itertools.product((-1, 1), repeat=len(parts)):
+        corner = dict(values)
+        for name, sign in zip(parts, signs, strict=True):
+            corner[name] *= 1 + sign * problem.tolerances[name]
+        yield corner
+
+
+def _passes_corners(problem, model, candidate: Point, parts: list[str]) -> bool:
+    for corner in _corners(problem, candidate.values, parts):
+        p = sequence_point(model, corner, candidate.duty, candidate.located)
+        if not _feasible(margins(problem, model, p)):
+            return False
+    return True
 
 
 def _corner_parts(problem, model, point: Point) -> list[str]:
@@ -424,7 +529,7 @@ class _Verified:
     notes: list[str]
 
 
-def _verify(problem, exchange: _Exchange, model, chosen: Point, say) -> _Verified:
+def _verify(problem, exchange: _Exchange, model, chosen: Point, say, parts=None) -> _Verified:
     """Margins at the preferred values, their sequence re-simulated, the tolerance corners
     (each with its own steady state) and the stress report."""
     rows = [dict(r, margin_worst_corner=r["margin"],
@@ -435,14 +540,15 @@ def _verify(problem, exchange: _Exchange, model, chosen: Point, say) -> _Verifie
     settled = is_settled(model.sequence, chosen, found)
     notes = []
     if not settled:
-        notes.append("at the preferred values the closed-loop run shows another mode sequence "
-                      f"({found.describe([])}); the margins are those of the optimum's sequence")
-    toleranced = _corner_parts(problem, model, chosen) if problem.spec.stress.tolerance_corners else []
+        notes.append(
+            "at the preferred values the closed-loop run shows another mode sequence "
+            f"({found.describe()}); the margins are those of the optimum's sequence"
+        )
+    toleranced = []
+    if problem.spec.stress.tolerance_corners:
+        toleranced = parts if parts is not None else _corner_parts(problem, model, chosen)
     corners = 0
-    for signs in itertools.product((-1, 1), repeat=len(toleranced)):
-        values = dict(chosen.values)
-        for name, sign in zip(toleranced, signs, strict=True):
-            values[name] *= 1 + sign * problem.tolerances[name]
+    for values in _corners(problem, chosen.values, toleranced):
         point = sequence_point(model, values, chosen.duty, chosen.located)
         if np.max(np.abs(point.out["equations"])) > STEADY:
             notes.append(f"no steady state on the sequence at corner {values}")
@@ -460,7 +566,8 @@ def _verify(problem, exchange: _Exchange, model, chosen: Point, say) -> _Verifie
 def _stress(problem, model: SequenceModel, point: Point) -> list[dict]:
     """Peak current and voltage over the period's samples, the resistors' average power,
     against each part's ratings."""
-    stress = point.out["stress"]
+    p = np.array([point.values[n] for n in model.parts])
+    stress = np.array(model.stress_function(p, point.duty, point.located))
     if stress.ndim == 1:
         stress = stress[:, None]
     q = point.out["quantities"].ravel()
@@ -518,14 +625,19 @@ def _result(problem, found, chosen: Point, verified: _Verified, series, candidat
         limits=limits,
         tightest=None if tight is None else {k: tight[k] for k in keys},
         stress=verified.stress,
-        solver={"status": found["status"], "iterations": found["iterations"],
-                "seconds": solve_seconds, "squarings": model.squarings,
-                "truncation_bound": truncation_bound(model.squarings),
-                "constraint_violation": found["violation"],
-                "exchange_rounds": found["rounds"], "sequence_settled": found["settled"],
-                "unknowns": len(problem.variables) + 1 + len(model.located),
-                "constraints": int(point.out["rows"].size + point.out["equations"].size),
-                "candidates_checked": candidates},  # fmt: skip
+        solver={
+            "status": found["status"],
+            "iterations": found["iterations"],
+            "seconds": solve_seconds,
+            "squarings": model.squarings,
+            "truncation_bound": truncation_bound(model.squarings),
+            "constraint_violation": found["violation"],
+            "exchange_rounds": found["rounds"],
+            "sequence_settled": found["settled"],
+            "unknowns": len(problem.variables) + 1 + len(model.located),
+            "constraints": int(point.out["rows"].size + point.out["equations"].size),
+            "candidates_checked": candidates,
+        },  # fmt: skip
         objective=objective,
         corners_checked=verified.corners,
         toleranced_parts=verified.toleranced,
@@ -546,7 +658,8 @@ def sequence_notes(problem, found, chosen: Point, verified: _Verified, exchange)
     )
     return [
         f"limits imposed on one switching period in periodic steady state, mode sequence "
-        f"{seq.describe([])} (from the closed-loop run; {len(model.located)} located diode "
+        f"{seq.describe(chosen.out['times'].ravel()[1:-1])} at the preferred values (from the "
+        f"closed-loop run; {len(model.located)} located diode "
         "event(s) solved with the design); " + settled,
         f"the sampled PI holds {problem.measure} x {problem.gain:.6g} on the reference "
         f"{problem.reference:g} at every carrier start; duty {chosen.duty:.6f} at the "

@@ -152,11 +152,12 @@ class SwitchedProblem:
                 "period) and 'capacitance' only",
                 ("objective",),
             )
-        if spec.solver.robust:
+        if spec.solver.robust and not spec.stress.tolerance_corners:
             self._refuse(
-                "robust = true is not available for switched tunings; the tolerance corners "
-                "are verified after snapping",
+                "robust = true imposes limits at tolerance corners; it needs "
+                "stress.tolerance_corners = true",
                 ("solver", "robust"),
+                "invalid_field",
             )
 
     def _load_system(self) -> Any:
@@ -324,11 +325,15 @@ class SwitchedProblem:
                         "unknown_switching_event",
                     )
                 if limit.within >= self.period:
-                    self._refuse(f"limit {limit.label!r}: 'within' must be shorter than the "
-                                 "switching period", (*where, "within"), "invalid_limit")  # fmt: skip
+                    self._refuse(
+                        f"limit {limit.label!r}: 'within' must be shorter than the period",
+                        (*where, "within"),
+                        "invalid_limit",
+                    )
             wanted = {"energy_per_period": ("resistor",), "average_power": ("resistor",)}
-            if limit.kind in wanted and getattr(parts.get(limit.part), "kind", None) not in (
-                wanted[limit.kind]
+            if (
+                limit.kind in wanted
+                and getattr(parts.get(limit.part), "kind", None) not in (wanted[limit.kind])
             ):
                 self._refuse(f"limit {limit.label!r}: {limit.part!r} is no resistor of "
                              f"{self.block!r}", (*where, "part"), "invalid_limit")  # fmt: skip
