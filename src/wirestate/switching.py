@@ -106,9 +106,7 @@ class SwitchedCircuit:
         As for :class:`~wirestate.lti.CircuitBlock`; the inputs include the gates.
     """
 
-    def __init__(
-        self, spec: CircuitSpec, extra_probes: tuple[tuple[str, str], ...] = ()
-    ) -> None:
+    def __init__(self, spec: CircuitSpec, extra_probes: tuple[tuple[str, str], ...] = ()) -> None:
         self.spec = spec
         self.name = spec.name
         topology = analyse(spec)
