@@ -84,7 +84,8 @@ class SequenceModel:
     """The CasADi function of one period's sequence and how to read it.
 
     ``function(values, duty, located) -> (equations, rows, quantities, boundary_states,
-    times)``, ``stress_function(...) -> stress`` (samples x part currents and voltages):
+    times)``, ``stress_function(...) -> (stress, row_times)`` (samples x part currents and
+    voltages; the time of each row from the carrier start, NaN for a row over the period):
     ``values`` the part values of :attr:`parts` (SI), ``duty`` the
     switch's on fraction, ``located`` the length of each mode that a located event ends,
     relative to its length in the run the sequence came from (1 there).
@@ -296,12 +297,13 @@ def build_sequence_model(
     for part in energy_parts:
         quantity_names.append(f"energy_{part}")
         quantities.append(energy(part))
-    rows_out, row_slices, row_bounds = [], {}, {}
+    rows_out, row_slices, row_bounds, row_times = [], {}, {}, []
     stress_samples: list[tuple[int, Any]] = [
         (k, boundary_states[k]) for k in range(len(sequence.modes))
     ] + [(k, boundary_states[k + 1]) for k in range(len(sequence.modes))]
     for limit in limits:
-        expr, lower, upper, samples = _limit_rows(b, limit, times, boundary_states, energy)
+        expr, lower, upper, samples, when = _limit_rows(b, limit, times, boundary_states, energy)
+        row_times.append(when)
         start = sum(int(r.shape[0]) for r in rows_out)
         rows_out.append(expr)
         row_slices[limit.label] = slice(start, start + int(expr.shape[0]))
@@ -330,10 +332,11 @@ def build_sequence_model(
         ["values", "duty", "located"],
         ["equations", "rows", "quantities", "states", "times"],
     )
-    # the stress samples apart: the optimiser never differentiates them
+    # the stress samples and row times apart: the optimiser never differentiates them
     stress_function = ca.Function(
-        "stress", inputs, [ca.horzcat(*stress) if stress else ca.SX.zeros(0, 1)],
-        ["values", "duty", "located"], ["stress"],
+        "stress", inputs, [ca.horzcat(*stress) if stress else ca.SX.zeros(0, 1),
+                           ca.vertcat(*row_times) if row_times else ca.SX.zeros(0, 1)],
+        ["values", "duty", "located"], ["stress", "row_times"],
     )  # fmt: skip
     return SequenceModel(
         function=function,
@@ -397,7 +400,8 @@ def _nominal_times(seq: PeriodSequence) -> list[float]:
 
 
 def _limit_rows(b: _Builder, limit: Limit, times, states, energy):
-    """``(rows, lower, upper, stress samples)`` of one switched limit."""
+    """``(rows, lower, upper, stress samples, row times)`` of one switched limit (the
+    times of window rows from the carrier start, s; NaN for a limit over the period)."""
     ca = b.ca
     inf = np.inf
     if limit.kind in ("peak_after_switching", "ring_settling"):
@@ -406,19 +410,22 @@ def _limit_rows(b: _Builder, limit: Limit, times, states, energy):
         samples = [(k, z) for k, z, _, _ in window]
         if limit.kind == "peak_after_switching":
             rows = ca.vertcat(*values)
-            return rows, np.full(len(values), -inf), np.full(len(values), limit.max), samples
+            when = ca.vertcat(*[t for _, _, t, _ in window])
+            return rows, np.full(len(values), -inf), np.full(len(values), limit.max), samples, when
         final = values[-1]
-        kept = [v - final for (_, _, _, offset), v in zip(window, values, strict=True)
+        kept = [(v - final, t) for (_, _, t, offset), v in zip(window, values, strict=True)
                 if offset >= limit.by - 1e-15]  # fmt: skip
-        rows = ca.vertcat(*kept)
-        return rows, np.full(len(kept), -limit.max), np.full(len(kept), limit.max), samples
+        rows = ca.vertcat(*[v for v, _ in kept])
+        when = ca.vertcat(*[t for _, t in kept])
+        low, high = np.full(len(kept), -limit.max), np.full(len(kept), limit.max)
+        return rows, low, high, samples, when
+    nan = ca.SX(np.nan)
     if limit.kind == "energy_per_period":
-        return energy(limit.part), np.array([-inf]), np.array([limit.max]), []
+        return energy(limit.part), np.array([-inf]), np.array([limit.max]), [], nan
     if limit.kind == "average_power":
-        return energy(limit.part) / b.T, np.array([-inf]), np.array([limit.max]), []
+        return energy(limit.part) / b.T, np.array([-inf]), np.array([limit.max]), [], nan
     if limit.kind == "efficiency":
         supplied = -energy(limit.input)
         delivered = sum(energy(part) for part in limit.loads)
-        # delivered - min * supplied >= 0, scaled by the supplied energy at the bounds' side
-        return delivered / supplied, np.array([limit.min]), np.array([inf]), []
+        return delivered / supplied, np.array([limit.min]), np.array([inf]), [], nan
     raise ValueError(f"not a switched limit kind: {limit.kind}")

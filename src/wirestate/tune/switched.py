@@ -567,7 +567,7 @@ def _stress(problem, model: SequenceModel, point: Point) -> list[dict]:
     """Peak current and voltage over the period's samples, the resistors' average power,
     against each part's ratings."""
     p = np.array([point.values[n] for n in model.parts])
-    stress = np.array(model.stress_function(p, point.duty, point.located))
+    stress = np.array(model.stress_function(p, point.duty, point.located)[0])
     if stress.ndim == 1:
         stress = stress[:, None]
     q = point.out["quantities"].ravel()
