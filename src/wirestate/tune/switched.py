@@ -93,8 +93,14 @@ def sequence_point(
         p = ca.SX.sym("p", len(model.parts))
         eq = model.function(p, z[0], z[1:])[0]
         g = ca.Function("g", [z, p], [eq])
-        rf = ca.rootfinder("steady", "newton", g, {"abstol": 1e-13, "max_iter": 50,
-                                                    "error_on_fail": False})  # fmt: skip
+        # the equations are scaled to ~1 and carry ~1e-8 of rounding (stiff exponentials):
+        # Newton stops there, or when its step is below 1e-13 of the period
+        rf = ca.rootfinder(
+            "steady",
+            "newton",
+            g,
+            {"abstol": 1e-7, "abstolStep": 1e-13, "max_iter": 15, "error_on_fail": False},
+        )
         model._rootfinder = rf  # type: ignore[attr-defined]
     p = np.array([values[n] for n in model.parts])
     z = np.array(rf(np.concatenate([[duty], located]), p)).ravel()
