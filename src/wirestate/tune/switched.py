@@ -156,6 +156,7 @@ class RoundResult:
     status: str
     iterations: int
     violation: float
+    seconds: tuple[float, float] = (0.0, 0.0)  # building the NLP, solving it
 
 
 def _solve_nlp(
@@ -215,7 +216,12 @@ def _solve_nlp(
         "ipopt.constr_viol_tol": STEADY, "ipopt.bound_push": 1e-6, "ipopt.bound_frac": 1e-6,
     }  # fmt: skip
     nlp = {"x": w, "p": fixed, "f": f, "g": ca.vertcat(*g)}
+    t_build = time.perf_counter()
     solver = ca.nlpsol("switched", "ipopt", nlp, options)
+    # CasADi caches derivative functions weakly: keeping this round's solver alive lets
+    # the next round (more corners, same sequence) reuse the SX function's derivatives
+    model.__dict__.setdefault("solvers", []).append(solver)
+    t_solve = time.perf_counter()
     p0 = [point.values[n] for n in model.parts]
     sol = solver(x0=w0, p=p0, lbx=lbw, ubx=ubw, lbg=lbg, ubg=ubg)
     stats = solver.stats()
@@ -229,7 +235,9 @@ def _solve_nlp(
     for c, corner in enumerate(cases[1:], start=1):
         at = nv + c * (1 + nl)
         result.corner_guess[_corner_key(corner)] = (float(x[at]), x[at + 1 : at + 1 + nl])
-    return RoundResult(result, stats["return_status"], int(stats["iter_count"]), violation)
+    seconds = (t_solve - t_build, time.perf_counter() - t_solve)
+    return RoundResult(result, stats["return_status"], int(stats["iter_count"]), violation,
+                       seconds)  # fmt: skip
 
 
 def _corner_key(corner: dict[str, float]) -> tuple:
@@ -348,7 +356,8 @@ class _Exchange:
             violation = result.violation
             x0 = point.out["states"][: model.n_states, 0]
             found = self.simulate(point.values, x0, point.duty, CHECK_PERIODS)
-            self.say(f"round {rounds}: {status} after {result.iterations} iterations; "
+            self.say(f"round {rounds}: {status} after {result.iterations} iterations "
+                     f"({result.seconds[0]:.1f} s to build, {result.seconds[1]:.1f} s to solve); "
                      f"sequence {found.describe()}"
                      + (f"; {len(corners)} corner(s) imposed" if corners else ""))  # fmt: skip
             settled = is_settled(model.sequence, point, found)
@@ -418,24 +427,25 @@ def solve_switched(
                 file=file,
                 location=("limits",),
             )
-    chosen, candidates_checked, corner_parts = _snap(problem, model, point, series,
-                                                     found["scale"])  # fmt: skip
+    chosen, candidates_checked, corner_parts = _snap(
+        problem, model, point, series, found["scale"], found["corner_parts"]
+    )
     verification = _verify(problem, exchange, model, chosen, say, corner_parts)
     return _result(problem, found, chosen, verification, series, candidates_checked,
                    solve_seconds, exchange)  # fmt: skip
 
 
-def _snap(problem, model, point: Point, series: str, scale):
+def _snap(problem, model, point: Point, series: str, scale, corner_parts=None):
     """The least-objective combination of neighbouring preferred values that meets every
     limit (each with its own steady state on the same sequence). With
-    ``stress.corners_must_pass``, every tolerance corner too: two neighbours each side,
-    then four when none of those passes. Returns the chosen point, the number of
-    candidates evaluated and the corner parts (``None`` when corners are not required)."""
+    ``stress.corners_must_pass`` or ``robust``, every tolerance corner too: one neighbour
+    each side, then two, then four while none of those passes. Returns the chosen point,
+    the number of candidates evaluated and the corner parts (``None`` when corners are not
+    required)."""
     strict = (problem.spec.stress.corners_must_pass or problem.spec.solver.robust) and (
         problem.spec.stress.tolerance_corners
     )
     seen: dict[tuple, tuple] = {}
-    corner_parts = None
     for count in (2, 4) if strict else (1,):
         options = [preferred.candidates(point.values[n], series, count)
                    for n in problem.variables]  # fmt: skip
