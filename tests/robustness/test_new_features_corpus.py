@@ -1296,6 +1296,36 @@ CASES: list[Case] = [
         ],
         where=("--csv",),
     ),
+    # issue 12, tuning over switching transients: a switched limit on the linear RC,
+    # and the figure of a switched tuning
+    Case(
+        "switched_limit_on_linear_circuit",
+        "tune",
+        {
+            "t.toml": TUNING.replace(
+                'kind = "maximum"\noutput = "v"\nmax = "10V"',
+                'kind = "peak_after_switching"\noutput = "v"\npart = "R1"\nedge = "turn_off"\n'
+                'within = "1us"\nmax = "10V"',
+            ),
+            "rc.toml": RC,
+        },  # fmt: skip
+        ["tune", "{t.toml}", "--quiet"],
+        where=("limits.vmax.kind", "no switches or diodes"),
+    ),
+    Case(
+        "switched_tune_plot_refused",
+        "tune",
+        {
+            "t.toml": TUNING.replace(
+                'kind = "maximum"\noutput = "v"\nmax = "10V"',
+                'kind = "peak_after_switching"\noutput = "v"\npart = "R1"\nedge = "turn_off"\n'
+                'within = "1us"\nmax = "10V"',
+            ),
+            "rc.toml": RC,
+        },  # fmt: skip
+        ["tune", "{t.toml}", "--plot", "{out.png}", "--quiet"],
+        where=("--plot",),
+    ),
 ]
 
 
