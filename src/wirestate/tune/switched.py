@@ -371,10 +371,11 @@ class _Exchange:
                 break
             if corner_parts is None:
                 corner_parts = _corner_parts(problem, model, point)
-            worst = _worst_corner(problem, model, point, corner_parts)
-            if worst is None or worst in corners:
+            fresh = [c for c in _worst_corners(problem, model, point, corner_parts)
+                     if c not in corners]  # fmt: skip
+            if not fresh:
                 break
-            corners.append(worst)
+            corners.extend(fresh)
         return {"start": start, "start_model": self.models[sequence.signature()],
                 "point": point, "model": model, "rounds": rounds, "settled": settled,
                 "status": status, "iterations": iterations, "violation": violation,
@@ -484,19 +485,23 @@ def _candidate(problem, model, point: Point, combo: tuple, scale):
     return ((0, objective) if worst >= -FEASIBLE else (1, -worst)), candidate
 
 
-def _worst_corner(problem, model, point: Point, parts: list[str]) -> dict[str, float] | None:
-    """The tolerance corner (part-value multipliers) with the least relative margin, if
-    some limit fails there."""
-    worst, key = None, -FEASIBLE
+def _worst_corners(problem, model, point: Point, parts: list[str]) -> list[dict[str, float]]:
+    """Per limit that some tolerance corner breaks, the corner (part-value multipliers)
+    where it has the least relative margin; each corner once."""
+    worst: dict[str, tuple[float, dict[str, float]]] = {}
     for corner in _corners(problem, point.values, parts):
         p = sequence_point(model, corner, point.duty, point.located)
         if np.max(np.abs(p.out["equations"])) > STEADY:
             continue
-        least = min(r["relative_margin"] for r in margins(problem, model, p))
-        if least < key:
-            key = least
-            worst = {n: corner[n] / point.values[n] for n in parts}
-    return worst
+        for row in margins(problem, model, p):
+            if row["relative_margin"] < min(-FEASIBLE, worst.get(row["name"], (0.0,))[0]):
+                multipliers = {n: corner[n] / point.values[n] for n in parts}
+                worst[row["name"]] = (row["relative_margin"], multipliers)
+    out: list[dict[str, float]] = []
+    for _, corner in worst.values():
+        if corner not in out:
+            out.append(corner)
+    return out
 
 
 def _corners(problem, values: dict[str, float], parts: list[str]):
