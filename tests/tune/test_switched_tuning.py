@@ -277,7 +277,7 @@ def test_exchange_settles_on_the_example(tmp_path):
     result = S.solve_switched(load_tuning(path), "E24")
     assert result.solver["sequence_settled"] is True
     assert result.solver["exchange_rounds"] >= 1
-    assert any("settled after" in note for note in result.notes)
+    assert any("the sequence settled" in note for note in result.notes)
     for row in result.limits:
         assert row["relative_margin"] >= -1e-6, row
 

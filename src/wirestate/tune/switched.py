@@ -614,6 +614,7 @@ def _result(problem, found, chosen: Point, verified: _Verified, series, candidat
             solve_seconds, exchange) -> TuningResult:  # fmt: skip
     spec = problem.spec
     point, model = found["point"], found["model"]
+    cases = 1 + len(found["corners"])
     start = problem.start_values()
     variables = {}
     for name in problem.variables:
@@ -655,8 +656,9 @@ def _result(problem, found, chosen: Point, verified: _Verified, series, candidat
             "constraint_violation": found["violation"],
             "exchange_rounds": found["rounds"],
             "sequence_settled": found["settled"],
-            "unknowns": len(problem.variables) + 1 + len(model.located),
-            "constraints": int(point.out["rows"].size + point.out["equations"].size),
+            "unknowns": len(problem.variables) + cases * (1 + len(model.located)),
+            "constraints": cases * int(point.out["rows"].size + point.out["equations"].size),
+            "tolerance_corners_in_optimiser": len(found["corners"]),
             "candidates_checked": candidates,
         },  # fmt: skip
         objective=objective,
@@ -673,10 +675,19 @@ def sequence_notes(problem, found, chosen: Point, verified: _Verified, exchange)
     model = found["model"]
     seq = model.sequence
     settled = (
-        f"the mode sequence settled after {found['rounds']} round(s) of re-simulation"
+        f"the sequence settled: the closed-loop re-simulation at the optimum of round "
+        f"{found['rounds']} showed the sequence imposed"
         if found["settled"]
         else f"the mode sequence did NOT settle within {found['rounds']} rounds"
     )
+    if found["corners"]:
+        shown = "; ".join(
+            ", ".join(f"{n} x {m:g}" for n, m in corner.items()) for corner in found["corners"]
+        )
+        settled += (
+            f"; {len(found['corners'])} tolerance corner(s) imposed in the optimiser by "
+            f"exchange ({shown}), each with its own steady state"
+        )
     return [
         f"limits imposed on one switching period in periodic steady state, mode sequence "
         f"{seq.describe(chosen.out['times'].ravel()[1:-1])} at the preferred values (from the "
@@ -691,7 +702,9 @@ def sequence_notes(problem, found, chosen: Point, verified: _Verified, exchange)
         "in a closed-loop re-simulation; tolerance corners each have their own steady state "
         "on that sequence",
         f"matrix exponentials by Taylor scaling and squaring ({model.squarings} squarings at "
-        f"most, truncation bound {truncation_bound(model.squarings):.1e} relative)",
+        f"most; first-order truncation bound {truncation_bound(model.squarings):.1e} "
+        "relative, the rounding of the squarings measured near 5e-8 on the bundled buck's "
+        "stiffest mode against 50-digit arithmetic)",
         f"time: building the sequence models {exchange.build_seconds:.2f} s, closed-loop "
         f"runs {exchange.simulate_seconds:.2f} s",
     ]
