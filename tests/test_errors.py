@@ -512,3 +512,40 @@ def test_switched_model_code():
     with pytest.raises(WirestateError) as info:
         simulate_linear(block, 1e-3, 1e-4)
     assert info.value.code == "switched_model" and info.value.location == ("parts", "D1")
+
+
+# issue 12, tuning over switching transients: each new code once, on code and location
+@pytest.mark.parametrize(
+    ("change", "code", "location"),
+    [
+        ({"tuning": {"name": "t", "circuit": "tuning/drive_bus.toml"},
+          "variables": {"Rd": {"min": "50mohm", "max": "5ohm"}},
+          "objective": {"capacitance": 1.0, "parts": ["Cd"]}},
+         "switched_limit_on_linear", ("limits", "peak_after_switching_v_Q1", "kind")),
+        ({"limits": [{"kind": "peak_after_switching", "output": "v_Q1", "part": "Qx",
+                      "edge": "turn_off", "within": "200ns", "max": "60V"}]},
+         "unknown_switching_event", ("limits", "peak_after_switching_v_Q1", "part")),
+        ({"solver": {"robust": True}, "stress": {"tolerance_corners": False}},
+         "invalid_field", ("solver", "robust")),
+        ({"objective": {"squared_error": 1.0, "output": "v_aux"}},
+         "unsupported_switched_tuning", ("objective",)),
+    ],
+)  # fmt: skip
+def test_switched_tuning_codes(change, code, location):
+    from tests.conftest import MODELS
+    from wirestate.spec.tuning import parse_tuning
+    from wirestate.tune.switched_problem import SwitchedProblem
+
+    data = {
+        "tuning": {"name": "t", "system": "systems/aux_buck_loop.toml", "block": "stage"},
+        "variables": {"Rsnub": {"min": "1ohm", "max": "47ohm"}},
+        "scenario": {"until": "10us", "step": "1us", "inputs": {"v_ref": "1V"}},
+        "limits": [{"kind": "peak_after_switching", "output": "v_Q1", "part": "Q1",
+                    "edge": "turn_off", "within": "200ns", "max": "60V"}],
+        "objective": {"resistor_energy": 1.0, "parts": ["Rsnub"]},
+        **change,
+    }  # fmt: skip
+    with pytest.raises(WirestateError) as info:
+        SwitchedProblem(parse_tuning(data, base_dir=str(MODELS)))
+    assert info.value.code == code and info.value.location == location
+    assert "\n" not in str(info.value)

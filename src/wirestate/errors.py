@@ -64,6 +64,12 @@ ERROR_CODES: dict[str, str] = {
     "invalid_limit": "a limit that names an unknown output or has inconsistent bounds",
     "infeasible_limits": "the optimiser found no point inside every limit",
     "solver_failed": "the optimiser stopped without converging",
+    # switched tuning (issue 12)
+    "switched_limit_on_linear": "a limit on switching events for a circuit without switches "
+    "or diodes",
+    "unsupported_switched_tuning": "a switched tuning whose system the mode-sequence optimiser "
+    "does not handle (no modulator, no sampled PI setting its duty, a triangle carrier...)",
+    "unknown_switching_event": "a switched limit naming a switch edge that no modulator drives",
     # tolerance Monte Carlo and design sweeps (wirestate yield, wirestate sweep)
     "no_tolerance": "a part asked to vary within its tolerance has none",
     "invalid_grid": "a sweep grid that cannot be read or has no points",

@@ -95,6 +95,9 @@ class SwitchedCircuit:
     ----------
     spec
         A validated circuit with at least one ``switch`` or ``diode`` part.
+    extra_probes
+        ``("current" | "voltage", part)`` rows added after the device rows of ``P, Q, p``
+        (and of :meth:`symbolic_mode`'s outputs), e.g. a snubber resistor's current.
 
     Attributes
     ----------
@@ -104,7 +107,7 @@ class SwitchedCircuit:
         As for :class:`~wirestate.lti.CircuitBlock`; the inputs include the gates.
     """
 
-    def __init__(self, spec: CircuitSpec) -> None:
+    def __init__(self, spec: CircuitSpec, extra_probes: tuple[tuple[str, str], ...] = ()) -> None:
         self.spec = spec
         self.name = spec.name
         topology = analyse(spec)
@@ -125,12 +128,15 @@ class SwitchedCircuit:
         self.probes = tuple(
             [("current", d.name) for d in self.devices]
             + [("voltage", d.name) for d in self.devices]
+            # further part currents and voltages (the tuning's energies), after the devices'
+            + list(extra_probes)
         )
         self._modes: dict[tuple[bool, ...], ModeModel] = {}
         first = self._compile(tuple(False for _ in self.devices))
         self.states = list(first.states)
         self.inputs = [name for name, _ in topology.inputs]
         self.outputs = list(first.outputs[: len(first.outputs) - len(self.probes)])
+        self.extra_probes = tuple(extra_probes)
         self.units = {k: v for k, v in first.units.items() if k != CONSTANT_INPUT}
         self.x0 = first.x0.copy()
         self.input_defaults = dict(first.input_defaults)

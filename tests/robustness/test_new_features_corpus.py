@@ -294,6 +294,13 @@ parts = ["R1"]
 """
 
 
+# a switched limit (issue 12) in the tuning of the linear RC circuit
+SWITCHED_ON_RC = TUNING.replace(
+    'kind = "maximum"\noutput = "v"\nmax = "10V"',
+    'kind = "peak_after_switching"\noutput = "v"\npart = "R1"\nedge = "turn_off"\n'
+    'within = "1us"\nmax = "10V"',
+)
+
 # the RC circuit with a 5 % resistor, so that yield has something to vary
 RC_TOLERANCE = RC.replace('value = "1kohm"', 'value = "1kohm"\ntolerance = "5%"')
 
@@ -1362,6 +1369,22 @@ CASES: list[Case] = [
             "--quiet",
         ],
         where=("--csv",),
+    ),
+    # issue 12, tuning over switching transients: a switched limit on the linear RC,
+    # and the figure of a switched tuning
+    Case(
+        "switched_limit_on_linear_circuit",
+        "tune",
+        {"t.toml": SWITCHED_ON_RC, "rc.toml": RC},
+        ["tune", "{t.toml}", "--quiet"],
+        where=("limits.vmax.kind", "no switches or diodes"),
+    ),
+    Case(
+        "switched_tune_plot_refused",
+        "tune",
+        {"t.toml": SWITCHED_ON_RC, "rc.toml": RC},
+        ["tune", "{t.toml}", "--plot", "{out.png}", "--quiet"],
+        where=("--plot",),
     ),
 ]
 

@@ -415,6 +415,52 @@ def _limit_text(limit: Any, units: dict[str, str]) -> tuple[str, str]:
     return target, text
 
 
+def switched_tuning_inspection(spec: Any, *, file: str | None = None) -> Inspection:
+    """The inspection of a tuning over switching transients (issue 12): what it sizes, the
+    loop the optimiser found (switch, modulator, sampled PI), the limits and the system."""
+    from wirestate.tune.switched_problem import SIZED_KINDS, SwitchedProblem
+
+    problem = SwitchedProblem(spec, file=file)
+    start = problem.start_values()
+    out = [f"tuning {spec.name}: sizes {', '.join(problem.variables)} of switched block "
+           f"{problem.block} of system {problem.system.name} ({spec.system_path})"]  # fmt: skip
+    rows = []
+    for name in problem.variables:
+        part, var = problem.circuit_spec.parts[name], spec.variables[name]
+        unit = SIZED_KINDS[part.kind]
+        rows.append((name, part.kind, format_quantity(var.min, unit),
+                     format_quantity(var.max, unit), format_quantity(start[name], unit),
+                     format_quantity(part.value, unit)))  # fmt: skip
+    out += [
+        "",
+        "design variables",
+        table(("part", "kind", "min", "max", "start", "in the circuit file"), rows),
+    ]
+    out += ["", f"switching: {problem.switch} driven by a sawtooth modulator at "
+            f"{format_quantity(1 / problem.period, 'Hz')}; the sampled PI "
+            f"{problem.controller} holds {problem.measure} x {problem.gain:.6g} on "
+            f"{problem.reference:g} (limits judged on one period in steady state)"]  # fmt: skip
+    limits = [(lim.label, lim.kind, lim.output or lim.part or lim.input or "",
+               "" if (lim.max if lim.max is not None else lim.min) is None
+               else f"{(lim.max if lim.max is not None else lim.min):g}")
+              for lim in spec.limits]  # fmt: skip
+    out += ["", "limits", table(("name", "kind", "on", "bound (SI)"), limits)]
+    blocks = [
+        (name, view.category, ", ".join(view.inputs), ", ".join(view.outputs))
+        for name, view in problem.system.blocks.items()
+    ]
+    out += ["", f"blocks of system {problem.system.name}",
+            table(("block", "category", "inputs", "outputs"), blocks)]  # fmt: skip
+    data = {
+        "kind": "tuning",
+        "name": spec.name,
+        "switched": True,
+        "variables": list(problem.variables),
+        "limits": [{"name": n, "kind": k, "on": o, "bound": b} for n, k, o, b in limits],
+    }
+    return Inspection("tuning", spec.name, "\n".join(out), data, np.zeros(0, complex))
+
+
 def tuning_inspection(spec: Any, *, file: str | None = None) -> Inspection:
     """The inspection of a validated tuning file: what it sizes, under which limits, and
     the loop at the starting values of the design variables."""
@@ -422,7 +468,10 @@ def tuning_inspection(spec: Any, *, file: str | None = None) -> Inspection:
     from wirestate.spec.load import read_toml
     from wirestate.tune.model import COMMAND_PREFIX, TuningModel
     from wirestate.tune.nlp import start_values
+    from wirestate.tune.switched_problem import is_switched_tuning
 
+    if is_switched_tuning(spec):
+        return switched_tuning_inspection(spec, file=file)
     model = TuningModel(spec, file=file)
     original, spec = spec, model.spec
     start = start_values(model)

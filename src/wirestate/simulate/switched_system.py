@@ -377,6 +377,11 @@ class _SystemRun:
         for j, src in enumerate(self.part_sources):
             if src[0] == SAMPLED:
                 u[j] = self.held[src[1]][src[2]]
+            elif src[0] == "ext" and src[1] not in self.gate_rows:
+                # the external inputs now: before the run's first apply the engine holds
+                # zeros, and a source's feedthrough (a load current through an ESR) would
+                # reach the first sample of a controller
+                u[j] = self.external.U[src[1], self.clock.index(t)]
         mode = e.data().mode
         return mode.C @ e.x + mode.D @ u + mode.g
 

@@ -316,6 +316,16 @@ LIMIT_KINDS = (
     "output_impedance",
 )
 
+#: limits on the switching period of a switched scenario (issue 12): judged on the mode
+#: sequence of one switching period in periodic steady state (see wirestate.tune.switched)
+SWITCHED_LIMIT_KINDS = (
+    "peak_after_switching",
+    "ring_settling",
+    "energy_per_period",
+    "average_power",
+    "efficiency",
+)
+
 
 class Limit(_Strict):
     """One limit. Which fields apply depends on ``kind``:
@@ -331,10 +341,22 @@ class Limit(_Strict):
     * ``pole_real_part``: ``max`` real part of every closed-loop pole (1/s, negative);
     * ``output_impedance``: ``input`` (a current source injecting at the port),
       ``output`` (the port voltage), ``band`` = [f_low, f_high] in Hz, ``max`` in ohm.
+
+    Switched scenarios (a circuit with switches and diodes driven by a modulator):
+
+    * ``peak_after_switching``: ``output``, ``part`` (a switch), ``edge`` (``"turn_off"``
+      or ``"turn_on"``), ``within`` (s after that edge), ``max``; ``points`` samples;
+    * ``ring_settling``: ``output``, ``part``, ``edge``, ``within``, ``settled_by`` (s after
+      the edge), ``max``: from ``settled_by`` to ``within`` the output stays within
+      ``max`` of its value at ``within``;
+    * ``energy_per_period``: ``part`` (a resistor), ``max`` (J per switching period);
+    * ``average_power``: ``part`` (a resistor), ``max`` (W at the switching frequency);
+    * ``efficiency``: ``input`` (the voltage source feeding the converter), ``loads``
+      (resistors and current sources fed by it), ``min`` (fraction or %).
     """
 
     name: str | None = None
-    kind: Literal[LIMIT_KINDS]  # type: ignore[valid-type]
+    kind: Literal[LIMIT_KINDS + SWITCHED_LIMIT_KINDS]  # type: ignore[valid-type]
     output: str | None = None
     input: str | None = None
     part: str | None = None
@@ -349,6 +371,15 @@ class Limit(_Strict):
     )
     band: tuple[Hertz, Hertz] | Fraction | None = None
     points: int = Field(default=200, ge=10, le=5000, description="frequency grid points")
+    edge: Literal["turn_off", "turn_on"] | None = Field(
+        default=None, description="switched limits: the switch edge the window starts at"
+    )
+    within: Seconds | None = Field(
+        default=None, gt=0, description="switched limits: length of the window after the edge"
+    )
+    loads: list[str] | None = Field(
+        default=None, description="efficiency: the parts whose power counts as output"
+    )
     relative_to: Literal["change", "final"] = Field(
         default="change",
         alias="percent_of",
@@ -362,6 +393,14 @@ class Limit(_Strict):
         if isinstance(data, dict) and data.get("kind") in ("overshoot",) and "max" in data:
             data = dict(data)
             data["max"] = _fraction(data["max"])
+        if isinstance(data, dict) and data.get("kind") == "efficiency" and "min" in data:
+            data = dict(data)
+            if unit_of(data["min"]) is not None:
+                raise ValueError(
+                    f"an 'efficiency' limit takes min as a fraction or a percentage such as "
+                    f"'90%', got {data['min']!r}"
+                )
+            data["min"] = _fraction(data["min"])
         return data
 
     @model_validator(mode="after")
@@ -376,6 +415,11 @@ class Limit(_Strict):
             "damping_ratio": ("min",),
             "pole_real_part": ("max",),
             "output_impedance": ("input", "output", "band", "max"),
+            "peak_after_switching": ("output", "part", "edge", "within", "max"),
+            "ring_settling": ("output", "part", "edge", "within", "settled_by", "max"),
+            "energy_per_period": ("part", "max"),
+            "average_power": ("part", "max"),
+            "efficiency": ("input", "loads", "min"),
         }
         for field in need[self.kind]:
             if getattr(self, _ATTRIBUTE.get(field, field)) is None:
@@ -389,6 +433,10 @@ class Limit(_Strict):
             raise ValueError("band must be [f_low, f_high] with 0 < f_low < f_high")
         if self.window is not None and not self.window[0] < self.window[1]:
             raise ValueError("window must be [t_start, t_end] with t_start < t_end")
+        if self.kind == "ring_settling" and not 0 <= self.by < self.within:
+            raise ValueError("settled_by must lie within [0, within)")
+        if self.kind == "efficiency" and not 0 < self.min < 1:
+            raise ValueError("an efficiency 'min' must lie between 0 and 100 %")
         return self
 
     def _refuse_fields_that_do_not_apply(self) -> None:
@@ -423,6 +471,11 @@ LIMIT_FIELDS: dict[str, tuple[str, ...]] = {
     "damping_ratio": ("min",),
     "pole_real_part": ("max",),
     "output_impedance": ("input", "output", "band", "max", "points"),
+    "peak_after_switching": ("output", "part", "edge", "within", "max", "points"),
+    "ring_settling": ("output", "part", "edge", "within", "settled_by", "max", "points"),
+    "energy_per_period": ("part", "max"),
+    "average_power": ("part", "max"),
+    "efficiency": ("input", "loads", "min"),
 }
 # attribute name -> file key, where they differ
 _KEY = {"by": "settled_by", "relative_to": "percent_of"}
@@ -579,6 +632,11 @@ _LIMIT_UNITS: dict[str, str | None] = {
     "output_impedance": "ohm",
     "damping_ratio": None,
     "pole_real_part": None,
+    "peak_after_switching": "output",
+    "ring_settling": "output",
+    "energy_per_period": "J",
+    "average_power": "W",
+    "efficiency": None,
 }
 
 

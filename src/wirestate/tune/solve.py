@@ -35,6 +35,8 @@ from wirestate.tune.report import (
 )
 from wirestate.tune.snap import corner_points, snap
 from wirestate.tune.stress import stress_report
+from wirestate.tune.switched import solve_switched
+from wirestate.tune.switched_problem import is_switched_tuning
 from wirestate.tune.verify import verify
 
 __all__ = ["CAUTIONS", "TuningResult", "limit_margins", "solve", "stress_report"]
@@ -84,6 +86,9 @@ def solve(
         ``solver_failed`` when it stops without converging.
     """
     series = _check_series(series)
+    if system is None and is_switched_tuning(spec):
+        # issue 12: limits on switching transients, the mode-sequence exchange
+        return solve_switched(spec, series, progress, file=file)
     say = progress or (lambda _message: None)
     problem = Problem(spec, file=file, system=system)
     spec = problem.spec
