@@ -280,6 +280,12 @@ def test_exchange_settles_on_the_example(tmp_path):
     assert any("the sequence settled" in note for note in result.notes)
     for row in result.limits:
         assert row["relative_margin"] >= -1e-6, row
+    # Coss sits directly across Q1: the switch's peak current is that capacitor's discharge
+    # through the on-resistance, and the report says so beside the stress
+    assert any(
+        n.startswith("Q1's peak current includes the discharge of Coss") for n in result.notes
+    )
+    assert result.tightest["worst_corner_units"] == {}  # nominal only: no corner to name
 
 
 # -- bad inputs: one-line errors with stable codes -------------------------------------------

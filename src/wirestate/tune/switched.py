@@ -610,6 +610,33 @@ def _stress(problem, model: SequenceModel, point: Point) -> list[dict]:
     return rows
 
 
+def _tightest(problem, row: dict, keys: tuple[str, ...]) -> dict:
+    parts = problem.circuit_spec.parts
+    units = {n: SIZED_KINDS.get(parts[n].kind, "") for n in row["worst_corner"] if n in parts}
+    return {**{k: row[k] for k in keys}, "worst_corner_units": units}
+
+
+def _across_notes(problem, stress: list[dict]) -> list[str]:
+    """Say where a switch's or diode's peak current is the discharge of a capacitor placed
+    directly across it (a device's own output capacitance discharges inside the die)."""
+    parts = problem.circuit_spec.parts
+    notes = []
+    for row in stress:
+        if row["kind"] not in ("switch", "diode"):
+            continue
+        pair = set(parts[row["part"]].nodes)
+        across = [n for n, p in parts.items()
+                  if p.kind == "capacitor" and set(getattr(p, "nodes", ())) == pair]  # fmt: skip
+        if across:
+            notes.append(
+                f"{row['part']}'s peak current includes the discharge of {', '.join(across)} "
+                "directly across it through its on-resistance; in a real device an output "
+                "capacitance discharges inside the die, so compare that peak with the device's "
+                "pulse ratings with care"
+            )
+    return notes
+
+
 def _result(problem, found, chosen: Point, verified: _Verified, series, candidates,
             solve_seconds, exchange) -> TuningResult:  # fmt: skip
     spec = problem.spec
@@ -639,13 +666,14 @@ def _result(problem, found, chosen: Point, verified: _Verified, series, candidat
         "preferred": float(_objective(problem, model, chosen.values, q(chosen), scale)),
     }  # fmt: skip
     notes = sequence_notes(problem, found, chosen, verified, exchange) + verified.notes
+    notes += _across_notes(problem, verified.stress)
     return TuningResult(
         name=spec.name,
         series=series,
         feasible=_feasible(verified.rows),
         variables=variables,
         limits=limits,
-        tightest=None if tight is None else {k: tight[k] for k in keys},
+        tightest=None if tight is None else _tightest(problem, tight, keys),
         stress=verified.stress,
         solver={
             "status": found["status"],
