@@ -107,6 +107,22 @@ parts = ["C1"]
             "wrong_unit",
             "scenario.inputs.Vs",
         ),
+        (
+            (
+                "[objective]",
+                '[[limits]]\nkind = "peak_current"\npart = "R1"\nmax = "8V"\n[objective]',
+            ),
+            "wrong_unit",
+            "limits.peak_current_R1.max",
+        ),
+        (
+            (
+                "[objective]",
+                '[[scenario.steps]]\ninput = "Vs"\nat = "1ms"\nto = "15A"\n[objective]',
+            ),
+            "wrong_unit",
+            "scenario.steps.0.to",
+        ),
         # a field that does not apply to the kind is refused (issue 9, item 12)
         (
             (
@@ -206,3 +222,24 @@ def test_a_field_that_does_not_apply_names_the_fields_that_do(rc_case):
         load_tuning(path)
     assert "'after' does not apply to a 'minimum' limit" in info.value.message
     assert "output, min, window" in info.value.message
+
+
+@pytest.mark.parametrize(
+    ("band", "expected"),
+    [
+        ('"0.5V"', "cannot read '0.5V' as a tolerance"),
+        ('["1Hz"]', "too few items"),
+    ],
+)
+def test_a_bad_band_names_the_field_without_the_validator_internals(rc_case, band, expected):
+    # a settling band is a fraction or (impedance limits) a pair of frequencies; the error
+    # once named pydantic's union member ("band.tuple[function-before[_hertz(), ...]]")
+    path = rc_case()
+    limit = f'[[limits]]\nkind = "settling"\noutput = "v_out"\nband = {band}\n'
+    path.write_text(BASE.replace("[objective]", limit + "[objective]"), encoding="utf-8")
+    with pytest.raises(WirestateError) as info:
+        load_tuning(path)
+    assert info.value.where.endswith("limits.0.band"), info.value.where
+    assert expected in info.value.message
+    assert "[" not in info.value.where and "function" not in str(info.value)
+
