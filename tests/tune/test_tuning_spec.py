@@ -243,3 +243,21 @@ def test_a_bad_band_names_the_field_without_the_validator_internals(rc_case, ban
     assert expected in info.value.message
     assert "[" not in info.value.where and "function" not in str(info.value)
 
+
+def test_a_circuit_file_given_as_a_tuning_file_is_told_as_such(rc_case, tmp_path):
+    # it was "unknown field 'circuit' (fields here: tuning, ..., base_dir)": the loader's
+    # own field was offered as a key of the file
+    rc_case()
+    with pytest.raises(WirestateError) as info:
+        load_tuning(tmp_path / "rc.toml")
+    assert info.value.code == "wrong_file_kind"
+    assert "a tuning file was expected" in info.value.message
+    path = tmp_path / "typo.toml"
+    path.write_text(BASE.replace("[objective]", "[objectiv]"), encoding="utf-8")
+    with pytest.raises(WirestateError) as info:
+        load_tuning(path)
+    assert "did you mean 'objective'" in info.value.message
+    path.write_text(BASE + "[other]\n", encoding="utf-8")
+    with pytest.raises(WirestateError) as info:
+        load_tuning(path)
+    assert info.value.code == "unknown_field" and "base_dir" not in info.value.message

@@ -224,7 +224,8 @@ def accepted_keys(model: type[BaseModel], loc: tuple[Any, ...]) -> list[str]:
         return []
     current = _strip(current)
     if isinstance(current, type) and issubclass(current, BaseModel):
-        return [f.alias or name for name, f in current.model_fields.items()]
+        # fields the loader sets (exclude=True: a tuning file's base_dir) are no file keys
+        return [f.alias or name for name, f in current.model_fields.items() if not f.exclude]
     return []
 
 
