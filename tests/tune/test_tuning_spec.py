@@ -110,6 +110,14 @@ parts = ["C1"]
         (
             (
                 "[objective]",
+                '[stress.ripple]\ninput = "Vs"\namplitude = "6A"\nfrequency = "20kHz"\n[objective]',
+            ),
+            "wrong_unit",
+            "stress.ripple.amplitude",
+        ),
+        (
+            (
+                "[objective]",
                 '[[limits]]\nkind = "peak_current"\npart = "R1"\nmax = "8V"\n[objective]',
             ),
             "wrong_unit",
@@ -261,3 +269,4 @@ def test_a_circuit_file_given_as_a_tuning_file_is_told_as_such(rc_case, tmp_path
     with pytest.raises(WirestateError) as info:
         load_tuning(path)
     assert info.value.code == "unknown_field" and "base_dir" not in info.value.message
+

@@ -637,6 +637,12 @@ def check_units(spec: TuningSpec, units: dict[str, str], *, file: str | None = N
     for name, value in scenario.initial_values.items():
         where = ("scenario", "initial_values", name)
         check(value, units.get(name, ""), f"initial value of {name!r}", where)
+    ripple = spec.stress.ripple
+    if ripple is not None:
+        what = f"the ripple on {ripple.input!r} (amplitude)"
+        check(
+            ripple.amplitude, units.get(ripple.input, ""), what, ("stress", "ripple", "amplitude")
+        )
     if spec.controller is not None and spec.controller.reference is not None:
         check(
             spec.controller.reference,
