@@ -127,6 +127,21 @@ def error_of(parts, outputs=None, **header) -> WirestateError:
             ("outputs", "i_C1"),
             "Vs",
         ),
+        # an output unit that does not fit what is measured was accepted and ignored
+        (
+            {"Vs": V, "R1": R},
+            {"v_in": {"voltage": "in", "unit": "furlong"}},
+            "invalid_field",
+            ("outputs", "v_in"),
+            "furlong",
+        ),
+        (
+            {"Vs": V, "R1": R},
+            {"i_R1": {"current": "R1", "unit": "V"}},
+            "invalid_field",
+            ("outputs", "i_R1"),
+            "current output, which is in A",
+        ),
         # capacitor loop through a controlled voltage source
         (
             {
