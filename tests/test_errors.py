@@ -222,6 +222,20 @@ def test_topology_errors_name_the_part(parts, outputs, code, location, named):
             ("parts", "X", "coefficient"),
             "less than 1",
         ),
+        # pydantic's own words were "Input should be a valid tuple" and "Tuple should have
+        # at most 2 items after validation, not 3"
+        (
+            {"kind": "resistor", "nodes": "in", "value": 1},
+            "invalid_field",
+            ("parts", "X", "nodes"),
+            "expected a list such as",
+        ),
+        (
+            {"kind": "resistor", "nodes": ["in", "gnd", "x"], "value": 1},
+            "invalid_field",
+            ("parts", "X", "nodes"),
+            "too many items: got ['in', 'gnd', 'x']",
+        ),
     ],
 )
 def test_field_errors_name_the_field(part, code, location, text):

@@ -154,6 +154,10 @@ def error_from_validation(
     elif first["type"] == "union_tag_not_found":
         message = "missing field 'kind'"
         location = location + ("kind",)
+    elif first["type"] in ("tuple_type", "list_type"):
+        message = f'expected a list such as ["a", "b"], got {first.get("input")!r}'
+    elif first["type"] == "too_long":
+        message = f"too many items: got {first.get('input')!r}"
     elif first["type"] == "float_type":
         # strict numbers (state-space matrices): say what was given instead
         message = f"expected a number (SI base units), got {first.get('input')!r}"
