@@ -518,3 +518,18 @@ def test_not_reducible_code(tmp_path, capsys):
     )
     assert main(["reduce", str(model), "--order", "0", "--out", str(tmp_path / "r.toml")]) == 2
     assert "parts.D1" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("kind", ["pi", "sensor_filter", "gain"])
+def test_a_block_unit_not_in_si_symbols_is_named(kind):
+    # 'volts' was taken as dimensionless: the pi block's output limits then failed with
+    # "'-24V' is not in  (accepted: a plain number...)", and a filter or gain carried it on
+    from wirestate.spec.system import parse_system
+
+    fields = {"pi": {"kp": 1, "ki": 1}, "sensor_filter": {"time_constant": "1ms"},
+              "gain": {"gain": 2}}[kind]  # fmt: skip
+    data = {"system": {"name": "s"}, "blocks": {"b": {"kind": kind, "unit": "volts", **fields}}}
+    with pytest.raises(WirestateError) as info:
+        parse_system(data, file="s.toml")
+    assert info.value.location == ("blocks", "b", "unit")
+    assert "'volts' is not written in SI symbols" in info.value.message

@@ -63,7 +63,7 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_valida
 
 from wirestate.errors import WirestateError
 from wirestate.spec.load import QuantityInput, expect_file_kind, read_toml, validate
-from wirestate.units import UNITS, parse_quantity
+from wirestate.units import UNITS, is_si_unit, parse_quantity
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 _SIGNAL = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*\.[A-Za-z_][A-Za-z0-9_]*$")
@@ -91,7 +91,19 @@ def _signal(value: Any) -> str:
     return value
 
 
+def _signal_unit(value: Any) -> str:
+    # an unknown unit was taken as dimensionless, so 'volts' surfaced later as
+    # "'-24V' is not in  (accepted: a plain number)" on the output limits
+    if value != "" and not (isinstance(value, str) and is_si_unit(value)):
+        raise ValueError(
+            f"unit {value!r} is not written in SI symbols without a prefix (such as V, A, "
+            "rad/s, N*m, 1/s, or 1 for a dimensionless signal)"
+        )
+    return value
+
+
 Signal = Annotated[str, BeforeValidator(_signal)]
+SignalUnit = Annotated[str, BeforeValidator(_signal_unit)]
 Seconds = Annotated[float, _q("s")]
 Gain = Annotated[float, _q("1")]
 
@@ -174,7 +186,7 @@ class _ControllerSpec(_Block):
     output_limits: tuple[str | float | None, str | float | None] | None = Field(
         default=None, description="[low, high] in `unit`"
     )
-    unit: str = Field(default="", description="unit of the command, e.g. 'V'")
+    unit: SignalUnit = Field(default="", description="unit of the command, e.g. 'V'")
     anti_windup: Literal["back_calculation", "conditional", "none"] = "back_calculation"
     tracking_time: Seconds | None = Field(default=None, gt=0)
     delay: bool = False
@@ -226,7 +238,7 @@ class SensorFilterSpec(_Block):
     kind: Literal["sensor_filter"]
     time_constant: Seconds = Field(gt=0)
     gain: Gain = 1.0
-    unit: str = ""
+    unit: SignalUnit = ""
 
 
 class GainSpec(_Block):
@@ -235,7 +247,7 @@ class GainSpec(_Block):
 
     kind: Literal["gain"]
     gain: Gain
-    unit: str = ""
+    unit: SignalUnit = ""
 
 
 class ModulatorSpec(_Block):
