@@ -58,6 +58,8 @@ parts = ["C1"]
         (('min = "0.1uF"', 'min = "20uF"'), "invalid_field", "variables.C1"),
         (('min = "0.1uF"', 'min = "0.1uH"'), "wrong_unit", "variables.C1.min"),
         (('step = "10us"', 'step = "3ms"'), "invalid_field", "scenario"),
+        # a horizon that is no whole number of steps was rounded silently (issue 10.7)
+        (('until = "2ms"', 'until = "2.005ms"'), "invalid_field", "scenario"),
         (("[objective]", "[objective]\nwrong = 1"), "unknown_field", "objective.wrong"),
         (('until = "2ms"\n', ""), "missing_field", "scenario.until"),
         (('circuit = "rc.toml"', 'circuit = "absent.toml"'), "file_not_found", "tuning.circuit"),
@@ -269,4 +271,3 @@ def test_a_circuit_file_given_as_a_tuning_file_is_told_as_such(rc_case, tmp_path
     with pytest.raises(WirestateError) as info:
         load_tuning(path)
     assert info.value.code == "unknown_field" and "base_dir" not in info.value.message
-
