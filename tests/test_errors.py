@@ -127,6 +127,21 @@ def error_of(parts, outputs=None, **header) -> WirestateError:
             ("outputs", "i_C1"),
             "Vs",
         ),
+        # an output unit that does not fit what is measured was accepted and ignored
+        (
+            {"Vs": V, "R1": R},
+            {"v_in": {"voltage": "in", "unit": "furlong"}},
+            "invalid_field",
+            ("outputs", "v_in"),
+            "furlong",
+        ),
+        (
+            {"Vs": V, "R1": R},
+            {"i_R1": {"current": "R1", "unit": "V"}},
+            "invalid_field",
+            ("outputs", "i_R1"),
+            "current output, which is in A",
+        ),
         # capacitor loop through a controlled voltage source
         (
             {
@@ -206,6 +221,20 @@ def test_topology_errors_name_the_part(parts, outputs, code, location, named):
             "out_of_range",
             ("parts", "X", "coefficient"),
             "less than 1",
+        ),
+        # pydantic's own words were "Input should be a valid tuple" and "Tuple should have
+        # at most 2 items after validation, not 3"
+        (
+            {"kind": "resistor", "nodes": "in", "value": 1},
+            "invalid_field",
+            ("parts", "X", "nodes"),
+            "expected a list such as",
+        ),
+        (
+            {"kind": "resistor", "nodes": ["in", "gnd", "x"], "value": 1},
+            "invalid_field",
+            ("parts", "X", "nodes"),
+            "too many items: got ['in', 'gnd', 'x']",
         ),
     ],
 )
@@ -549,3 +578,19 @@ def test_switched_tuning_codes(change, code, location):
         SwitchedProblem(parse_tuning(data, base_dir=str(MODELS)))
     assert info.value.code == code and info.value.location == location
     assert "\n" not in str(info.value)
+
+
+@pytest.mark.parametrize("kind", ["pi", "sensor_filter", "gain"])
+def test_a_block_unit_not_in_si_symbols_is_named(kind):
+    # 'volts' was taken as dimensionless: the pi block's output limits then failed with
+    # "'-24V' is not in  (accepted: a plain number...)", and a filter or gain carried it on
+    from wirestate.spec.system import parse_system
+
+    fields = {"pi": {"kp": 1, "ki": 1}, "sensor_filter": {"time_constant": "1ms"},
+              "gain": {"gain": 2}}[kind]  # fmt: skip
+    data = {"system": {"name": "s"}, "blocks": {"b": {"kind": kind, "unit": "volts", **fields}}}
+    with pytest.raises(WirestateError) as info:
+        parse_system(data, file="s.toml")
+    assert info.value.location == ("blocks", "b", "unit")
+    assert info.value.code == "wrong_unit"
+    assert "'volts' is not a unit in SI symbols" in info.value.message

@@ -692,7 +692,8 @@ def _check_request(block: Any, order: int | None, error: float | None, gramians:
         )
     if order is not None:
         if order < 0 or order >= n:
-            problem = "is negative" if order < 0 else f"is not below the block's {n} states"
+            states = f"{n} state" + ("" if n == 1 else "s")
+            problem = "is negative" if order < 0 else f"is not below the block's {states}"
             raise ReductionError(
                 "invalid_order",
                 f"{block.name}: --order {order} {problem}; ask for an order from 0 to {n - 1}",

@@ -149,8 +149,8 @@ def parse_quantity(text: str | float | int, unit: str, *, field: str = "value") 
     if match is None:
         raise QuantityError(
             "invalid_quantity",
-            f"{_lead(field)}cannot read {text!r} as a number with an optional SI prefix "
-            f"and unit {_display(unit)}",
+            f"{_lead(field)}cannot read {text!r} as a number with an optional SI prefix"
+            + (f" and unit {_display(unit)}" if _display(unit) else ""),
         )
     number = float(match.group(1))
     rest = match.group(2).replace(" ", "")

@@ -273,3 +273,18 @@ def test_a_lightly_damped_long_ladder_on_the_low_rank_path_says_to_use_dense_gra
         reduce_block(block, order=10)
     assert info.value.code == "reduction_not_converged"
     assert "--gramians dense" in info.value.message
+
+
+def test_a_one_state_block_is_counted_in_the_singular():
+    # "--order 1 is not below the block's 1 states" (issue 9.15's counts)
+    from tests.conftest import circuit
+
+    block = circuit(
+        {"Vs": {"kind": "voltage_source", "nodes": ["in", "gnd"]},
+         "R1": {"kind": "resistor", "nodes": ["in", "out"], "value": 1e3},
+         "C1": {"kind": "capacitor", "nodes": ["out", "gnd"], "value": 1e-6}},
+        {"v_out": {"voltage": "out"}},
+    )  # fmt: skip
+    with pytest.raises(ReductionError) as info:
+        reduce_block(block, order=1)
+    assert "not below the block's 1 state;" in info.value.message

@@ -62,3 +62,37 @@ def test_large_block_json_lists_a_summary_and_a_sparse_a():
     rebuilt = np.zeros((600, 600))
     rebuilt[A["row"], A["col"]] = A["value"]
     assert np.array_equal(rebuilt, block.A)
+
+
+def test_the_inspect_command_never_solves_for_every_pole_of_a_large_block(
+    tmp_path, monkeypatch, capsys
+):
+    # the command went through the file-kind inspection, which asked the block for every
+    # pole (a dense eigenvalue solve: 20 s at 2000 states) besides the summary's Arnoldi
+    from wirestate.cli import main
+    from wirestate.lti import CircuitBlock
+
+    path = tmp_path / "ladder.toml"
+    path.write_text(_ladder_toml(250), encoding="utf-8")  # 500 states
+
+    def refuse(self):
+        raise AssertionError("every pole of a large block was computed")
+
+    monkeypatch.setattr(CircuitBlock, "poles", refuse)
+    assert main(["inspect", str(path)]) == 0
+    assert "the 10 slowest" in capsys.readouterr().out
+    assert main(["inspect", str(path), "--json"]) == 0
+    assert '"pole_count": 500' in capsys.readouterr().out
+
+
+def _ladder_toml(sections: int) -> str:
+    lines = ["[circuit]", 'name = "ladder"', 'ground = "gnd"', "[parts.V1]",
+             'kind = "voltage_source"', 'nodes = ["n0", "gnd"]', 'value = "1V"']  # fmt: skip
+    for i in range(sections):
+        lines += [
+            f"[parts.R{i}]", 'kind = "resistor"', f'nodes = ["n{i}", "m{i}"]', "value = 0.01",
+            f"[parts.L{i}]", 'kind = "inductor"', f'nodes = ["m{i}", "n{i + 1}"]', "value = 1e-6",
+            f"[parts.C{i}]", 'kind = "capacitor"', f'nodes = ["n{i + 1}", "gnd"]', "value = 1e-6",
+        ]  # fmt: skip
+    lines += ["[outputs.v_end]", f'voltage = ["n{sections}", "gnd"]']
+    return "\n".join(lines) + "\n"

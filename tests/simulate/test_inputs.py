@@ -65,13 +65,22 @@ def test_csv_waveform(tmp_path):
     "text",
     ["square:1V", "step:", "step:48A", "ramp:48V", "ramp:1V,end=1ms,start=2ms",
      "points:2ms=1V,1ms=2V", "points:1V", "points:", "sinusoid:1V", "sinusoid:1V,50Hz,colour=red",
-     "step:1V,from=2V,3V", "step:48V@2ms", "step:1V,at=1ms,at=2ms"],
+     "step:1V,from=2V,3V", "step:48V@2ms", "step:1V,at=1ms,at=2ms",
+     # a sinusoid of no or negative frequency was accepted (a constant, an inverted wave)
+     "sinusoid:1V,-5Hz", "sinusoid:1V,0Hz"],
 )  # fmt: skip
 def test_bad_waveforms_name_the_input(text):
     with pytest.raises(WirestateError) as info:
         parse_waveform(text, "V", name="Vs")
     assert info.value.code == "invalid_input_signal"
     assert info.value.location == ("inputs", "Vs")
+
+
+def test_an_unreadable_phase_is_told_without_an_empty_unit():
+    # the message ended "...with an optional SI prefix and unit " (a phase has no unit key)
+    with pytest.raises(WirestateError) as info:
+        parse_waveform("sinusoid:1V,1kHz,phase=nan", "V", name="Vs")
+    assert info.value.message.endswith("with an optional SI prefix"), info.value.message
 
 
 def test_assignment_and_defaults():

@@ -58,6 +58,8 @@ parts = ["C1"]
         (('min = "0.1uF"', 'min = "20uF"'), "invalid_field", "variables.C1"),
         (('min = "0.1uF"', 'min = "0.1uH"'), "wrong_unit", "variables.C1.min"),
         (('step = "10us"', 'step = "3ms"'), "invalid_field", "scenario"),
+        # a horizon that is no whole number of steps was rounded silently (issue 10.7)
+        (('until = "2ms"', 'until = "2.005ms"'), "invalid_field", "scenario"),
         (("[objective]", "[objective]\nwrong = 1"), "unknown_field", "objective.wrong"),
         (('until = "2ms"\n', ""), "missing_field", "scenario.until"),
         (('circuit = "rc.toml"', 'circuit = "absent.toml"'), "file_not_found", "tuning.circuit"),
@@ -106,6 +108,30 @@ parts = ["C1"]
             ("[objective]", '[scenario.inputs]\nVs = "24A"\n[objective]'),
             "wrong_unit",
             "scenario.inputs.Vs",
+        ),
+        (
+            (
+                "[objective]",
+                '[stress.ripple]\ninput = "Vs"\namplitude = "6A"\nfrequency = "20kHz"\n[objective]',
+            ),
+            "wrong_unit",
+            "stress.ripple.amplitude",
+        ),
+        (
+            (
+                "[objective]",
+                '[[limits]]\nkind = "peak_current"\npart = "R1"\nmax = "8V"\n[objective]',
+            ),
+            "wrong_unit",
+            "limits.peak_current_R1.max",
+        ),
+        (
+            (
+                "[objective]",
+                '[[scenario.steps]]\ninput = "Vs"\nat = "1ms"\nto = "15A"\n[objective]',
+            ),
+            "wrong_unit",
+            "scenario.steps.0.to",
         ),
         # a field that does not apply to the kind is refused (issue 9, item 12)
         (
@@ -206,3 +232,42 @@ def test_a_field_that_does_not_apply_names_the_fields_that_do(rc_case):
         load_tuning(path)
     assert "'after' does not apply to a 'minimum' limit" in info.value.message
     assert "output, min, window" in info.value.message
+
+
+@pytest.mark.parametrize(
+    ("band", "expected"),
+    [
+        ('"0.5V"', "cannot read '0.5V' as a tolerance"),
+        ('["1Hz"]', "too few items"),
+    ],
+)
+def test_a_bad_band_names_the_field_without_the_validator_internals(rc_case, band, expected):
+    # a settling band is a fraction or (impedance limits) a pair of frequencies; the error
+    # once named pydantic's union member ("band.tuple[function-before[_hertz(), ...]]")
+    path = rc_case()
+    limit = f'[[limits]]\nkind = "settling"\noutput = "v_out"\nband = {band}\n'
+    path.write_text(BASE.replace("[objective]", limit + "[objective]"), encoding="utf-8")
+    with pytest.raises(WirestateError) as info:
+        load_tuning(path)
+    assert info.value.where.endswith("limits.0.band"), info.value.where
+    assert expected in info.value.message
+    assert "[" not in info.value.where and "function" not in str(info.value)
+
+
+def test_a_circuit_file_given_as_a_tuning_file_is_told_as_such(rc_case, tmp_path):
+    # it was "unknown field 'circuit' (fields here: tuning, ..., base_dir)": the loader's
+    # own field was offered as a key of the file
+    rc_case()
+    with pytest.raises(WirestateError) as info:
+        load_tuning(tmp_path / "rc.toml")
+    assert info.value.code == "wrong_file_kind"
+    assert "a tuning file was expected" in info.value.message
+    path = tmp_path / "typo.toml"
+    path.write_text(BASE.replace("[objective]", "[objectiv]"), encoding="utf-8")
+    with pytest.raises(WirestateError) as info:
+        load_tuning(path)
+    assert "did you mean 'objective'" in info.value.message
+    path.write_text(BASE + "[other]\n", encoding="utf-8")
+    with pytest.raises(WirestateError) as info:
+        load_tuning(path)
+    assert info.value.code == "unknown_field" and "base_dir" not in info.value.message

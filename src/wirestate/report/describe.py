@@ -21,7 +21,14 @@ from typing import Any
 
 import numpy as np
 
-from wirestate.report.tables import block_json, block_summary, pole_entries, pole_table, table
+from wirestate.report.tables import (
+    block_json,
+    block_summary,
+    listed_poles,
+    pole_entries,
+    pole_table,
+    table,
+)
 from wirestate.units import format_count as count
 from wirestate.units import format_quantity
 
@@ -92,7 +99,7 @@ def circuit_inspection(block: Any) -> Inspection:
         block.name,
         block_summary(block),
         {"kind": "circuit", **block_json(block)},
-        block.poles(),
+        listed_poles(block)[0],
         linear=block,
         units=dict(block.units),
     )

@@ -65,17 +65,14 @@ def block_summary(block: CircuitBlock) -> str:
     rows += [("output", name, block.units.get(name, "")) for name in block.outputs]
     out.append(table(("role", "name", "unit"), rows))
     out.append("")
-    large = block.n_states > LARGE_BLOCK_STATES
+    shown, large = listed_poles(block)
     if large:
-        slowest, fastest = extreme_poles(_state_matrix(block), 10)
         out.append(
             f"modes (poles of A): {block.n_states} states; the 10 slowest, then the 10 "
             "fastest (shift-invert Arnoldi)"
         )
-        shown = np.concatenate([slowest, fastest])
     else:
         out.append("modes (poles of A)")
-        shown = block.poles()
     mode_rows = []
     for m in modes(shown):
         if m["imag"] < 0:
@@ -131,16 +128,15 @@ def block_json(block: CircuitBlock) -> dict[str, Any]:
     coordinate form (``{"shape", "row", "col", "value"}``, its non-zero entries): every
     pole and a dense ``A`` of thousands of states would be hundreds of megabytes of text.
     """
-    large = block.n_states > LARGE_BLOCK_STATES
+    listed, large = listed_poles(block)
     if large:
-        slowest, fastest = extreme_poles(_state_matrix(block), 10)
-        entries = pole_entries(np.concatenate([slowest, fastest]))
+        entries = pole_entries(listed)
         entries["pole_count"] = block.n_states
         entries["poles_listed"] = (
             f"the 10 slowest, then the 10 fastest of {block.n_states}; " + entries["poles_listed"]
         )
     else:
-        entries = pole_entries(block.poles())
+        entries = pole_entries(listed)
     gain = shown_dc_gain(block)
     return {
         "name": block.name,
@@ -194,6 +190,23 @@ def dc_gain_term_sizes(A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarra
     if inner is None or not np.isfinite(inner).all():
         return np.abs(dc_gain_limit(A, B, C, D))
     return np.abs(D) + np.abs(C) @ inner
+
+
+def listed_poles(block: CircuitBlock) -> tuple[np.ndarray, bool]:
+    """The poles ``inspect`` lists (rad/s) and whether the block counts as large.
+
+    Every pole of a block with up to :data:`~wirestate.lti.LARGE_BLOCK_STATES` states;
+    above that its 10 slowest, then its 10 fastest (:func:`~wirestate.lti.extreme_poles`),
+    found once per block and kept: the table, the JSON and the figure share them, and a
+    dense eigenvalue solve of thousands of states takes most of a minute.
+    """
+    if block.n_states <= LARGE_BLOCK_STATES:
+        return block.poles(), False
+    listed = block.__dict__.get("_listed_poles")
+    if listed is None:
+        slowest, fastest = extreme_poles(_state_matrix(block), 10)
+        listed = block.__dict__["_listed_poles"] = np.concatenate([slowest, fastest])
+    return listed, True
 
 
 def _state_matrix(block: CircuitBlock) -> Any:

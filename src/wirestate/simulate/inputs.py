@@ -283,9 +283,14 @@ def _ramp(a: _Arguments) -> Waveform:
 
 def _sinusoid(a: _Arguments) -> Waveform:
     a.expect(2, {"mean", "phase", "start"})
+    frequency = parse_quantity(a.positional[1], "Hz", field="")
+    if not frequency > 0:
+        # a negative frequency is the same wave with its sign and phase turned, zero Hz a
+        # constant: both are a mistake when written as a sinusoid
+        raise ValueError(f"the sinusoid frequency must be positive, got {a.positional[1]!r}")
     return Sine(
         _value(a.positional[0], a.unit_key),
-        parse_quantity(a.positional[1], "Hz", field=""),
+        frequency,
         offset=a.value("mean"),
         phase=math.radians(_degrees(a.options.get("phase", "0"))),
         start=a.time("start"),

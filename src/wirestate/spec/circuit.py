@@ -379,13 +379,23 @@ class Output(_Strict):
         | None
     ) = Field(default=None, description="[node_plus, node_minus] or a node (to ground)")
     current: str | None = Field(default=None, description="part name, nodes[0] -> nodes[1]")
-    unit: str | None = None
+    unit: str | None = Field(
+        default=None,
+        description="optional, and then the output's own unit: V for a voltage, A for a current",
+    )
     description: str | None = None
 
     @model_validator(mode="after")
     def _exactly_one(self) -> Output:
         if (self.voltage is None) == (self.current is None):
             raise ValueError("an output takes exactly one of 'voltage' or 'current'")
+        # the unit follows from what is measured; another one was accepted and ignored
+        kind, unit = ("voltage", "V") if self.voltage is not None else ("current", "A")
+        if self.unit is not None and self.unit != unit:
+            raise ValueError(
+                f"unit {self.unit!r} does not fit a {kind} output, which is in {unit} (or "
+                "leave 'unit' out)"
+            )
         return self
 
 

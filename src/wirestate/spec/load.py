@@ -154,9 +154,17 @@ def error_from_validation(
     elif first["type"] == "union_tag_not_found":
         message = "missing field 'kind'"
         location = location + ("kind",)
+    elif first["type"] in ("tuple_type", "list_type"):
+        message = f'expected a list such as ["a", "b"], got {first.get("input")!r}'
+    elif first["type"] == "too_long":
+        message = f"too many items: got {first.get('input')!r}"
     elif first["type"] == "float_type":
         # strict numbers (state-space matrices): say what was given instead
         message = f"expected a number (SI base units), got {first.get('input')!r}"
+    elif first["type"] == "missing" and location and isinstance(location[-1], int):
+        # an item of a fixed-length list (a [low, high] pair), not a key
+        message = f"too few items: got {first.get('input')!r}"
+        location = location[:-1]
     elif first["type"] == "missing":
         message = f"missing required field {location[-1]!r}" if location else "missing field"
     elif first["type"] == "extra_forbidden":
@@ -220,7 +228,8 @@ def accepted_keys(model: type[BaseModel], loc: tuple[Any, ...]) -> list[str]:
         return []
     current = _strip(current)
     if isinstance(current, type) and issubclass(current, BaseModel):
-        return [f.alias or name for name, f in current.model_fields.items()]
+        # fields the loader sets (exclude=True: a tuning file's base_dir) are no file keys
+        return [f.alias or name for name, f in current.model_fields.items() if not f.exclude]
     return []
 
 
@@ -253,8 +262,14 @@ def _union_member(args: tuple[Any, ...], tag: Any) -> Any:
 
 
 def _most_specific(details: list[dict[str, Any]]) -> dict[str, Any]:
-    # a failed tagged union reports once per member; the deepest location is the useful one
-    return max(details, key=lambda d: len(d["loc"]))
+    # a failed tagged union reports once per member; the deepest location is the useful one.
+    # A plain union (a fraction or a pair of frequencies) also reports once per member,
+    # under labels such as "tuple[...]"; at equal depth a member's own reading of the value
+    # ("cannot read '0.5V' as a tolerance") says more than "Input should be a valid tuple"
+    return max(
+        details,
+        key=lambda d: (len(_clean_location(d["loc"])), d["type"] == "value_error"),
+    )
 
 
 def _clean_location(loc: tuple[Any, ...]) -> list[str | int]:
@@ -263,10 +278,16 @@ def _clean_location(loc: tuple[Any, ...]) -> list[str | int]:
     for index, item in enumerate(loc):
         if index == 2 and loc[0] == "parts" and isinstance(item, str) and _is_tag(item):
             continue
-        if isinstance(item, str) and item.startswith("function-"):
+        if isinstance(item, str) and (item.startswith("function-") or _is_member_label(item)):
             continue
         cleaned.append(item)
     return cleaned
+
+
+def _is_member_label(item: str) -> bool:
+    # pydantic names the members of a plain union in the location ("tuple[float, float]");
+    # no key of a wirestate file contains brackets
+    return "[" in item and item.endswith("]")
 
 
 def _is_tag(item: str) -> bool:

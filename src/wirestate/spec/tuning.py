@@ -85,7 +85,7 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, WrapValidato
 from pydantic.json_schema import SkipJsonSchema
 
 from wirestate.errors import TuningError
-from wirestate.spec.load import QuantityInput, read_toml, validate
+from wirestate.spec.load import QuantityInput, expect_file_kind, read_toml, validate
 from wirestate.units import PREFIXES, parse_quantity, parse_tolerance
 
 __all__ = ["TuningSpec", "load_tuning", "parse_tuning", "LIMIT_KINDS"]
@@ -556,7 +556,7 @@ class SolverOptions(_Strict):
 
 
 class TuningSpec(_Strict):
-    """A validated tuning file (SI base units). ``base_dir`` is the file's directory."""
+    """A validated tuning file (SI base units)."""
 
     tuning: TuningHeader
     variables: dict[str, DesignVariable]
@@ -566,6 +566,7 @@ class TuningSpec(_Strict):
     objective: Objective
     stress: Stress = Field(default_factory=Stress)
     solver: SolverOptions = Field(default_factory=SolverOptions)
+    # the file's directory, set by the loader (never by the file, never in the schema)
     base_dir: SkipJsonSchema[str] = Field(default=".", exclude=True)
 
     @model_validator(mode="after")
@@ -606,6 +607,7 @@ def parse_tuning(
     data: dict[str, Any], *, file: str | None = None, base_dir: str = "."
 ) -> TuningSpec:
     """Validate a tuning file given as a mapping (the parsed TOML)."""
+    expect_file_kind(data, "tuning", file=file)
     data = dict(data)
     if "base_dir" in data:
         # set from the file's place, never from the file (and not in the schema)
@@ -693,6 +695,12 @@ def check_units(spec: TuningSpec, units: dict[str, str], *, file: str | None = N
     for name, value in scenario.initial_values.items():
         where = ("scenario", "initial_values", name)
         check(value, units.get(name, ""), f"initial value of {name!r}", where)
+    ripple = spec.stress.ripple
+    if ripple is not None:
+        what = f"the ripple on {ripple.input!r} (amplitude)"
+        check(
+            ripple.amplitude, units.get(ripple.input, ""), what, ("stress", "ripple", "amplitude")
+        )
     if spec.controller is not None and spec.controller.reference is not None:
         check(
             spec.controller.reference,

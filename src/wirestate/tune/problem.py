@@ -228,8 +228,8 @@ class Problem:
                 if unit not in (expected, "1"):
                     raise TuningError(
                         "wrong_unit",
-                        f"{name} is a {part.kind}; its {field_name} must be in {expected}, "
-                        f"got a value in {unit}",
+                        f"{name} is {_article(part.kind)} {part.kind}; its {field_name} must "
+                        f"be in {expected}, got a value in {unit}",
                         file=self.file,
                         location=("variables", name, field_name),
                     )
@@ -535,3 +535,7 @@ class Problem:
 
 def _has_value(part: Any) -> bool:
     return part.kind in VALUE_KINDS and getattr(part, "value", None)
+
+
+def _article(word: str) -> str:
+    return "an" if word[:1] in "aeiou" else "a"
