@@ -71,30 +71,49 @@ def expm(X: Any, squarings: int, order: int = ORDER) -> Any:
     """
     import casadi
 
+    return casadi.DM.eye(X.shape[0]) + expm_minus_identity(X, squarings, order)
+
+
+def expm_minus_identity(X: Any, squarings: int, order: int = ORDER) -> Any:
+    """``exp(X) - I`` of a square CasADi matrix, by the same polynomial as :func:`expm`.
+
+    The squarings run on ``W = E - I`` as ``W <- 2 W + W W`` (since ``(I + W)**2 =
+    I + 2 W + W**2``), the same one product per squaring. Stored as ``E``, a step whose
+    norm is set by a stiff mode (rates near -7e14 /s beside rates near 1e4 /s) holds the
+    slow rates as differences from 1 at the 1e-10 level, so every squaring rounds away
+    most of their digits and 30 squarings amplify that; stored as ``W`` they keep full
+    relative precision (the idea of ``expm1`` for scalars; Higham, Functions of
+    Matrices, SIAM 2008, sec. 10.3 on the rounding of the squaring phase). The
+    polynomial is unchanged, so is the truncation bound.
+    """
+    import casadi
+
     n = X.shape[0]
-    identity = casadi.DM.eye(n)
     Y = X / (2.0**squarings)
     coefficients = [1.0 / math.factorial(k) for k in range(order + 1)]
     chunk = max(1, math.ceil(math.sqrt(order)))
-    powers = [identity, Y]
+    powers = [casadi.DM.eye(n), Y]
     for _ in range(2, chunk + 1):
         powers.append(casadi.mtimes(powers[-1], Y))
     top = powers[chunk]
 
     def block(j: int) -> Any:
-        # sum_{i < chunk} c[j chunk + i] Y**i: the j-th coefficient of the polynomial in Y**c
+        # sum_{i < chunk} c[j chunk + i] Y**i: the j-th coefficient of the polynomial in
+        # Y**c; the constant term c[0] I is left out (W = T - I)
         terms = [
-            coefficients[j * chunk + i] * powers[i] for i in range(chunk) if j * chunk + i <= order
+            coefficients[j * chunk + i] * powers[i]
+            for i in range(chunk)
+            if 0 < j * chunk + i <= order
         ]
-        return sum(terms[1:], terms[0])
+        return sum(terms[1:], terms[0]) if terms else 0 * Y
 
     last = order // chunk
-    T = block(last)
+    W = block(last)
     for j in range(last - 1, -1, -1):
-        T = block(j) + casadi.mtimes(top, T)
+        W = block(j) + casadi.mtimes(top, W)
     for _ in range(squarings):
-        T = casadi.mtimes(T, T)
-    return T
+        W = 2 * W + casadi.mtimes(W, W)
+    return W
 
 
 def zoh(A: Any, B: Any, dt: float, squarings: int, order: int = ORDER) -> tuple[Any, Any]:
