@@ -239,7 +239,7 @@ def test_gradients_against_central_differences(case):
     problem, model, point = case
     p = np.array([point.values[n] for n in model.parts])
     z = np.concatenate([[point.duty], point.located])
-    P, Z = ca.SX.sym("p", len(p)), ca.SX.sym("z", len(z))
+    P, Z = ca.MX.sym("p", len(p)), ca.MX.sym("z", len(z))
     eq, rows, q, _, _ = model.function(P, Z[0], Z[1:])
     out = ca.vertcat(rows, q[0])
     jac = ca.Function("j", [P, Z], [ca.jacobian(eq, P), ca.jacobian(eq, Z),

@@ -90,8 +90,8 @@ def sequence_point(
 
     rf = getattr(model, "_rootfinder", None)
     if rf is None:
-        z = ca.SX.sym("z", 1 + len(model.located))
-        p = ca.SX.sym("p", len(model.parts))
+        z = ca.MX.sym("z", 1 + len(model.located))
+        p = ca.MX.sym("p", len(model.parts))
         eq = model.function(p, z[0], z[1:])[0]
         g = ca.Function("g", [z, p], [eq])
         # the equations are scaled to ~1 and carry ~1e-10 of rounding (stiff exponentials;
@@ -168,7 +168,7 @@ def _solve_nlp(
 
     ``corners`` (part-value multipliers, e.g. ``{"Lloop": 1.3}``) add the limits at those
     tolerance corners, each with its own duty and located times (its own steady state on
-    the same sequence). The NLP is written in MX around calls of the sequence model's SX
+    the same sequence). The NLP is written in MX around calls of the sequence model's
     function, so its derivatives are generated once however many corners are imposed.
     """
     import casadi as ca
@@ -221,7 +221,7 @@ def _solve_nlp(
     t_build = time.perf_counter()
     solver = ca.nlpsol("switched", "ipopt", nlp, options)
     # CasADi caches derivative functions weakly: keeping this round's solver alive lets
-    # the next round (more corners, same sequence) reuse the SX function's derivatives
+    # the next round (more corners, same sequence) reuse the sequence function's derivatives
     model.__dict__.setdefault("solvers", []).append(solver)
     t_solve = time.perf_counter()
     p0 = [point.values[n] for n in model.parts]
@@ -489,8 +489,9 @@ def _candidate(problem, model, point: Point, combo: tuple, scale):
 
 def _worst_corners(problem, model, point: Point, parts: list[str]) -> list[dict[str, float]]:
     """Per limit that some tolerance corner breaks, the corner (part-value multipliers)
-    where it has the least relative margin; each corner once."""
-    worst: dict[str, tuple[float, dict[str, float]]] = {}
+    where it has the least relative margin; each corner once. Each corner's steady state
+    (duty, located times) goes into ``point.corner_guess``, the optimiser's start for it."""
+    worst: dict[str, tuple[float, dict[str, float], Point]] = {}
     for corner in _corners(problem, point.values, parts):
         p = sequence_point(model, corner, point.duty, point.located)
         if np.max(np.abs(p.out["equations"])) > STEADY:
@@ -498,11 +499,12 @@ def _worst_corners(problem, model, point: Point, parts: list[str]) -> list[dict[
         for row in margins(problem, model, p):
             if row["relative_margin"] < min(-FEASIBLE, worst.get(row["name"], (0.0,))[0]):
                 multipliers = {n: corner[n] / point.values[n] for n in parts}
-                worst[row["name"]] = (row["relative_margin"], multipliers)
+                worst[row["name"]] = (row["relative_margin"], multipliers, p)
     out: list[dict[str, float]] = []
-    for _, corner in worst.values():
+    for _, corner, p in worst.values():
         if corner not in out:
             out.append(corner)
+            point.corner_guess.setdefault(_corner_key(corner), (p.duty, p.located))
     return out
 
 
