@@ -64,6 +64,9 @@ FEASIBLE = 1e-6
 #: -7e14 /s, 30 squarings and more) carry errors near 1e-10 (squaring E - I; 1e-8 when
 #: E itself was squared), amplified by the fixed point
 STEADY = 1e-5
+#: Newton on the sequence's equations: residual tolerance (relative) and most steps
+NEWTON_TOL = 1e-7
+NEWTON_STEPS = 15
 #: the duty may move by this factor within one exchange round
 DUTY_ROOM = 1.25
 
@@ -85,36 +88,49 @@ def sequence_point(
     model: SequenceModel, values: dict[str, float], duty: float, located: np.ndarray
 ) -> Point:
     """Solve the sequence's equations (located times, duty) at fixed part values by
-    Newton's method from the given guess, and evaluate the model there."""
+    Newton's method from the given guess, and evaluate the model there.
+
+    The equations are scaled to ~1 and carry ~1e-10 of rounding (stiff exponentials; the
+    voltage margins ~1e-8 V): Newton stops when every one holds to :data:`NEWTON_TOL`
+    (2-4 steps from a nearby point), when its step is below 1e-13, or after
+    :data:`NEWTON_STEPS` steps. One function gives the model's outputs and the equations'
+    Jacobian together, so the last Newton evaluation is the point's evaluation.
+    """
     import casadi as ca
 
-    rf = getattr(model, "_rootfinder", None)
-    if rf is None:
+    newton = getattr(model, "_newton", None)
+    if newton is None:
         z = ca.MX.sym("z", 1 + len(model.located))
         p = ca.MX.sym("p", len(model.parts))
-        eq = model.function(p, z[0], z[1:])[0]
-        g = ca.Function("g", [z, p], [eq])
-        # the equations are scaled to ~1 and carry ~1e-10 of rounding (stiff exponentials;
-        # the voltage margins ~1e-8 V): Newton stops at 1e-7, in 2-4 steps from a nearby
-        # point, or when its step is below 1e-13 of the period
-        rf = ca.rootfinder(
-            "steady",
-            "newton",
-            g,
-            {"abstol": 1e-7, "abstolStep": 1e-13, "max_iter": 15, "error_on_fail": False},
-        )
-        model._rootfinder = rf  # type: ignore[attr-defined]
+        out = model.function(p, z[0], z[1:])
+        newton = ca.Function("newton", [p, z], [*out, ca.jacobian(out[0], z)])
+        model._newton = newton  # type: ignore[attr-defined]
     p = np.array([values[n] for n in model.parts])
-    z = np.array(rf(np.concatenate([[duty], located]), p)).ravel()
-    return _point(model, values, float(z[0]), z[1:])
+    z = np.concatenate([[duty], np.asarray(located, dtype=float).ravel()])
+    last = False
+    for step_count in range(NEWTON_STEPS + 1):
+        *res, jacobian = newton(p, z)
+        eq = np.array(res[0]).ravel()
+        if last or step_count == NEWTON_STEPS or np.max(np.abs(eq)) <= NEWTON_TOL:
+            break
+        try:
+            step = np.linalg.solve(np.array(jacobian), eq)
+        except np.linalg.LinAlgError:
+            break
+        z = z - step
+        last = bool(np.max(np.abs(step)) <= 1e-13)
+    return _as_point(values, float(z[0]), z[1:], res)
 
 
 def _point(model: SequenceModel, values, duty, located) -> Point:
     p = np.array([values[n] for n in model.parts])
-    res = model.function(p, duty, located)
+    return _as_point(values, duty, located, model.function(p, duty, located))
+
+
+def _as_point(values, duty, located, res) -> Point:
     names = ["equations", "rows", "quantities", "states", "times"]
     return Point(dict(values), float(duty), np.asarray(located, dtype=float).ravel(),
-                 {k: np.array(v) for k, v in zip(names, res, strict=True)})  # fmt: skip
+                 {k: np.array(v) for k, v in zip(names, res, strict=False)})  # fmt: skip
 
 
 def _objective(problem: SwitchedProblem, model: SequenceModel, values, quantities, scale):
@@ -516,9 +532,19 @@ def _corners(problem, values: dict[str, float], parts: list[str]):
         yield corner
 
 
+def _corner_point(model: SequenceModel, values: dict[str, float], start: Point) -> Point:
+    """:func:`sequence_point` at a tolerance corner of ``start``, remembered: the verification
+    revisits the corners the snapping already solved for the chosen values."""
+    memo = model.__dict__.setdefault("_corner_points", {})
+    key = (tuple(values[n] for n in model.parts), start.duty, start.located.tobytes())
+    if key not in memo:
+        memo[key] = sequence_point(model, values, start.duty, start.located)
+    return memo[key]
+
+
 def _passes_corners(problem, model, candidate: Point, parts: list[str]) -> bool:
     for corner in _corners(problem, candidate.values, parts):
-        p = sequence_point(model, corner, candidate.duty, candidate.located)
+        p = _corner_point(model, corner, candidate)
         if not _feasible(margins(problem, model, p)):
             return False
     return True
@@ -574,7 +600,7 @@ def _verify(problem, exchange: _Exchange, model, chosen: Point, say, parts=None)
         toleranced = parts if parts is not None else _corner_parts(problem, model, chosen)
     corners = 0
     for values in _corners(problem, chosen.values, toleranced):
-        point = sequence_point(model, values, chosen.duty, chosen.located)
+        point = _corner_point(model, values, chosen)
         if np.max(np.abs(point.out["equations"])) > STEADY:
             notes.append(f"no steady state on the sequence at corner {values}")
             continue
