@@ -222,6 +222,26 @@ def test_snubber_energy_per_period(case):
     assert energy < rule
 
 
+def test_newton_reaches_its_tolerance_at_every_tolerance_corner(case):
+    # The sequence's equations are scaled to ~1; with the squarings on exp(X) - I their
+    # rounding is ~1e-10, so Newton must reach NEWTON_TOL (1e-7) at every corner of the
+    # parts that move the ring most, each from the nominal point's duty and event times.
+    # (With exp(X) squared it stalled near 1e-5 there and ran all its steps.) The
+    # steady state it finds is the engine's: the numeric closed loop, one period later,
+    # is back at the same state to 1e-6 of its scale (modal engine, see the module doc).
+    problem, model, point = case
+    for sign_l in (-1, 1):
+        for sign_c in (-1, 1):
+            values = dict(point.values)
+            values["Lloop"] *= 1 + sign_l * problem.tolerances["Lloop"]
+            values["Coss"] *= 1 + sign_c * problem.tolerances["Coss"]
+            corner = S.sequence_point(model, values, point.duty, point.located)
+            assert np.max(np.abs(corner.out["equations"])) <= S.NEWTON_TOL
+            x0 = corner.out["states"][: model.n_states, 0]
+            _, _, engine = _engine_states(problem, values, x0, corner.duty, [])
+            assert np.max(np.abs(engine.x - x0)) <= 1e-6 * np.max(np.abs(x0))
+
+
 def test_gradients_against_central_differences(case):
     # (1) the sequence function's derivatives with respect to ln(Rsnub), ln(Csnub) at fixed
     # duty and event times (AD through the Taylor exponentials, the doublings and the
