@@ -71,7 +71,10 @@ def expm(X: Any, squarings: int, order: int = ORDER) -> Any:
     """
     import casadi
 
-    return casadi.DM.eye(X.shape[0]) + expm_minus_identity(X, squarings, order)
+    T = _taylor(X / (2.0**squarings), order, with_identity=True)
+    for _ in range(squarings):
+        T = casadi.mtimes(T, T)
+    return T
 
 
 def expm_minus_identity(X: Any, squarings: int, order: int = ORDER) -> Any:
@@ -84,36 +87,44 @@ def expm_minus_identity(X: Any, squarings: int, order: int = ORDER) -> Any:
     most of their digits and 30 squarings amplify that; stored as ``W`` they keep full
     relative precision (the idea of ``expm1`` for scalars; Higham, Functions of
     Matrices, SIAM 2008, sec. 10.3 on the rounding of the squaring phase). The
-    polynomial is unchanged, so is the truncation bound.
+    polynomial is unchanged, so is the truncation bound. The switched sequence model
+    uses it; the linear tuning keeps :func:`expm` (its optima were checked with it).
     """
     import casadi
 
-    n = X.shape[0]
-    Y = X / (2.0**squarings)
+    W = _taylor(X / (2.0**squarings), order, with_identity=False)
+    for _ in range(squarings):
+        W = 2 * W + casadi.mtimes(W, W)
+    return W
+
+
+def _taylor(Y: Any, order: int, *, with_identity: bool) -> Any:
+    """The Taylor polynomial of degree ``order`` of ``exp(Y)`` by Paterson-Stockmeyer
+    (see :func:`expm`); without its constant term ``I`` unless ``with_identity``."""
+    import casadi
+
     coefficients = [1.0 / math.factorial(k) for k in range(order + 1)]
     chunk = max(1, math.ceil(math.sqrt(order)))
-    powers = [casadi.DM.eye(n), Y]
+    powers = [casadi.DM.eye(Y.shape[0]), Y]
     for _ in range(2, chunk + 1):
         powers.append(casadi.mtimes(powers[-1], Y))
     top = powers[chunk]
+    first = 0 if with_identity else 1
 
     def block(j: int) -> Any:
-        # sum_{i < chunk} c[j chunk + i] Y**i: the j-th coefficient of the polynomial in
-        # Y**c; the constant term c[0] I is left out (W = T - I)
+        # sum_{i < chunk} c[j chunk + i] Y**i: the j-th coefficient of the polynomial in Y**c
         terms = [
             coefficients[j * chunk + i] * powers[i]
             for i in range(chunk)
-            if 0 < j * chunk + i <= order
+            if first <= j * chunk + i <= order
         ]
         return sum(terms[1:], terms[0]) if terms else 0 * Y
 
     last = order // chunk
-    W = block(last)
+    T = block(last)
     for j in range(last - 1, -1, -1):
-        W = block(j) + casadi.mtimes(top, W)
-    for _ in range(squarings):
-        W = 2 * W + casadi.mtimes(W, W)
-    return W
+        T = block(j) + casadi.mtimes(top, T)
+    return T
 
 
 def zoh(A: Any, B: Any, dt: float, squarings: int, order: int = ORDER) -> tuple[Any, Any]:

@@ -13,7 +13,8 @@ and a sampled PI with integral action driving the modulator holds its measuremen
 reference at every carrier start - one more equation, whose unknown is the duty.
 
 Every matrix comes from :meth:`~wirestate.switching.SwitchedCircuit.symbolic_mode` (the one
-stamping and elimination path), every exponential from :func:`wirestate.tune.expm.expm`.
+stamping and elimination path), every exponential from
+:func:`wirestate.tune.expm.expm_minus_identity` (squarings on ``exp(X) - I``).
 Energies are exact integrals of quadratic forms of the state, ``int_0^tau z z^T dt``, by
 Van Loan's block exponential ("Computing integrals involving the matrix exponential", IEEE
 Trans. Automatic Control 23(3), 1978) on a step ``h = tau / 2^s`` small enough for the
@@ -32,7 +33,7 @@ import numpy as np
 
 from wirestate.spec.tuning import Limit
 from wirestate.switching import SwitchedCircuit
-from wirestate.tune.expm import THETA, expm, expm_minus_identity, squarings_for_norm
+from wirestate.tune.expm import THETA, expm_minus_identity, squarings_for_norm
 
 __all__ = ["Boundary", "PeriodSequence", "SequenceModel", "build_sequence_model"]
 
@@ -208,7 +209,7 @@ class _Builder:
         ca = self.ca
         Z = self.modes[k][0]
         s = squarings_for_norm(max(self.norms[k], 1.0 / self.T) * bound / count, THETA)
-        step = expm(Z * (length / count), s)
+        step = ca.DM.eye(self.n + 1) + expm_minus_identity(Z * (length / count), s)
         out = [z0]
         for _ in range(count):
             out.append(ca.mtimes(step, out[-1]))
