@@ -130,7 +130,7 @@ def _point(model: SequenceModel, values, duty, located) -> Point:
 def _as_point(values, duty, located, res) -> Point:
     names = ["equations", "rows", "quantities", "states", "times"]
     return Point(dict(values), float(duty), np.asarray(located, dtype=float).ravel(),
-                 {k: np.array(v) for k, v in zip(names, res, strict=False)})  # fmt: skip
+                 {k: np.array(v) for k, v in zip(names, res, strict=True)})  # fmt: skip
 
 
 def _objective(problem: SwitchedProblem, model: SequenceModel, values, quantities, scale):
