@@ -127,3 +127,29 @@ def test_paterson_stockmeyer_evaluates_the_taylor_polynomial(order):
     got = np.array(casadi.evalf(cexpm.expm(casadi.DM(M), 0, order)))
     ref = sum(np.linalg.matrix_power(M, k) / math.factorial(k) for k in range(order + 1))
     assert np.abs(got - ref).max() <= 1e-14 * np.abs(ref).max()
+
+
+@pytest.mark.parametrize("on", [(False, False), (True, False)])
+def test_stiff_mode_exponential_against_50_digit_arithmetic(on):
+    # reference: mpmath's matrix exponential at 50 digits. The snubbed buck's modes with a
+    # diode or switch off (10 Mohm against 20 nH: a rate near -5e14 /s beside rates near
+    # 1e4 /s) need 32 squarings over 2.6 us; squaring W = E - I keeps the slow rates'
+    # digits (2e-11 and 4e-11 measured; squaring E itself, as expm does, gave 2.6e-8 and
+    # 7e-8).
+    # Tolerance 1e-9 relative: the project's figure for matrix exponentials.
+    import mpmath
+
+    from tests.reference.test_switched_physics import snubbed_buck
+
+    mode = snubbed_buck().mode(on)
+    n = mode.A.shape[0]
+    M = np.zeros((n + 1, n + 1))
+    M[:n, :n], M[:n, n] = mode.A, mode.B @ np.array([48.0, 1.0]) + mode.f
+    M *= 2.6e-6
+    s = cexpm.squarings_for_norm(np.abs(M).sum(axis=0).max())
+    assert s >= 30
+    got = np.eye(n + 1) + np.array(casadi.evalf(cexpm.expm_minus_identity(casadi.DM(M), s)))
+    with mpmath.workdps(50):
+        E = mpmath.expm(mpmath.matrix(M.tolist()))
+        ref = np.array([[float(E[i, j]) for j in range(n + 1)] for i in range(n + 1)])
+    assert np.abs(got - ref).max() <= 1e-9 * np.abs(ref).max()

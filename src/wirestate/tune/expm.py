@@ -71,29 +71,59 @@ def expm(X: Any, squarings: int, order: int = ORDER) -> Any:
     """
     import casadi
 
-    n = X.shape[0]
-    identity = casadi.DM.eye(n)
-    Y = X / (2.0**squarings)
+    T = _taylor(X / (2.0**squarings), order, with_identity=True)
+    for _ in range(squarings):
+        T = casadi.mtimes(T, T)
+    return T
+
+
+def expm_minus_identity(X: Any, squarings: int, order: int = ORDER) -> Any:
+    """``exp(X) - I`` of a square CasADi matrix, by the same polynomial as :func:`expm`.
+
+    The squarings run on ``W = E - I`` as ``W <- 2 W + W W`` (since ``(I + W)**2 =
+    I + 2 W + W**2``), the same one product per squaring. Stored as ``E``, a step whose
+    norm is set by a stiff mode (rates near -7e14 /s beside rates near 1e4 /s) holds the
+    slow rates as differences from 1 at the 1e-10 level, so every squaring rounds away
+    most of their digits and 30 squarings amplify that; stored as ``W`` they keep full
+    relative precision (the idea of ``expm1`` for scalars; Higham, Functions of
+    Matrices, SIAM 2008, sec. 10.3 on the rounding of the squaring phase). The
+    polynomial is unchanged, so is the truncation bound. The switched sequence model
+    uses it; the linear tuning keeps :func:`expm` (its optima were checked with it).
+    """
+    import casadi
+
+    W = _taylor(X / (2.0**squarings), order, with_identity=False)
+    for _ in range(squarings):
+        W = 2 * W + casadi.mtimes(W, W)
+    return W
+
+
+def _taylor(Y: Any, order: int, *, with_identity: bool) -> Any:
+    """The Taylor polynomial of degree ``order`` of ``exp(Y)`` by Paterson-Stockmeyer
+    (see :func:`expm`); without its constant term ``I`` unless ``with_identity``."""
+    import casadi
+
     coefficients = [1.0 / math.factorial(k) for k in range(order + 1)]
     chunk = max(1, math.ceil(math.sqrt(order)))
-    powers = [identity, Y]
+    powers = [casadi.DM.eye(Y.shape[0]), Y]
     for _ in range(2, chunk + 1):
         powers.append(casadi.mtimes(powers[-1], Y))
     top = powers[chunk]
+    first = 0 if with_identity else 1
 
     def block(j: int) -> Any:
         # sum_{i < chunk} c[j chunk + i] Y**i: the j-th coefficient of the polynomial in Y**c
         terms = [
-            coefficients[j * chunk + i] * powers[i] for i in range(chunk) if j * chunk + i <= order
+            coefficients[j * chunk + i] * powers[i]
+            for i in range(chunk)
+            if first <= j * chunk + i <= order
         ]
-        return sum(terms[1:], terms[0])
+        return sum(terms[1:], terms[0]) if terms else 0 * Y
 
     last = order // chunk
     T = block(last)
     for j in range(last - 1, -1, -1):
         T = block(j) + casadi.mtimes(top, T)
-    for _ in range(squarings):
-        T = casadi.mtimes(T, T)
     return T
 
 
