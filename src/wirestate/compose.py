@@ -98,7 +98,8 @@ class BlockView:
         or discrete for a sampled block; a controller with output limits unsaturated (the
         numbers :attr:`system` holds, without building it)."""
         # a system given to the view (a switched block's mode) wins over its source
-        src = self.__dict__.get("_system") or self.source
+        given = self.__dict__.get("_system")
+        src = self.source if given is None else given
         if isinstance(src, PIDController):
             matrices = src.matrices()
         elif isinstance(src, CircuitBlock | LinearBlock) or _is_state_space(src):
