@@ -411,9 +411,9 @@ def compose(
     Parameters
     ----------
     blocks
-        Blocks (``CircuitBlock``, ``control.StateSpace``, :class:`PIDController`,
-        :class:`Modulator`, :class:`NonlinearBlock`) in a list (named by their own names)
-        or a mapping by name.
+        Blocks (``CircuitBlock``, ``LinearBlock``, ``control.StateSpace``,
+        :class:`PIDController`, :class:`Modulator`, :class:`NonlinearBlock`) in a list
+        (named by their own names) or a mapping by name.
     wiring
         ``{"block.input": "block.output"}`` or ``[(destination, source), ...]``.
     inputs
