@@ -10,7 +10,10 @@ signals.
 The continuous linear blocks are joined with ``control.interconnect`` (python-control);
 sampled controllers, limited continuous controllers and user nonlinear blocks stay
 separate and are run by :mod:`wirestate.simulate`. Composed state names are
-``block.state``.
+``block.state``. python-control (about a second to import) is imported only when a
+``control.StateSpace`` is needed: building, checking and composing a system file, and
+reading its blocks' matrices (:meth:`BlockView.matrices`, what the tuning loop uses), do
+without it.
 """
 
 from __future__ import annotations
@@ -18,25 +21,52 @@ from __future__ import annotations
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import control
 import numpy as np
 
 from wirestate.blocks import Modulator, NonlinearBlock, PIDController
 from wirestate.blocks import controllers as _controllers
 from wirestate.blocks import mechanical as _mechanical
 from wirestate.errors import CompositionError, WirestateError
-from wirestate.lti import CircuitBlock, load_state_space_block, named_state_space
+from wirestate.lti import CircuitBlock, LinearBlock, load_state_space_block, named_state_space
 from wirestate.reduce import compile_circuit
 from wirestate.spec import load_circuit
 from wirestate.spec.system import SystemSpec, load_system_spec
 from wirestate.switching import switched_circuit
 
+if TYPE_CHECKING:  # python-control costs about a second to import: only where it is used
+    import control
+
 LINEAR, SAMPLED, NONLINEAR = "linear", "sampled", "nonlinear"
 #: a circuit with switches or diodes, and a pulse-width modulator (issue 12): run by
 #: :mod:`wirestate.simulate.switched_system`
 SWITCHED, MODULATOR = "switched", "modulator"
+
+
+class _StateSpaceOnDemand:
+    """``BlockView.system``: as given, or built from the view's source on first read
+    (python-control costs about a second to import, and reading matrices does without
+    it). A descriptor-typed dataclass field, so ``dataclasses.replace(view, system=...)``
+    still works."""
+
+    def __set_name__(self, owner: type, name: str) -> None:
+        self.slot = f"_{name}"
+
+    def __get__(self, view: Any, owner: type | None = None) -> Any:
+        if view is None:
+            return None  # the field's default
+        found = view.__dict__.get(self.slot)
+        if found is None and view.category in (LINEAR, SWITCHED):
+            found = view.__dict__[self.slot] = _state_space_of(view.source)
+        return found
+
+    def __set__(self, view: Any, value: Any) -> None:
+        view.__dict__[self.slot] = value
+
+
+def _state_space_of(source: Any) -> control.StateSpace:
+    return source if _is_state_space(source) else source.state_space()
 
 
 @dataclass
@@ -47,6 +77,8 @@ class BlockView:
     ``"sampled"`` (runs at ``sample_time``), ``"nonlinear"`` (continuous, CasADi
     right-hand side), ``"switched"`` (a circuit with switches or diodes; ``system`` is its
     mode with every device off) or ``"modulator"`` (a :class:`~wirestate.blocks.Modulator`).
+    ``system`` is built from ``source`` on first read unless given; :meth:`matrices` reads
+    the same numbers without python-control.
     """
 
     name: str
@@ -57,21 +89,42 @@ class BlockView:
     units: dict[str, str]
     x0: np.ndarray
     source: Any
-    system: control.StateSpace | None = None
+    system: control.StateSpace | None = _StateSpaceOnDemand()
     input_defaults: dict[str, float] = field(default_factory=dict)
     sample_time: float | None = None
+
+    def matrices(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """``(A, B, C, D)`` shaped by the block's states, inputs and outputs: continuous,
+        or discrete for a sampled block; a controller with output limits unsaturated (the
+        numbers :attr:`system` holds, without building it)."""
+        # a system given to the view (a switched block's mode) wins over its source
+        given = self.__dict__.get("_system")
+        src = self.source if given is None else given
+        if isinstance(src, PIDController):
+            matrices = src.matrices()
+        elif isinstance(src, CircuitBlock | LinearBlock) or _is_state_space(src):
+            matrices = (src.A, src.B, src.C, src.D)
+        else:
+            raise CompositionError(
+                "unknown_kind",
+                f"block {self.name!r} ({type(src).__name__}) has no state-space matrices",
+                location=("blocks", self.name),
+            )
+        n, m, p = len(self.states), len(self.inputs), len(self.outputs)
+        shapes = ((n, n), (n, m), (p, n), (p, m))
+        return tuple(_shaped(M, *shape) for M, shape in zip(matrices, shapes, strict=True))
 
     def feedthrough(self) -> set[tuple[str, str]]:
         """Pairs ``(input, output)`` with a direct path (no state in between)."""
         if self.category in (LINEAR, SWITCHED):
-            D = np.asarray(self.system.D)
+            D = self.matrices()[3]
             return {
                 (self.inputs[j], self.outputs[i])
                 for i in range(D.shape[0])
                 for j in range(D.shape[1])
                 if D[i, j] != 0.0
             }
-        if isinstance(self.source, control.StateSpace):
+        if _is_state_space(self.source):
             direct = bool(np.any(np.asarray(self.source.D) != 0.0))
         else:
             direct = self.source.has_feedthrough
@@ -90,17 +143,30 @@ class BlockView:
         return C @ x + D @ u, A @ x + B @ u
 
 
+def _is_state_space(block: Any) -> bool:
+    import sys
+
+    # without python-control imported, nothing can be a control.StateSpace
+    control = sys.modules.get("control")
+    return control is not None and isinstance(block, control.StateSpace)
+
+
 def view(block: Any, name: str | None = None) -> BlockView:
-    """Classify a block (CircuitBlock, control.StateSpace, PIDController, NonlinearBlock)."""
+    """Classify a block (CircuitBlock, LinearBlock, control.StateSpace, PIDController,
+    Modulator, NonlinearBlock)."""
     if isinstance(block, BlockView):
         return block
     if isinstance(block, CircuitBlock):
-        sys = block.state_space()
         category = LINEAR if switched_circuit(block) is None else SWITCHED
         return BlockView(
             name or block.name, category, list(block.inputs), list(block.outputs),
             list(block.states), dict(block.units), np.array(block.x0, dtype=float), block,
-            sys, dict(block.input_defaults),
+            input_defaults=dict(block.input_defaults),
+        )  # fmt: skip
+    if isinstance(block, LinearBlock):
+        return BlockView(
+            name or block.name, LINEAR, list(block.inputs), list(block.outputs),
+            list(block.states), dict(block.units), np.zeros(len(block.states)), block,
         )  # fmt: skip
     if isinstance(block, Modulator):
         return BlockView(
@@ -120,17 +186,16 @@ def view(block: Any, name: str | None = None) -> BlockView:
                 name or block.name, NONLINEAR, list(block.inputs), list(block.outputs),
                 block.states, units, x0, block,
             )  # fmt: skip
-        sys = block.state_space()
         return BlockView(
             name or block.name, LINEAR, list(block.inputs), list(block.outputs),
-            block.states, units, x0, block, sys,
+            block.states, units, x0, block,
         )  # fmt: skip
     if isinstance(block, NonlinearBlock):
         return BlockView(
             name or block.name, NONLINEAR, list(block.inputs), list(block.outputs),
             list(block.states), dict(block.units), block.initial_state(), block,
         )  # fmt: skip
-    if isinstance(block, control.StateSpace):
+    if _is_state_space(block):
         units = dict(getattr(block, "units", {}) or {})
         x0 = np.zeros(block.nstates)
         common = (
@@ -139,11 +204,11 @@ def view(block: Any, name: str | None = None) -> BlockView:
         )  # fmt: skip
         if block.isdtime(strict=True):
             return BlockView(common[0], SAMPLED, *common[1:], sample_time=float(block.dt))
-        return BlockView(common[0], LINEAR, *common[1:], system=block)
+        return BlockView(common[0], LINEAR, *common[1:])
     raise CompositionError(
         "unknown_kind",
         f"cannot use a {type(block).__name__} as a block; expected a CircuitBlock, "
-        "control.StateSpace, PIDController, Modulator or NonlinearBlock",
+        "LinearBlock, control.StateSpace, PIDController, Modulator or NonlinearBlock",
         location=("blocks", name or "?"),
     )
 
@@ -273,6 +338,8 @@ class LinearPart:
 
 
 def _linear_part(cs: ComposedSystem) -> LinearPart:
+    import control
+
     linear = [b for b in cs.blocks.values() if b.category == LINEAR]
     states = [f"{b.name}.{s}" for b in linear for s in b.states]
     names = {b.name for b in linear}
@@ -344,9 +411,9 @@ def compose(
     Parameters
     ----------
     blocks
-        Blocks (``CircuitBlock``, ``control.StateSpace``, :class:`PIDController`,
-        :class:`Modulator`, :class:`NonlinearBlock`) in a list (named by their own names)
-        or a mapping by name.
+        Blocks (``CircuitBlock``, ``LinearBlock``, ``control.StateSpace``,
+        :class:`PIDController`, :class:`Modulator`, :class:`NonlinearBlock`) in a list
+        (named by their own names) or a mapping by name.
     wiring
         ``{"block.input": "block.output"}`` or ``[(destination, source), ...]``.
     inputs
@@ -585,7 +652,11 @@ def find_cycle(edges: Mapping[str, list[str]]) -> list[str] | None:
 
 
 def build_block(name: str, spec: Any, base: Path | None = None) -> Any:
-    """Build one block from its validated system-file table."""
+    """Build one block from its validated system-file table.
+
+    Linear blocks come as :class:`~wirestate.lti.LinearBlock` (named matrices; their
+    ``control.StateSpace`` is the view's :attr:`BlockView.system`), so that a system file
+    is built without importing python-control."""
     kind = spec.kind
     if kind == "circuit":
         block = compile_circuit(block_circuit(name, spec, base)[0])
@@ -597,16 +668,18 @@ def build_block(name: str, spec: Any, base: Path | None = None) -> Any:
         block.name = name
         return block
     if kind == "rotary_inertia":
-        return _mechanical.rotary_inertia(name, spec.inertia, spec.friction)
+        return _mechanical.rotary_inertia(name, spec.inertia, spec.friction, as_state_space=False)
     if kind == "gear":
-        return _mechanical.gear(name, spec.ratio)
+        return _mechanical.gear(name, spec.ratio, as_state_space=False)
     if kind == "torsional_shaft":
         return _mechanical.torsional_shaft(
             name, spec.inertia_drive, spec.inertia_load, spec.stiffness, spec.damping,
-            spec.friction_drive, spec.friction_load,
+            spec.friction_drive, spec.friction_load, as_state_space=False,
         )  # fmt: skip
     if kind == "mass_spring_damper":
-        return _mechanical.mass_spring_damper(name, spec.mass, spec.stiffness, spec.damping)
+        return _mechanical.mass_spring_damper(
+            name, spec.mass, spec.stiffness, spec.damping, as_state_space=False
+        )
     if kind in ("pi", "pid"):
         return PIDController(
             name=name,
@@ -623,17 +696,20 @@ def build_block(name: str, spec: Any, base: Path | None = None) -> Any:
         )
     if kind == "state_feedback":
         return _controllers.state_feedback(
-            name, np.array([spec.gain]), list(spec.measured), reference_gain=spec.reference_gain
-        )
+            name, np.array([spec.gain]), list(spec.measured),
+            reference_gain=spec.reference_gain, as_state_space=False,
+        )  # fmt: skip
     if kind == "gain":
-        return _controllers.static_gain(name, spec.gain, spec.unit)
+        return _controllers.static_gain(name, spec.gain, spec.unit, as_state_space=False)
     if kind == "modulator":
         return Modulator(
             name, spec.frequency, spec.carrier, spec.dead_time, spec.complementary,
             spec.phase / 360.0,
         )  # fmt: skip
     if kind == "sensor_filter":
-        return _controllers.sensor_filter(name, spec.time_constant, spec.gain, spec.unit)
+        return _controllers.sensor_filter(
+            name, spec.time_constant, spec.gain, spec.unit, as_state_space=False
+        )
     raise CompositionError(
         "unknown_kind", f"unknown block kind {kind!r}", location=("blocks", name)
     )  # pragma: no cover

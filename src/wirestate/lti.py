@@ -173,6 +173,57 @@ def named_state_space(
     return sys
 
 
+@dataclass
+class LinearBlock:
+    """A continuous LTI block given by its matrices and signal names, without python-control.
+
+    The mechanical, controller and sensor blocks of a system file are built in this form
+    (python-control takes about a second to import, and the tuning loop only reads the
+    matrices); :meth:`state_space` gives the named ``control.StateSpace`` a Python user
+    gets from the block functions.
+
+    Attributes
+    ----------
+    name
+        Block name.
+    A, B, C, D
+        Dense matrices in SI base units, shaped by the signal names (empty ones included).
+    inputs, outputs, states
+        Signal names.
+    units
+        Unit of every signal and state name.
+    """
+
+    name: str
+    A: np.ndarray
+    B: np.ndarray
+    C: np.ndarray
+    D: np.ndarray
+    inputs: list[str]
+    outputs: list[str]
+    states: list[str]
+    units: dict[str, str] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        n, m, p = len(self.states), len(self.inputs), len(self.outputs)
+        self.A = np.asarray(self.A, dtype=float).reshape(n, n)
+        self.B = np.asarray(self.B, dtype=float).reshape(n, m)
+        self.C = np.asarray(self.C, dtype=float).reshape(p, n)
+        self.D = np.asarray(self.D, dtype=float).reshape(p, m)
+
+    def state_space(self) -> control.StateSpace:
+        """The block as a named continuous ``control.StateSpace`` carrying ``units``."""
+        import control
+
+        # dt = 0 given: python-control would leave a static gain's time base "any"
+        sys = control.ss(
+            self.A, self.B, self.C, self.D, 0, name=self.name, inputs=list(self.inputs),
+            outputs=list(self.outputs), states=list(self.states),
+        )  # fmt: skip
+        sys.units = dict(self.units)
+        return sys
+
+
 #: an eigenvalue with |lambda| below this times the norm of A is taken as s = 0 (round-off
 #: of a structural pole at the origin; common practice, no source)
 ZERO_POLE_TOLERANCE = 1e-10

@@ -1,7 +1,8 @@
-"""`wirestate --help` and `wirestate schema` must not import the heavy libraries.
+"""`wirestate --help`, `wirestate schema` and tuning must not import what they do not use.
 
 A behaviour check (which modules get loaded), not a timing: python-control, scipy.signal,
-CasADi and matplotlib take seconds to import and neither command uses them.
+CasADi and matplotlib take seconds to import and neither command uses them; tuning uses
+CasADi but neither python-control nor its plotting.
 """
 
 from __future__ import annotations
@@ -13,7 +14,8 @@ from pathlib import Path
 import pytest
 
 HEAVY = ("control", "casadi", "matplotlib", "scipy.signal")
-BUS_FILTER = str(Path(__file__).resolve().parents[2] / "models" / "drive_bus_filter.toml")
+MODELS = Path(__file__).resolve().parents[2] / "models"
+BUS_FILTER = str(MODELS / "drive_bus_filter.toml")
 
 SCRIPT = """
 import contextlib, io, sys
@@ -43,6 +45,40 @@ def test_inspect_of_a_small_circuit_imports_no_scipy(argv):
     code = SCRIPT.format(argv=argv, heavy=(*HEAVY, "scipy"))
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "", f"{argv} imported {out.stdout.strip()}"
+
+
+@pytest.mark.parametrize("tuning", ["drive_bus_damping.toml", "drive_bus_loop_damping.toml"])
+def test_tuning_imports_no_python_control(tuning):
+    # a circuit's tuning and a system file's tuning (a sampled PI loop and a sensor filter
+    # around the circuit) read the blocks' matrices directly: python-control (about a
+    # second of start-up), scipy.signal and matplotlib are not needed
+    code = SCRIPT.format(
+        argv=["tune", str(MODELS / "tuning" / tuning)],
+        heavy=("control", "matplotlib", "scipy.signal"),
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "", f"tune {tuning} imported {out.stdout.strip()}"
+
+
+def test_a_system_file_builds_without_python_control():
+    # composing a system file and reading its blocks' matrices needs no python-control; a
+    # block's control.StateSpace, when asked for, holds the same numbers
+    code = """
+import sys
+import numpy as np
+from wirestate.compose import load_system
+system = load_system({path!r})
+matrices = {{n: b.matrices() for n, b in system.blocks.items() if n != "current_loop"}}
+print("control" in sys.modules)
+for name, (A, B, C, D) in matrices.items():
+    s = system.blocks[name].system
+    assert all(np.array_equal(np.asarray(x).reshape(y.shape), y) for x, y in zip(
+        (s.A, s.B, s.C, s.D), (A, B, C, D))), name
+print("control" in sys.modules)
+"""
+    code = code.format(path=str(MODELS / "tuning" / "drive_bus_loop.toml"))
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.split() == ["False", "True"]
 
 
 def test_command_help_still_lists_options(capsys):

@@ -37,6 +37,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from wirestate.errors import ModelFileError
+from wirestate.lti import LinearBlock
 
 if TYPE_CHECKING:  # python-control costs about a second to import: only where it is used
     import control
@@ -331,7 +332,8 @@ def state_feedback(
     *,
     reference_gain: float | None = None,
     command: str = "command",
-) -> control.StateSpace:
+    as_state_space: bool = True,
+) -> control.StateSpace | LinearBlock:
     """Static state feedback ``u = -K x`` (plus ``kr r`` when ``reference_gain`` is given).
 
     Parameters
@@ -342,10 +344,13 @@ def state_feedback(
         Input names of the measured states, in the order of ``K``'s columns.
     reference_gain
         Optional feedforward gain ``kr`` on an extra input ``reference``.
+    as_state_space
+        False: the same block as a :class:`~wirestate.lti.LinearBlock` (its named
+        matrices, python-control not imported), as a system file builds it.
 
     Returns
     -------
-    control.StateSpace
+    control.StateSpace or LinearBlock
         Static gain, output ``command``.
     """
     K = np.atleast_2d(np.asarray(gain, dtype=float))
@@ -361,47 +366,48 @@ def state_feedback(
         inputs.append("reference")
         D = np.hstack([D, [[float(reference_gain)]] * K.shape[0]])
     outputs = [command] if K.shape[0] == 1 else [f"{command}{i}" for i in range(K.shape[0])]
-    import control
-
-    sys = control.ss(
-        np.zeros((0, 0)), np.zeros((0, len(inputs))), np.zeros((len(outputs), 0)), D, 0,
-        name=name, inputs=inputs, outputs=outputs,
+    block = LinearBlock(
+        name, np.zeros((0, 0)), np.zeros((0, len(inputs))), np.zeros((len(outputs), 0)), D,
+        inputs, outputs, [],
     )  # fmt: skip
-    sys.units = {}
-    return sys
+    return block.state_space() if as_state_space else block
 
 
 def sensor_filter(
-    name: str, time_constant: float, gain: float = 1.0, unit: str = ""
-) -> control.StateSpace:
+    name: str,
+    time_constant: float,
+    gain: float = 1.0,
+    unit: str = "",
+    *,
+    as_state_space: bool = True,
+) -> control.StateSpace | LinearBlock:
     """First-order measurement filter ``measured = gain / (1 + s tau) * signal``.
 
-    Input ``signal``, output and state ``measured`` (units of ``unit``).
+    Input ``signal``, output and state ``measured`` (units of ``unit``); with
+    ``as_state_space=False`` a :class:`~wirestate.lti.LinearBlock` (as in
+    :func:`state_feedback`).
     """
     tau = float(time_constant)
     if not (math.isfinite(tau) and tau > 0):
         raise _bad(name, "time_constant", f"must be positive, got {time_constant!r}")
-    import control
-
-    sys = control.ss(
-        [[-1.0 / tau]], [[float(gain) / tau]], [[1.0]], [[0.0]],
-        name=name, inputs=["signal"], outputs=["measured"], states=["measured"],
+    block = LinearBlock(
+        name, [[-1.0 / tau]], [[float(gain) / tau]], [[1.0]], [[0.0]], ["signal"], ["measured"],
+        ["measured"], {"signal": unit, "measured": unit},
     )  # fmt: skip
-    sys.units = {"signal": unit, "measured": unit}
-    return sys
+    return block.state_space() if as_state_space else block
 
 
-def static_gain(name: str, gain: float, unit: str = "") -> control.StateSpace:
+def static_gain(
+    name: str, gain: float, unit: str = "", *, as_state_space: bool = True
+) -> control.StateSpace | LinearBlock:
     """A static gain ``output = gain * input`` (no states), e.g. a fixed duty ratio or a
-    sensor scale. Input ``input``, output ``output``."""
+    sensor scale. Input ``input``, output ``output``; with ``as_state_space=False`` a
+    :class:`~wirestate.lti.LinearBlock` (as in :func:`state_feedback`)."""
     k = float(gain)
     if not math.isfinite(k):
         raise _bad(name, "gain", f"must be finite, got {gain!r}")
-    import control
-
-    sys = control.ss(
-        np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), [[k]], 0,
-        name=name, inputs=["input"], outputs=["output"],
+    block = LinearBlock(
+        name, np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), [[k]], ["input"],
+        ["output"], [], {"output": unit},
     )  # fmt: skip
-    sys.units = {"output": unit}
-    return sys
+    return block.state_space() if as_state_space else block

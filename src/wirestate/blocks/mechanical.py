@@ -4,7 +4,9 @@ Sign conventions: a positive drive torque (force) accelerates in the positive di
 a positive load torque (force) opposes it. The equations are Newton's second law for a
 rigid body with linear viscous friction (e.g. Ogata, Modern Control Engineering, 5th ed.,
 sec. 3-3 and 3-4). Every returned system carries a ``units`` attribute mapping its signal
-and state names to units; composition reads it.
+and state names to units; composition reads it. ``as_state_space=False`` gives the same
+block as a :class:`~wirestate.lti.LinearBlock` (its named matrices, python-control not
+imported), the form in which a system file's blocks are built.
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from wirestate.errors import ModelFileError
+from wirestate.lti import LinearBlock
 
 if TYPE_CHECKING:  # python-control costs about a second to import: only where it is used
     import control
@@ -32,26 +35,16 @@ def _positive(name: str, field: str, value: float, *, allow_zero: bool = False) 
     return value
 
 
-def _system(name, A, B, C, D, inputs, outputs, states, units) -> control.StateSpace:
-    import control
-
-    sys = control.ss(
-        np.asarray(A, dtype=float).reshape(len(states), len(states)),
-        np.asarray(B, dtype=float).reshape(len(states), len(inputs)),
-        np.asarray(C, dtype=float).reshape(len(outputs), len(states)),
-        np.asarray(D, dtype=float).reshape(len(outputs), len(inputs)),
-        name=name,
-        inputs=inputs,
-        outputs=outputs,
-        states=states,
-    )
-    if not states:
-        sys.dt = 0  # a static gain is continuous-time (python-control would leave it "any")
-    sys.units = dict(units)
-    return sys
+def _system(
+    name, A, B, C, D, inputs, outputs, states, units, as_state_space
+) -> control.StateSpace | LinearBlock:
+    block = LinearBlock(name, A, B, C, D, list(inputs), list(outputs), list(states), units)
+    return block.state_space() if as_state_space else block
 
 
-def rotary_inertia(name: str, inertia: float, friction: float = 0.0) -> control.StateSpace:
+def rotary_inertia(
+    name: str, inertia: float, friction: float = 0.0, *, as_state_space: bool = True
+) -> control.StateSpace | LinearBlock:
     """Rigid rotor ``J dw/dt = torque - load_torque - b w``, with its angle.
 
     Parameters
@@ -62,10 +55,12 @@ def rotary_inertia(name: str, inertia: float, friction: float = 0.0) -> control.
         ``J`` in kg*m^2 (> 0).
     friction
         Viscous friction ``b`` in N*m*s/rad (>= 0).
+    as_state_space
+        False: a :class:`~wirestate.lti.LinearBlock` instead (see the module docstring).
 
     Returns
     -------
-    control.StateSpace
+    control.StateSpace or LinearBlock
         Inputs ``torque``, ``load_torque`` (N*m); outputs ``speed`` (rad/s), ``angle``
         (rad); states ``speed``, ``angle``.
     """
@@ -76,11 +71,13 @@ def rotary_inertia(name: str, inertia: float, friction: float = 0.0) -> control.
     units = {"torque": "N*m", "load_torque": "N*m", "speed": "rad/s", "angle": "rad"}
     return _system(
         name, A, B, np.eye(2), np.zeros((2, 2)),
-        ["torque", "load_torque"], ["speed", "angle"], ["speed", "angle"], units,
+        ["torque", "load_torque"], ["speed", "angle"], ["speed", "angle"], units, as_state_space,
     )  # fmt: skip
 
 
-def gear(name: str, ratio: float) -> control.StateSpace:
+def gear(
+    name: str, ratio: float, *, as_state_space: bool = True
+) -> control.StateSpace | LinearBlock:
     """Ideal lossless gear with ratio ``n = motor speed / load speed``.
 
     Inputs ``motor_speed`` (rad/s) and ``load_torque`` (N*m, on the load side); outputs
@@ -97,7 +94,7 @@ def gear(name: str, ratio: float) -> control.StateSpace:
     return _system(
         name, np.zeros((0, 0)), np.zeros((0, 2)), np.zeros((2, 0)),
         [[1.0 / n, 0.0], [0.0, 1.0 / n]],
-        ["motor_speed", "load_torque"], ["load_speed", "motor_torque"], [], units,
+        ["motor_speed", "load_torque"], ["load_speed", "motor_torque"], [], units, as_state_space,
     )  # fmt: skip
 
 
@@ -109,7 +106,9 @@ def torsional_shaft(
     damping: float = 0.0,
     friction_drive: float = 0.0,
     friction_load: float = 0.0,
-) -> control.StateSpace:
+    *,
+    as_state_space: bool = True,
+) -> control.StateSpace | LinearBlock:
     """Two inertias joined by a torsional spring and damper (two-mass drive train).
 
     ``J1 dw1/dt = torque - T_s - b1 w1``, ``J2 dw2/dt = T_s - load_torque - b2 w2``,
@@ -126,10 +125,12 @@ def torsional_shaft(
         Shaft damping ``c`` in N*m*s/rad.
     friction_drive, friction_load
         Viscous friction on each side, N*m*s/rad.
+    as_state_space
+        False: a :class:`~wirestate.lti.LinearBlock` instead (see the module docstring).
 
     Returns
     -------
-    control.StateSpace
+    control.StateSpace or LinearBlock
         Inputs ``torque``, ``load_torque``; outputs ``drive_speed``, ``load_speed``,
         ``shaft_torque``; states ``drive_speed``, ``load_speed``, ``twist`` (rad).
     """
@@ -157,13 +158,18 @@ def torsional_shaft(
     return _system(
         name, A, B, C, np.zeros((3, 2)),
         ["torque", "load_torque"], ["drive_speed", "load_speed", "shaft_torque"],
-        ["drive_speed", "load_speed", "twist"], units,
+        ["drive_speed", "load_speed", "twist"], units, as_state_space,
     )  # fmt: skip
 
 
 def mass_spring_damper(
-    name: str, mass: float, stiffness: float = 0.0, damping: float = 0.0
-) -> control.StateSpace:
+    name: str,
+    mass: float,
+    stiffness: float = 0.0,
+    damping: float = 0.0,
+    *,
+    as_state_space: bool = True,
+) -> control.StateSpace | LinearBlock:
     """Translational ``m dv/dt = force - c v - k x``, ``dx/dt = v``.
 
     Parameters
@@ -174,10 +180,12 @@ def mass_spring_damper(
         ``k`` in N/m (0: a free mass).
     damping
         ``c`` in N*s/m.
+    as_state_space
+        False: a :class:`~wirestate.lti.LinearBlock` instead (see the module docstring).
 
     Returns
     -------
-    control.StateSpace
+    control.StateSpace or LinearBlock
         Input ``force`` (N); outputs and states ``position`` (m), ``velocity`` (m/s).
     """
     m = _positive(name, "mass", mass)
@@ -188,5 +196,5 @@ def mass_spring_damper(
     units = {"force": "N", "position": "m", "velocity": "m/s"}
     return _system(
         name, A, B, np.eye(2), np.zeros((2, 1)),
-        ["force"], ["position", "velocity"], ["position", "velocity"], units,
+        ["force"], ["position", "velocity"], ["position", "velocity"], units, as_state_space,
     )  # fmt: skip

@@ -379,26 +379,14 @@ def _block_matrices(b: Any) -> tuple[np.ndarray, ...]:
     controller with output limits unsaturated."""
     from wirestate.blocks import PIDController
 
-    n, m, p = len(b.states), len(b.inputs), len(b.outputs)
-    if b.category == LINEAR:
-        src = b.system
-    elif isinstance(b.source, PIDController):
-        src = b.source.state_space()
-    elif b.category == SAMPLED:
-        src = b.source
-    else:
-        raise SimulationError(
-            "invalid_field",
-            f"block {b.name!r} is a nonlinear block; its steady state is not computed. "
-            "Start from zero or from the parts' initial values and set single states",
-            location=("initial",),
-        )
-    shapes = ((n, n), (n, m), (p, n), (p, m))
-    out = []
-    for matrix, shape in zip((src.A, src.B, src.C, src.D), shapes, strict=True):
-        matrix = np.asarray(matrix, dtype=float)
-        out.append(np.zeros(shape) if matrix.size == 0 else matrix.reshape(shape))
-    return tuple(out)
+    if b.category in (LINEAR, SAMPLED) or isinstance(b.source, PIDController):
+        return b.matrices()
+    raise SimulationError(
+        "invalid_field",
+        f"block {b.name!r} is a nonlinear block; its steady state is not computed. "
+        "Start from zero or from the parts' initial values and set single states",
+        location=("initial",),
+    )
 
 
 def _system_steady_state(system: ComposedSystem, u0: np.ndarray, notes: list[str]) -> np.ndarray:

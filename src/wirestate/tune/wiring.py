@@ -140,16 +140,10 @@ class SystemLoop:
         return from_c, from_s, from_w
 
     def _matrices(self, name: str) -> tuple[Any, Any, Any, Any]:
-        b = self.system.blocks[name]
-        if b.category == LINEAR:
-            s = b.system
-            return s.A, s.B, s.C, s.D
-        if isinstance(b.source, PIDController):
-            # sampled: the discrete matrices; a continuous one with limits (a nonlinear
-            # block for the simulator): its unsaturated continuous dynamics
-            return b.source.matrices()
-        src = b.source
-        return src.A, src.B, src.C, src.D
+        # a sampled controller: the discrete matrices; a continuous one with limits (a
+        # nonlinear block for the simulator): its unsaturated continuous dynamics. Read
+        # without building a control.StateSpace (python-control: a second to import).
+        return self.system.blocks[name].matrices()
 
     @property
     def signals(self) -> list[str]:
