@@ -133,6 +133,11 @@ def tuning_figure(result: Any) -> Any:
         style_axes(ax)
         legend_outside(ax)
     _draw_ledger(fig.add_subplot(grid[:, 1]), limits, rows)
+    return _finish(fig, result, arrows)
+
+
+def _finish(fig: Any, result: Any, arrows: list[tuple]) -> Any:
+    """Title with the preferred values; then, the figure laid out, the margin arrows."""
     names = ", ".join(
         f"{k} = {format_quantity(v['preferred'], v['unit'])}" for k, v in result.variables.items()
     )
@@ -284,7 +289,7 @@ def switched_tuning_figure(result: Any) -> Any:
     if ring is not None:
         lo, hi = ring["window"]
         ax.fill_between(np.array([lo, hi]) / scale, ring["final"] - ring["band"],
-                        ring["final"] + ring["band"], color=PALETTE[2], alpha=0.35,
+                        ring["final"] + ring["band"], color=PALETTE[2], alpha=0.6,
                         linewidth=0, label=f"{ring['name']} band")  # fmt: skip
     if peak is not None:
         ax.plot([peak["time"] / scale], [peak["value"]], marker="o", color=_WORST,
@@ -325,19 +330,8 @@ def switched_tuning_figure(result: Any) -> Any:
                      f"{format_quantity(lo, 's')}", fontsize=10)  # fmt: skip
         style_axes(ax)
         legend_outside(ax)
-    _draw_ledger(fig.add_subplot(grid[:, 1]), limits, [*rows])
-    names = ", ".join(
-        f"{k} = {format_quantity(v['preferred'], v['unit'])}" for k, v in result.variables.items()
-    )
-    fig.suptitle(f"{result.name}: {names}", fontsize=11)
-    fig.canvas.draw()
-    placed: dict[Any, list] = {}
-    renderer = fig.canvas.get_renderer()
-    for ax, labels, job, log in arrows:
-        boxes = placed.setdefault(ax, [])
-        boxes += [label.get_window_extent(renderer) for label in labels]
-        _margin_arrow(ax, *job, boxes, log=log)
-    return fig
+    _draw_ledger(fig.add_subplot(grid[:, 1]), limits, rows)
+    return _finish(fig, result, arrows)
 
 
 def plot_tuning(result: Any, path: str | Path) -> Path:
