@@ -333,3 +333,96 @@ def test_the_tuning_figure_draws_the_tolerance_envelope_when_present():
     assert path[:, 1].max() == pytest.approx(result.responses["corner_high"][0].max(), abs=1e-9)
     assert path[:, 1].min() == pytest.approx(result.responses["corner_low"][0].min(), abs=1e-9)
     assert envelopes(tuning_figure(tuning_result(False))) == []
+
+
+# -- the figure of a tuning over switching transients ------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def switched_result(tmp_path_factory):
+    """The bundled snubber tuning, its tolerance corners verified but not imposed in the
+    optimiser (a few seconds less than the example itself)."""
+    from wirestate.tune import load_tuning
+    from wirestate.tune.switched import solve_switched
+
+    example = MODELS / "tuning" / "aux_buck_snubber.toml"
+    text = example.read_text().replace("robust = true", "robust = false")
+    text = text.replace('system = "../systems/', f'system = "{MODELS}/systems/')
+    path = tmp_path_factory.mktemp("switched") / "snubber.toml"
+    path.write_text(text)
+    return solve_switched(load_tuning(path), "E24")
+
+
+def style_margin(value: float) -> str:
+    from wirestate.units import format_quantity
+
+    return format_quantity(value, "V", 3)
+
+
+def test_the_switched_tuning_figure_draws_the_edge_window_band_and_the_reports_peak(
+    switched_result,
+):
+    result = switched_result
+    fig = tuning_figure(result)
+    texts = all_texts(fig)
+    # the peak window's bound and the ring band's two edges, named on the figure
+    assert "switch_peak (window 200 ns) ≤ 60 V" in texts
+    assert any(t.startswith("ring_settled ≤ ") for t in texts)
+    assert any(t.startswith("ring_settled ≥ ") for t in texts)
+    # a margin arrow on the peak and one on the ring band, labelled with the report's margin
+    arrows = [t.get_text() for ax in fig.axes for t in ax.texts
+              if t.get_text().startswith("margin ")]  # fmt: skip
+    shown = {r["name"]: f"margin {style_margin(r['margin'])}" for r in result.limits}
+    assert sorted(arrows) == sorted([shown["switch_peak"], shown["ring_settled"]])
+    # time in µs over the period, in ns around the turn-off; one quantity per axis
+    labels = [(ax.get_xlabel(), ax.get_ylabel()) for ax in fig.axes]
+    assert ("time from the carrier start (µs)", "voltage v_Q1 (V)") in labels
+    assert labels.count(("time after the Q1 turn-off (ns)", "voltage v_Q1 (V)")) == 2
+    # the turn-off edge marked, the ring band and the corner envelope drawn
+    legends = [t.get_text() for ax in fig.axes if ax.get_legend()
+               for t in ax.get_legend().get_texts()]  # fmt: skip
+    assert "Q1 turn-off" in legends and "ring_settled band" in legends
+    envelope = [c for ax in fig.axes for c in ax.collections
+                if c.get_label().startswith("tolerance corners (envelope")]  # fmt: skip
+    assert len(envelope) == 1 and result.corners_checked == 16
+    assert f"tolerance corners (envelope, {result.corners_checked})" in legends
+    # the peak marked is the report's value (the same window samples: rounding only)
+    marker = next(line for ax in fig.axes for line in ax.lines if line.get_gid() == "peak")
+    report = next(r for r in result.limits if r["name"] == "switch_peak")
+    assert float(marker.get_ydata()[0]) == pytest.approx(report["value"], rel=1e-9)
+    # the envelope holds the preferred values' samples (the corners' band includes them)
+    data = result.responses["switched"]()
+    times, rows = data["peak"]["samples"]
+    assert np.all(data["corner_low"] <= rows) and np.all(rows <= data["corner_high"])
+    # the margin ledger lists every limit, as for the linear tuning
+    ledger = next(ax for ax in fig.axes if ax.get_title().startswith("margins"))
+    ticks = sorted(ledger.get_yticklabels(), key=lambda t: -t.get_position()[1])
+    assert [t.get_text() for t in ticks] == [r["name"] for r in result.limits]
+    assert_one_unit_style(fig)
+    assert_legends_outside(fig)
+    for ax in fig.axes:
+        if ax is not ledger:
+            assert_no_overlapping_texts(ax, [t for t in ax.texts if t.get_text()])
+
+
+def test_the_tune_command_writes_the_switched_figure_atomically(switched_result, tmp_path,
+                                                                monkeypatch):  # fmt: skip
+    import argparse
+
+    from wirestate.commands import tune as command
+    from wirestate.report import figure
+
+    written = []
+    real = figure.write_atomic
+
+    def spy(path, data):
+        written.append(path)
+        return real(path, data)
+
+    monkeypatch.setattr(figure, "write_atomic", spy)
+    target = tmp_path / "snubber.png"
+    args = argparse.Namespace(json=None, plot=str(target))
+    command._outputs(switched_result, args, None)
+    assert written == [target]
+    assert target.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert not [p for p in tmp_path.iterdir() if p != target]  # no temporary left behind

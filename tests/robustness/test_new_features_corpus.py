@@ -1370,8 +1370,8 @@ CASES: list[Case] = [
         ],
         where=("--csv",),
     ),
-    # issue 12, tuning over switching transients: a switched limit on the linear RC,
-    # and the figure of a switched tuning
+    # issue 12, tuning over switching transients: a switched limit on the linear RC, also
+    # with --plot (the figure is drawn for a switched tuning; the file's mistake is named)
     Case(
         "switched_limit_on_linear_circuit",
         "tune",
@@ -1380,11 +1380,11 @@ CASES: list[Case] = [
         where=("limits.vmax.kind", "no switches or diodes"),
     ),
     Case(
-        "switched_tune_plot_refused",
+        "switched_tune_plot_on_linear_circuit",
         "tune",
         {"t.toml": SWITCHED_ON_RC, "rc.toml": RC},
         ["tune", "{t.toml}", "--plot", "{out.png}", "--quiet"],
-        where=("--plot",),
+        where=("limits.vmax.kind", "no switches or diodes"),
     ),
 ]
 

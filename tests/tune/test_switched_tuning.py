@@ -127,6 +127,35 @@ def test_peak_limit_value_is_the_engines_peak(case):
     assert peak >= numeric_peak - 0.05 * (numeric_peak - problem.inputs[0])
 
 
+def test_figure_curve_is_the_sequence_models_solution(case):
+    # the figure samples each mode with scipy's expm of the numeric mode (Al-Mohy and
+    # Higham's scaling and squaring); the window rows come from the sequence model's own
+    # Taylor exponentials in CasADi. Both from the same mode-start states: agreement to
+    # 1e-6 of the window's scale (the tolerance of the window samples against the engine
+    # above; stiff modes with 33 squarings, see DEVELOPERS.md)
+    from wirestate.tune.switched_figure import _sampler, figure_data
+
+    problem, model, point = case
+    data = figure_data(problem, model, point, [])
+    sample = _sampler(problem, model, point)
+    times, rows = data["peak"]["samples"]
+    drawn = sample(data["edge"] + times, "v_Q1")
+    scale = np.max(np.abs(rows))
+    assert np.max(np.abs(drawn - rows)) <= 1e-6 * scale
+    # the peak drawn is the largest window sample, i.e. the limit's value in the report
+    value = next(r for r in S.margins(problem, model, point) if r["name"] == "switch_peak")
+    assert data["peak"]["value"] == pytest.approx(value["value"], rel=1e-12)
+    # the edge is the switch's turn-off at duty x T (the modulator's closed-form edge)
+    assert data["edge"] == pytest.approx(point.duty * problem.period, rel=1e-12)
+    # the ring band is centred on the output at the end of its window, and its worst
+    # sample (a row of the limit, v - final, plus final) lies on the drawn solution
+    ring = data["ring"]
+    end = sample(np.array([data["edge"] + ring["window"][1]]), "v_Q1")[0]
+    assert ring["final"] == pytest.approx(end, rel=1e-12)
+    when, worst = ring["worst"]
+    assert abs(sample(np.array([data["edge"] + when]), "v_Q1")[0] - worst) <= 1e-6 * scale
+
+
 def test_engine_lc_step_peak_is_twice_the_step():
     # textbook closed form: an undamped series LC driven by a step V reaches 2 V on the
     # capacitor, at t = pi sqrt(L C) (e.g. any circuits text, LC step response); with the

@@ -144,27 +144,12 @@ def _outputs(result: Any, args: argparse.Namespace, progress: Progress | None) -
             progress(f"figure written to {args.plot}")
 
 
-def _refuse_switched_plot(spec: Any, args: argparse.Namespace) -> None:
-    """The tuning figure draws a scenario's responses; a switched tuning has none yet."""
-    from wirestate.tune.switched_problem import is_switched_tuning
-
-    if args.plot and is_switched_tuning(spec):
-        raise TuningError(
-            "unsupported_switched_tuning",
-            "--plot is not available for a tuning over switching transients yet; "
-            "use --json, or 'wirestate simulate' on the system with the preferred values",
-            file=args.spec,
-            location=("--plot",),
-        )
-
-
 def run(args: argparse.Namespace) -> int:
     from wirestate.commands.outputs import check_outputs
 
     # before the solve: --json/--plot never replace a model file
     check_outputs(json=args.json, plot=args.plot, figures=("plot",), inputs=(args.spec,))
     spec = load_tuning(args.spec)
-    _refuse_switched_plot(spec, args)
     progress = None if args.quiet else Progress(sys.stderr)
     try:
         result = solve(spec, series=args.series, progress=progress, file=args.spec)

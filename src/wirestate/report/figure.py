@@ -113,7 +113,7 @@ def quantity_of(unit: str) -> str:
 
 
 #: time units for axes, by the span they suit
-_TIME_SCALES = ((1e-6, "µs"), (1e-3, "ms"), (1.0, "s"))
+_TIME_SCALES = ((1e-9, "ns"), (1e-6, "µs"), (1e-3, "ms"), (1.0, "s"))
 
 
 def time_scale(span: float) -> tuple[float, str]:

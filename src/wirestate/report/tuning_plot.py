@@ -78,7 +78,10 @@ def _rows_by_limit(result: Any, limits: list[dict[str, Any]]) -> list[dict[str, 
 
 def tuning_figure(result: Any) -> Any:
     """The tuning figure of ``result`` (a :class:`~wirestate.tune.TuningResult`) as a
-    matplotlib ``Figure``; see the module docstring."""
+    matplotlib ``Figure``; see the module docstring (a switched tuning's figure:
+    :func:`switched_tuning_figure`)."""
+    if "switched" in result.responses:
+        return switched_tuning_figure(result)
     responses = result.responses
     limits = list(responses["limits"])
     rows = _rows_by_limit(result, limits)
@@ -130,6 +133,11 @@ def tuning_figure(result: Any) -> Any:
         style_axes(ax)
         legend_outside(ax)
     _draw_ledger(fig.add_subplot(grid[:, 1]), limits, rows)
+    return _finish(fig, result, arrows)
+
+
+def _finish(fig: Any, result: Any, arrows: list[tuple]) -> Any:
+    """Title with the preferred values; then, the figure laid out, the margin arrows."""
     names = ", ".join(
         f"{k} = {format_quantity(v['preferred'], v['unit'])}" for k, v in result.variables.items()
     )
@@ -232,6 +240,100 @@ def _draw_ledger(ax: Any, limits: list[dict], rows: list[dict | None]) -> None:
               ncols=1)  # fmt: skip
 
 
+def switched_tuning_figure(result: Any) -> Any:
+    """The figure of a tuning over switching transients.
+
+    Left, top: the limited output over one switching period in periodic steady state at
+    the preferred values, the turn-off marked. Left, middle: the same around the turn-off
+    (time after the edge), the band it sweeps over the tolerance corners inside the peak
+    window, the peak window's bound hatched and named, the report's peak marked and its
+    margin arrowed, the ring-settling band drawn from ``settled_by``. Left, bottom: the
+    ring-settling window close up, its band's edges hatched. Right: the margin ledger of
+    every limit, as for the linear tuning. ``result.responses["switched"]`` is called for
+    the arrays (:func:`wirestate.tune.switched_figure.figure_data`).
+    """
+    data = result.responses["switched"]()
+    rows = list(getattr(result, "limits", []) or [])
+    limits = [{"name": r["name"], "kind": r.get("kind", "")} for r in rows]
+    unit = data["unit"]
+    name = data["output"]
+    ylabel = axis_label(f"{quantity_of(unit)} {name}", unit)
+    peak, ring = data.get("peak"), data.get("ring")
+    fig = new_figure(12.5, 9.0)
+    grid = fig.add_gridspec(3, 2, width_ratios=(2.4, 1.0), height_ratios=(0.8, 1.3, 1.0))
+    arrows: list[tuple] = []
+    # one period
+    ax = fig.add_subplot(grid[0, 0])
+    scale, unit_t = time_scale(data["period"])
+    ax.plot(data["period_times"] / scale, data["period_values"], color=_RESPONSE,
+            linewidth=1.2, label="preferred values")  # fmt: skip
+    ax.axvline(data["edge"] / scale, color=INK, linestyle=":", linewidth=1.0,
+               label=f"{data['edge_name']}")  # fmt: skip
+    ax.set_xlim(0.0, data["period"] / scale)
+    ax.set_xlabel(axis_label("time from the carrier start", unit_t))
+    ax.set_ylabel(ylabel)
+    ax.set_title(f"one switching period in periodic steady state (duty {data['duty']:.4f})",
+                 fontsize=10)  # fmt: skip
+    style_axes(ax)
+    legend_outside(ax)
+    # around the turn-off
+    ax = fig.add_subplot(grid[1, 0])
+    t = data["times"]
+    scale, unit_t = time_scale(float(np.max(np.abs(t))))
+    if "corner_low" in data:
+        ax.fill_between(data["corner_times"] / scale, data["corner_low"], data["corner_high"],
+                        color=_RESPONSE, alpha=0.22, linewidth=0,
+                        label=f"tolerance corners (envelope, {data['corners']})")  # fmt: skip
+    ax.plot(t / scale, data["values"], color=_RESPONSE, linewidth=1.6, label="preferred values")
+    ax.axvline(0.0, color=INK, linestyle=":", linewidth=1.0, label=data["edge_name"])
+    if ring is not None:
+        lo, hi = ring["window"]
+        ax.fill_between(np.array([lo, hi]) / scale, ring["final"] - ring["band"],
+                        ring["final"] + ring["band"], color=PALETTE[2], alpha=0.6,
+                        linewidth=0, label=f"{ring['name']} band")  # fmt: skip
+    if peak is not None:
+        ax.plot([peak["time"] / scale], [peak["value"]], marker="o", color=_WORST,
+                linestyle="none", label=f"peak {format_quantity(peak['value'], unit)}",
+                gid="peak")  # fmt: skip
+        lo, hi = peak["window"]
+        title = f"{peak['name']} (window {format_quantity(hi, 's')})"
+        labels = _draw_bound(ax, lo / scale, hi / scale, None, peak["bound"], title, unit)
+        row = next((r for r in rows if r["name"] == peak["name"]), None)
+        arrows.append((ax, labels, (peak["time"] / scale, peak["value"], peak["bound"], row,
+                                    unit), False))  # fmt: skip
+    ax.set_xlabel(axis_label(f"time after the {data['edge_name']}", unit_t))
+    ax.set_ylabel(ylabel)
+    style_axes(ax)
+    legend_outside(ax)
+    # the ring-settling window close up
+    if ring is not None:
+        ax = fig.add_subplot(grid[2, 0])
+        lo, hi = ring["window"]
+        pad = 0.1 * (hi - lo)
+        inside = (t >= lo - pad) & (t <= hi + pad)
+        ax.plot(t[inside] / scale, data["values"][inside], color=_RESPONSE, linewidth=1.6,
+                label="preferred values")  # fmt: skip
+        ax.set_xlim((lo - pad) / scale, (hi + pad) / scale)
+        final, band = ring["final"], ring["band"]
+        ax.set_ylim(final - 3 * band, final + 3 * band)
+        labels = _draw_bound(ax, lo / scale, hi / scale, final - band, final + band,
+                             ring["name"], unit)  # fmt: skip
+        ax.axhline(final, color=INK, linestyle="--", linewidth=0.8,
+                   label=f"value at {format_quantity(hi, 's')}")  # fmt: skip
+        row = next((r for r in rows if r["name"] == ring["name"]), None)
+        when, worst = ring["worst"]
+        bound = final + band if worst >= final else final - band
+        arrows.append((ax, labels, (when / scale, worst, bound, row, unit), False))
+        ax.set_xlabel(axis_label(f"time after the {data['edge_name']}", unit_t))
+        ax.set_ylabel(ylabel)
+        ax.set_title(f"{ring['name']}: settled within ±{format_quantity(band, unit)} from "
+                     f"{format_quantity(lo, 's')}", fontsize=10)  # fmt: skip
+        style_axes(ax)
+        legend_outside(ax)
+    _draw_ledger(fig.add_subplot(grid[:, 1]), limits, rows)
+    return _finish(fig, result, arrows)
+
+
 def plot_tuning(result: Any, path: str | Path) -> Path:
     """Draw :func:`tuning_figure` of ``result`` to a PNG or SVG file, atomically.
 
@@ -240,4 +342,4 @@ def plot_tuning(result: Any, path: str | Path) -> Path:
     return save_figure(tuning_figure(result), Path(path), dpi=110)
 
 
-__all__ = ["plot_tuning", "tuning_figure"]
+__all__ = ["plot_tuning", "switched_tuning_figure", "tuning_figure"]

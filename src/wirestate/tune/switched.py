@@ -21,6 +21,7 @@ The chain of :mod:`wirestate.tune.solve`, for a switched circuit in closed loop:
 
 from __future__ import annotations
 
+import functools
 import itertools
 import math
 import time
@@ -42,6 +43,7 @@ from wirestate.tune.sequence import (
     build_sequence_model,
 )
 from wirestate.tune.stress import _ratings
+from wirestate.tune.switched_figure import figure_data
 from wirestate.tune.switched_problem import (
     BOOTSTRAP_PERIODS,
     CHECK_PERIODS,
@@ -578,6 +580,8 @@ class _Verified:
     toleranced: list[str]
     settled: bool
     notes: list[str]
+    #: the tolerance corners' steady states (for the figure)
+    corner_points: list[Point] = field(default_factory=list)
 
 
 def _verify(problem, exchange: _Exchange, model, chosen: Point, say, parts=None) -> _Verified:
@@ -598,20 +602,22 @@ def _verify(problem, exchange: _Exchange, model, chosen: Point, say, parts=None)
     toleranced = []
     if problem.spec.stress.tolerance_corners:
         toleranced = parts if parts is not None else _corner_parts(problem, model, chosen)
-    corners = 0
+    corner_points = []
     for values in _corners(problem, chosen.values, toleranced):
         point = _corner_point(model, values, chosen)
         if np.max(np.abs(point.out["equations"])) > STEADY:
             notes.append(f"no steady state on the sequence at corner {values}")
             continue
-        corners += 1
+        corner_points.append(point)
         for row, corner_row in zip(rows, margins(problem, model, point), strict=True):
             if corner_row["relative_margin"] < row["relative_margin_worst_corner"]:
                 row["margin_worst_corner"] = corner_row["margin"]
                 row["relative_margin_worst_corner"] = corner_row["relative_margin"]
                 row["worst_corner"] = {n: values[n] for n in toleranced}
+    corners = len(corner_points)
     say(f"verified: {corners} tolerance corners of {', '.join(toleranced) or 'no parts'}")
-    return _Verified(rows, _stress(problem, model, chosen), corners, toleranced, settled, notes)
+    return _Verified(rows, _stress(problem, model, chosen), corners, toleranced, settled, notes,
+                     corner_points)  # fmt: skip
 
 
 def _stress(problem, model: SequenceModel, point: Point) -> list[dict]:
@@ -723,7 +729,12 @@ def _result(problem, found, chosen: Point, verified: _Verified, series, candidat
         corners_checked=verified.corners,
         toleranced_parts=verified.toleranced,
         notes=notes,
-        responses={},
+        # the figure's arrays are computed only when a figure is drawn (``--plot``)
+        responses={
+            "switched": functools.partial(
+                figure_data, problem, model, chosen, verified.corner_points
+            )
+        },
         verdict=verdict(limits, verified.stress, verified.corners, series),
     )
 
