@@ -33,7 +33,9 @@ forward voltage (or on it and rising), off otherwise; one instant allows at most
 from __future__ import annotations
 
 import bisect
+import ctypes
 import math
+import warnings
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -42,7 +44,8 @@ from typing import Any, NamedTuple
 import numpy as np
 from scipy.linalg import expm
 
-from wirestate.errors import SimulationError
+from wirestate.errors import SimulationError, WirestateWarning
+from wirestate.native import NoCompilerError, is_native_disabled, load_kernel
 from wirestate.simulate.discretize import Discretization
 from wirestate.simulate.inputs import InputSet, Waveform, build_inputs
 from wirestate.simulate.linear import time_grid
@@ -127,6 +130,50 @@ class _Modal:
     propagate: bool  # well enough conditioned to advance the state in modal form
 
 
+#: a placeholder for the kernel's pointer tables where the mode has no such array
+_NO_ARRAY = np.zeros(1)
+
+
+def _pointers(arrays: list[np.ndarray]) -> Any:
+    """A C array of the arrays' data pointers (the caller keeps the arrays alive)."""
+    return (ctypes.c_void_p * max(1, len(arrays)))(*(a.ctypes.data for a in arrays))
+
+
+_kernel_state: dict[str, Any] = {}
+
+
+def event_kernel() -> Any:
+    """The compiled event search (``event_kernel.c``'s ``ws_first_crossing``), or None.
+
+    Built once per user and source (:func:`wirestate.native.build_kernel`). None when
+    ``WIRESTATE_NO_NATIVE`` is set, or when there is no C compiler or the build fails:
+    then the search runs in Python, with the same results to round-off, and a
+    :class:`~wirestate.errors.WirestateWarning` says so once per process.
+    """
+    if is_native_disabled():
+        return None
+    if "kernel" not in _kernel_state:
+        _kernel_state["kernel"] = None
+        try:
+            library = load_kernel("wirestate.simulate", "event_kernel.c")
+        except (NoCompilerError, OSError) as exc:
+            warnings.warn(
+                WirestateWarning(
+                    f"switched engine: {exc}; the diode event search runs in Python "
+                    "(the same results, slower)"
+                ),
+                stacklevel=2,
+            )
+        else:
+            function = library.ws_first_crossing
+            function.restype = ctypes.c_int
+            function.argtypes = [
+                *[ctypes.c_int] * 5, *[ctypes.c_double] * 4, *[ctypes.c_void_p] * 9,
+            ]  # fmt: skip
+            _kernel_state["kernel"] = function
+    return _kernel_state["kernel"]
+
+
 #: at most this many sets of held inputs keep their constants per mode (a run whose
 #: inputs change at every output step must not grow the cache without bound)
 HELD_CACHE_SIZE = 16
@@ -173,6 +220,42 @@ class _ModeData:
         self.first_ring = float(self.spacing.min(initial=math.inf))
         self._rings: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
         self.held: dict[bytes, _Held] = {}
+        self._native: tuple | None = None
+        self._native_rings: tuple | None = None
+
+    def native_table(self) -> tuple:
+        """The event kernel's per-mode pointer table (``event_kernel.c``, ``M_*``) and the
+        contiguous arrays it points into (kept alive here)."""
+        if self._native is None:
+            m = self.modal
+            arrays = [
+                np.ascontiguousarray(m.lam, dtype=complex),
+                np.ascontiguousarray(m.R, dtype=complex),
+                *(np.ascontiguousarray(a, dtype=float) for a in (
+                    self.Pv, self.tolerance_rows, self.R_abs, self.inverse_rate,
+                    self.lam_real, self.sign, self.oscillating, self.spacing, self.decay,
+                    _EVEN, _EARLY,
+                )),
+            ]  # fmt: skip
+            self._native = (_pointers(arrays), arrays)
+        return self._native[0]
+
+    def native_rings(self) -> tuple:
+        """The cached ring exponentials for the event kernel: pointers ``(E_j, Phi_j)``
+        per oscillating eigenvalue and their column counts (0 while not computed)."""
+        if self._native_rings is None:
+            arrays, sizes = [], []
+            for j in range(len(self.oscillating)):
+                found = self._rings.get(j)
+                if found is None:
+                    arrays += [_NO_ARRAY, _NO_ARRAY]
+                    sizes.append(0)
+                else:
+                    arrays += [np.ascontiguousarray(a, dtype=complex) for a in found[1:]]
+                    sizes.append(len(found[0]))
+            size_array = np.array(sizes + [0], dtype=np.int64)
+            self._native_rings = (_pointers(arrays), size_array.ctypes.data, arrays, size_array)
+        return self._native_rings
 
     def ring(self, j: int, count: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``e^{lambda tau}`` and ``tau phi1(lambda tau)`` at ``tau = k spacing[j]`` (the
@@ -187,6 +270,7 @@ class _ModeData:
             e = np.exp(w)
             found = (tau, e, tau[None, :] * _phi1(w, e=e))
             self._rings[j] = found
+            self._native_rings = None
         return found
 
 
@@ -195,7 +279,7 @@ class _Held:
 
     __slots__ = (
         "c", "b", "q", "tol_base", "tol_inputs", "noise_inputs", "Rb", "final", "b_lam",
-        "b_oscillating", "tol_const", "Pc",
+        "b_oscillating", "tol_const", "Pc", "_native",
     )  # fmt: skip
 
     def __init__(self, data: _ModeData, u: np.ndarray, vf: np.ndarray) -> None:
@@ -214,6 +298,24 @@ class _Held:
         if data.stable:
             self.b_lam = self.b / m.lam
             self.final = data.sign * (self.q - (m.R @ self.b_lam).real)
+        self._native = None
+
+    def native_table(self, data: _ModeData) -> Any:
+        """The event kernel's per-inputs pointer table (``event_kernel.c``, ``H_*``)."""
+        if self._native is None:
+            stable = data.stable
+            arrays = [
+                np.ascontiguousarray(self.q, dtype=float),
+                np.ascontiguousarray(np.broadcast_to(self.tol_const, self.q.shape), dtype=float),
+                np.ascontiguousarray(self.b, dtype=complex),
+                np.ascontiguousarray(self.Rb, dtype=complex),
+                np.ascontiguousarray(self.b_lam, dtype=complex) if stable else _NO_ARRAY,
+                np.ascontiguousarray(self.final, dtype=float) if stable else _NO_ARRAY,
+                np.ascontiguousarray(self.noise_inputs, dtype=float),
+                np.ascontiguousarray(self.b_oscillating, dtype=complex),
+            ]
+            self._native = (_pointers(arrays), arrays)
+        return self._native[0]
 
 
 def _modal(A: np.ndarray, rows: np.ndarray) -> _Modal:
@@ -319,6 +421,10 @@ class SwitchedEngine:
         self._located = False  # changes now happen at a root found on the exact solution
         self._time_slack = 0.0  # how far past a located crossing the state may be (s)
         self._leaving: set[int] = set()  # diodes whose margin the search saw leave their side
+        self._kernel = event_kernel() if self.diodes else None
+        self._kernel_out = np.zeros(1)
+        self._kernel_leaving = np.zeros(max(1, len(self.diodes)), dtype=np.intc)
+        self._kernel_need = np.zeros(2, dtype=np.int64)
 
     # -- modes ---------------------------------------------------------------------------
     def data(self, on: tuple[bool, ...] | None = None) -> _ModeData:
@@ -522,6 +628,8 @@ class SwitchedEngine:
     ) -> float | None:
         """Earliest time in ``(0, h]`` where a diode leaves its side, or None."""
         m = data.modal
+        if self._kernel is not None and m.ok and m.lam.size:
+            return self._native_crossing(data, held, z0, h, tol_t)
         sign = data.sign
         q = held.q
         x_abs = np.abs(self.x)
@@ -563,6 +671,34 @@ class SwitchedEngine:
         best = min(roots.values())
         self._leaving = {self.diodes[row] for row, root in roots.items() if root <= best + tol_t}
         return best
+
+    def _native_crossing(
+        self, data: _ModeData, held: _Held, z0: np.ndarray, h: float, tol_t: float
+    ) -> float | None:
+        """:meth:`_first_crossing` on the modal form by one call of the compiled kernel
+        (``event_kernel.c`` follows the Python methods step by step)."""
+        table, held_table = data.native_table(), held.native_table(data)
+        x = np.ascontiguousarray(self.x, dtype=float)
+        z = np.ascontiguousarray(z0, dtype=complex)
+        n, nd, n_rings = len(x), len(self.diodes), len(data.oscillating)
+        need = self._kernel_need
+        while True:
+            rings, sizes = data.native_rings()[:2]
+            status = self._kernel(
+                n, nd, n_rings, data.stable, self._fresh, h, tol_t, data.first_ring,
+                data.slowest, table, held_table, rings, sizes, x.ctypes.data, z.ctypes.data,
+                self._kernel_out.ctypes.data, self._kernel_leaving.ctypes.data, need.ctypes.data,
+            )  # fmt: skip
+            if status != 2:
+                break
+            data.ring(int(need[0]), int(need[1]))  # the same growth as the Python search
+        if status < 0:
+            raise MemoryError("switched engine: the event kernel could not allocate")
+        if status == 0:
+            return None
+        leaving = np.flatnonzero(self._kernel_leaving[:nd]).tolist()
+        self._leaving = {self.diodes[i] for i in leaving}
+        return float(self._kernel_out[0])
 
     def _modal_noise(self, data: _ModeData, held: _Held, h: float) -> np.ndarray:
         """Per diode, how far round-off in the modal amplitudes can move a margin (V):
