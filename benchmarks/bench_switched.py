@@ -27,9 +27,9 @@ for 300 ns after each switching event.
   details as ``run_per_event_s``.
 * ``switched_event_kernel``: the same overhead per event (CPU time) with the compiled
   event search (``simulate/event_kernel.c``, the default where a C compiler exists)
-  against the pure-Python search (``WIRESTATE_NO_NATIVE=1``), both timed in the same
-  interleaved rounds as the quiet run. Without a compiler both runs take the Python path
-  and the ratio is about 1.
+  and sampling against the pure-Python ones (``WIRESTATE_NO_NATIVE=1``), each against
+  its own quiet run, all four timed in the same interleaved rounds. Without a compiler
+  both take the Python path and the ratio is about 1.
 
 Run as ``python benchmarks/bench_switched.py`` to print JSON.
 """
@@ -84,11 +84,11 @@ def ours(sc, until):
                              fine_step=FINE_STEP, fine_window=FINE_WINDOW)  # fmt: skip
 
 
-def ours_python(sc, until):
-    """:func:`ours` with the pure-Python event search."""
+def python_path(function, *args):
+    """``function(*args)`` with the pure-Python event search and sampling."""
     os.environ["WIRESTATE_NO_NATIVE"] = "1"
     try:
-        return ours(sc, until)
+        return function(*args)
     finally:
         del os.environ["WIRESTATE_NO_NATIVE"]
 
@@ -179,21 +179,24 @@ def _error(x, ref):
 def run(repeats: int = 3, pairs: int = 5) -> list[dict]:
     sc = buck()
     ours(sc, 2e-5)  # mode compilation, imports and the kernel's build outside the timing
-    ours_python(sc, 2e-5)
+    python_path(ours, sc, 2e-5)
     result = ours(sc, UNTIL)
     samples = len(result.time)
     calm = quiet(sc, samples)  # its mode compiled outside the timing, and checked
     if calm.events or len(calm.time) != samples:
         raise RuntimeError("the run without events must have none and the same samples")
     run_times, run_cpu, quiet_times, quiet_cpu = [], [], [], []
-    python_times, python_cpu = [], []
+    python_times, python_cpu, python_quiet_times, python_quiet_cpu = [], [], [], []
     for _ in range(max(repeats, pairs)):
         result, wall, cpu = _timed(ours, sc, UNTIL)
         run_times.append(wall)
         run_cpu.append(cpu)
-        python_result, wall, cpu = _timed(ours_python, sc, UNTIL)
+        python_result, wall, cpu = _timed(python_path, ours, sc, UNTIL)
         python_times.append(wall)
         python_cpu.append(cpu)
+        _, wall, cpu = _timed(python_path, quiet, sc, samples)
+        python_quiet_times.append(wall)
+        python_quiet_cpu.append(cpu)
         _, wall, cpu = _timed(quiet, sc, samples)
         quiet_times.append(wall)
         quiet_cpu.append(cpu)
@@ -228,10 +231,10 @@ def run(repeats: int = 3, pairs: int = 5) -> list[dict]:
     overhead_cpu = statistics.median(a - b for a, b in zip(run_cpu, quiet_cpu, strict=True))
     per_event = overhead / events
     python_overhead_cpu = statistics.median(
-        a - b for a, b in zip(python_cpu, quiet_cpu, strict=True)
+        a - b for a, b in zip(python_cpu, python_quiet_cpu, strict=True)
     )
     python_overhead = statistics.median(
-        a - b for a, b in zip(python_times, quiet_times, strict=True)
+        a - b for a, b in zip(python_times, python_quiet_times, strict=True)
     )
     if len(python_result.events) != events:
         raise RuntimeError("the compiled and the Python event search found different events")
@@ -302,6 +305,7 @@ def run(repeats: int = 3, pairs: int = 5) -> list[dict]:
                 "run_cpu_s": run_cpu,
                 "python_run_cpu_s": python_cpu,
                 "quiet_cpu_s": quiet_cpu,
+                "python_quiet_cpu_s": python_quiet_cpu,
                 "python_run_times_s": python_times,
                 "wall_overhead_per_event_s": per_event,
                 "python_wall_overhead_per_event_s": python_overhead / events,

@@ -168,3 +168,19 @@ def test_the_environment_variable_forces_the_python_path(monkeypatch):
     assert SwitchedEngine(make())._kernel is None
     monkeypatch.setenv(native.NO_NATIVE_VARIABLE, "0")
     assert not native.is_native_disabled()
+
+
+@needs_compiler
+def test_states_in_modal_form_agree_with_the_numpy_evaluation(kernel_allowed):
+    # the stiffest mode of the snubbed buck (eigenvalues from -5e14 /s to 1e4 /s), from
+    # femtoseconds to ten microseconds: the same phi1 (from e^w above |w| = 1e-2, the
+    # series below) and modal sum, summed in another order; 1e-13 of the largest state
+    # (round-off of sums over terms up to cond(V) times larger than the state)
+    engine = SwitchedEngine(snubbed_buck(), x0=np.array([2.4, 0.1, 0.2, 2.4, 12.0]))
+    engine.apply(np.array([48.0, 1.0]))
+    taus = np.concatenate([[0.0], np.geomspace(1e-15, 1e-5, 300)])
+    data = engine.data()
+    ours = engine.states_at(data, taus)
+    engine._kernel_states = None
+    reference = engine.states_at(data, taus)
+    assert np.abs(ours - reference).max() <= 1e-13 * np.abs(reference).max()

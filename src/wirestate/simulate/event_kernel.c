@@ -399,3 +399,48 @@ done:
     free(work);
     return status;
 }
+
+/* Taylor coefficients of phi1 highest first, as _PHI1_SERIES */
+static const double PHI1_SERIES[7] = {1.0 / 5040.0, 1.0 / 720.0, 1.0 / 120.0, 1.0 / 24.0,
+                                      1.0 / 6.0,    1.0 / 2.0,   1.0};
+
+/* States at `count` times tau from now in modal form (SwitchedEngine.states_at):
+ * out[i * count + j] = Re(V (e^{lam tau_j} z0 + tau_j phi1(lam tau_j) b))_i, with phi1
+ * from e^w where |w| >= 1e-2 and from its seven-term series below, as _phi1 on the
+ * large arrays of a stretch's samples. Returns -1 when it cannot allocate. */
+int ws_states_at(int n, long count, const double *lam_raw, const double *V_raw,
+                 const double *z0_raw, const double *b_raw, const double *taus, double *out)
+{
+    const cplx *lam = (const cplx *)lam_raw, *V = (const cplx *)V_raw;
+    const cplx *z0 = (const cplx *)z0_raw, *b = (const cplx *)b_raw;
+    cplx *modal = malloc(sizeof(cplx) * (size_t)(n + 1));
+    if (!modal)
+        return -1;
+    for (long j = 0; j < count; j++) {
+        double tau = taus[j];
+        for (int k = 0; k < n; k++) {
+            cplx w = c_scale(lam[k], tau);
+            cplx e = c_exp(w), phi;
+            if (hypot(w.re, w.im) >= 1e-2) {
+                cplx e1 = {e.re - 1.0, e.im};
+                phi = c_div(e1, w);
+            } else {
+                phi.re = PHI1_SERIES[0];
+                phi.im = 0.0;
+                for (int c = 1; c < 7; c++) {
+                    phi = c_mul(phi, w);
+                    phi.re += PHI1_SERIES[c];
+                }
+            }
+            modal[k] = c_add(c_mul(e, z0[k]), c_mul(c_scale(phi, tau), b[k]));
+        }
+        for (int i = 0; i < n; i++) {
+            double s = 0.0;
+            for (int k = 0; k < n; k++)
+                s += c_mul(V[i * n + k], modal[k]).re;
+            out[i * count + j] = s;
+        }
+    }
+    free(modal);
+    return 0;
+}

@@ -170,7 +170,11 @@ def event_kernel() -> Any:
             function.argtypes = [
                 *[ctypes.c_int] * 5, *[ctypes.c_double] * 4, *[ctypes.c_void_p] * 9,
             ]  # fmt: skip
+            states = library.ws_states_at
+            states.restype = ctypes.c_int
+            states.argtypes = [ctypes.c_int, ctypes.c_long, *[ctypes.c_void_p] * 6]
             _kernel_state["kernel"] = function
+            _kernel_state["states"] = states
     return _kernel_state["kernel"]
 
 
@@ -237,6 +241,10 @@ class _ModeData:
                     _EVEN, _EARLY,
                 )),
             ]  # fmt: skip
+            #: the addresses ``ws_states_at`` reads: eigenvalues and eigenvectors
+            vectors = np.ascontiguousarray(m.V, dtype=complex)
+            arrays.append(vectors)
+            self.native_states = (arrays[0].ctypes.data, vectors.ctypes.data)
             self._native = (_pointers(arrays), arrays)
         return self._native[0]
 
@@ -279,7 +287,7 @@ class _Held:
 
     __slots__ = (
         "c", "b", "q", "tol_base", "tol_inputs", "noise_inputs", "Rb", "final", "b_lam",
-        "b_oscillating", "tol_const", "Pc", "_native",
+        "b_oscillating", "tol_const", "Pc", "_native", "native_b",
     )  # fmt: skip
 
     def __init__(self, data: _ModeData, u: np.ndarray, vf: np.ndarray) -> None:
@@ -315,6 +323,7 @@ class _Held:
                 np.ascontiguousarray(self.b_oscillating, dtype=complex),
             ]
             self._native = (_pointers(arrays), arrays)
+            self.native_b = arrays[2].ctypes.data  # for ``ws_states_at``
         return self._native[0]
 
 
@@ -422,9 +431,17 @@ class SwitchedEngine:
         self._time_slack = 0.0  # how far past a located crossing the state may be (s)
         self._leaving: set[int] = set()  # diodes whose margin the search saw leave their side
         self._kernel = event_kernel() if self.diodes else None
+        self._kernel_states = _kernel_state.get("states") if self._kernel else None
+        # the kernel's arguments and results, at fixed addresses (one call per stretch)
+        self._kernel_x = np.zeros(max(1, self.x.size))
+        self._kernel_z = np.zeros(max(1, self.x.size), dtype=complex)
         self._kernel_out = np.zeros(1)
         self._kernel_leaving = np.zeros(max(1, len(self.diodes)), dtype=np.intc)
         self._kernel_need = np.zeros(2, dtype=np.int64)
+        self._kernel_addresses = tuple(a.ctypes.data for a in (
+            self._kernel_x, self._kernel_z, self._kernel_out, self._kernel_leaving,
+            self._kernel_need,
+        ))  # fmt: skip
 
     # -- modes ---------------------------------------------------------------------------
     def data(self, on: tuple[bool, ...] | None = None) -> _ModeData:
@@ -617,11 +634,32 @@ class SwitchedEngine:
         held = self._held(data) if held is None else held
         if m.propagate:
             z0 = m.Vinv @ self.x if z0 is None else z0
+            if self._kernel_states is not None and m.lam.size:
+                return self._native_states(data, held, taus, z0)
             w = m.lam[:, None] * taus[None, :]
             e = np.exp(w)
             modal = e * z0[:, None] + taus[None, :] * _phi1(w, e=e) * held.b[:, None]
             return (m.V @ modal).real
         return np.column_stack([self._propagate(data, float(t), z0, held) for t in taus])
+
+    def _native_states(
+        self, data: _ModeData, held: _Held, taus: np.ndarray, z0: np.ndarray
+    ) -> np.ndarray:
+        """:meth:`states_at` in modal form by the compiled kernel (``ws_states_at``)."""
+        data.native_table()
+        held.native_table(data)
+        n = self.x.size
+        self._kernel_z[:n] = z0
+        taus = np.ascontiguousarray(taus, dtype=float)
+        out = np.empty((n, len(taus)))
+        lam, vectors = data.native_states
+        status = self._kernel_states(
+            n, len(taus), lam, vectors, self._kernel_addresses[1], held.native_b,
+            taus.ctypes.data, out.ctypes.data,
+        )  # fmt: skip
+        if status < 0:
+            raise MemoryError("switched engine: the event kernel could not allocate")
+        return out
 
     def _first_crossing(
         self, data: _ModeData, held: _Held, z0: np.ndarray | None, h: float, tol_t: float
@@ -678,26 +716,26 @@ class SwitchedEngine:
         """:meth:`_first_crossing` on the modal form by one call of the compiled kernel
         (``event_kernel.c`` follows the Python methods step by step)."""
         table, held_table = data.native_table(), held.native_table(data)
-        x = np.ascontiguousarray(self.x, dtype=float)
-        z = np.ascontiguousarray(z0, dtype=complex)
-        n, nd, n_rings = len(x), len(self.diodes), len(data.oscillating)
-        need = self._kernel_need
+        n, nd = self.x.size, len(self.diodes)
+        self._kernel_x[:n] = self.x
+        self._kernel_z[:n] = z0
+        x, z, out, leaving, need = self._kernel_addresses
         while True:
             rings, sizes = data.native_rings()[:2]
             status = self._kernel(
-                n, nd, n_rings, data.stable, self._fresh, h, tol_t, data.first_ring,
-                data.slowest, table, held_table, rings, sizes, x.ctypes.data, z.ctypes.data,
-                self._kernel_out.ctypes.data, self._kernel_leaving.ctypes.data, need.ctypes.data,
+                n, nd, len(data.oscillating), data.stable, self._fresh, h, tol_t,
+                data.first_ring, data.slowest, table, held_table, rings, sizes, x, z, out,
+                leaving, need,
             )  # fmt: skip
             if status != 2:
                 break
-            data.ring(int(need[0]), int(need[1]))  # the same growth as the Python search
+            data.ring(*self._kernel_need.tolist())  # the same growth as the Python search
         if status < 0:
             raise MemoryError("switched engine: the event kernel could not allocate")
         if status == 0:
             return None
-        leaving = np.flatnonzero(self._kernel_leaving[:nd]).tolist()
-        self._leaving = {self.diodes[i] for i in leaving}
+        flags = self._kernel_leaving.tolist()
+        self._leaving = {self.diodes[i] for i in range(nd) if flags[i]}
         return float(self._kernel_out[0])
 
     def _modal_noise(self, data: _ModeData, held: _Held, h: float) -> np.ndarray:
