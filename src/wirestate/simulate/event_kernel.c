@@ -405,10 +405,10 @@ static const double PHI1_SERIES[7] = {1.0 / 5040.0, 1.0 / 720.0, 1.0 / 120.0, 1.
                                       1.0 / 6.0,    1.0 / 2.0,   1.0};
 
 /* States at `count` times tau from now in modal form (SwitchedEngine.states_at):
- * out[i * count + j] = Re(V (e^{lam tau_j} z0 + tau_j phi1(lam tau_j) b))_i, with phi1
+ * out[i * ld + j] = Re(V (e^{lam tau_j} z0 + tau_j phi1(lam tau_j) b))_i, with phi1
  * from e^w where |w| >= 1e-2 and from its seven-term series below, as _phi1 on the
  * large arrays of a stretch's samples. Returns -1 when it cannot allocate. */
-int ws_states_at(int n, long count, const double *lam_raw, const double *V_raw,
+int ws_states_at(int n, long count, long ld, const double *lam_raw, const double *V_raw,
                  const double *z0_raw, const double *b_raw, const double *taus, double *out)
 {
     const cplx *lam = (const cplx *)lam_raw, *V = (const cplx *)V_raw;
@@ -421,7 +421,7 @@ int ws_states_at(int n, long count, const double *lam_raw, const double *V_raw,
         for (int k = 0; k < n; k++) {
             cplx w = c_scale(lam[k], tau);
             cplx e = c_exp(w), phi;
-            if (hypot(w.re, w.im) >= 1e-2) {
+            if (w.re * w.re + w.im * w.im >= 1e-4) { /* |w| >= 1e-2, to round-off */
                 cplx e1 = {e.re - 1.0, e.im};
                 phi = c_div(e1, w);
             } else {
@@ -438,7 +438,7 @@ int ws_states_at(int n, long count, const double *lam_raw, const double *V_raw,
             double s = 0.0;
             for (int k = 0; k < n; k++)
                 s += c_mul(V[i * n + k], modal[k]).re;
-            out[i * count + j] = s;
+            out[i * ld + j] = s;
         }
     }
     free(modal);

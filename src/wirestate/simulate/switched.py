@@ -172,7 +172,7 @@ def event_kernel() -> Any:
             ]  # fmt: skip
             states = library.ws_states_at
             states.restype = ctypes.c_int
-            states.argtypes = [ctypes.c_int, ctypes.c_long, *[ctypes.c_void_p] * 6]
+            states.argtypes = [ctypes.c_int, ctypes.c_long, ctypes.c_long, *[ctypes.c_void_p] * 6]
             _kernel_state["kernel"] = function
             _kernel_state["states"] = states
     return _kernel_state["kernel"]
@@ -438,6 +438,7 @@ class SwitchedEngine:
         self._kernel_out = np.zeros(1)
         self._kernel_leaving = np.zeros(max(1, len(self.diodes)), dtype=np.intc)
         self._kernel_need = np.zeros(2, dtype=np.int64)
+        self._kernel_sample_buffers(256)
         self._kernel_addresses = tuple(a.ctypes.data for a in (
             self._kernel_x, self._kernel_z, self._kernel_out, self._kernel_leaving,
             self._kernel_need,
@@ -615,6 +616,8 @@ class SwitchedEngine:
         self, data: _ModeData, tau: float, z0: np.ndarray | None, held: _Held
     ) -> np.ndarray:
         m = data.modal
+        if m.propagate and self._kernel_states is not None and m.lam.size:
+            return self._native_states(data, held, float(tau), z0)
         if m.propagate:
             w = m.lam * tau
             return (m.V @ (np.exp(w) * z0 + tau * _phi1(w, tau * data.slowest) * held.b)).real
@@ -642,24 +645,47 @@ class SwitchedEngine:
             return (m.V @ modal).real
         return np.column_stack([self._propagate(data, float(t), z0, held) for t in taus])
 
+    def _kernel_sample_buffers(self, size: int) -> None:
+        """Times and states of up to ``size`` samples at fixed addresses for the kernel."""
+        self._kernel_taus = np.zeros(size)
+        self._kernel_samples = np.zeros((max(1, self.x.size), size))
+        self._kernel_sample_addresses = (
+            self._kernel_taus.ctypes.data,
+            self._kernel_samples.ctypes.data,
+        )
+
     def _native_states(
-        self, data: _ModeData, held: _Held, taus: np.ndarray, z0: np.ndarray
+        self, data: _ModeData, held: _Held, taus: np.ndarray | float, z0: np.ndarray
     ) -> np.ndarray:
-        """:meth:`states_at` in modal form by the compiled kernel (``ws_states_at``)."""
+        """:meth:`states_at` in modal form by the compiled kernel (``ws_states_at``); a
+        float ``taus`` gives the one state there."""
         data.native_table()
         held.native_table(data)
         n = self.x.size
         self._kernel_z[:n] = z0
-        taus = np.ascontiguousarray(taus, dtype=float)
-        out = np.empty((n, len(taus)))
+        single = isinstance(taus, float)
+        count = 1 if single else len(taus)
         lam, vectors = data.native_states
+        if count > self._kernel_taus.size:  # a long stretch: its own arrays
+            taus = np.ascontiguousarray(taus, dtype=float)
+            states = np.empty((n, count))
+            self._call_states(n, count, count, lam, vectors, held, taus, states)
+            return states
+        self._kernel_taus[:count] = taus
+        self._call_states(n, count, self._kernel_taus.size, lam, vectors, held, None, None)
+        if single:
+            return self._kernel_samples[:n, 0].copy()
+        return self._kernel_samples[:n, :count].copy()
+
+    def _call_states(self, n, count, ld, lam, vectors, held, taus, states) -> None:
+        times, out = self._kernel_sample_addresses
+        if taus is not None:
+            times, out = taus.ctypes.data, states.ctypes.data
         status = self._kernel_states(
-            n, len(taus), lam, vectors, self._kernel_addresses[1], held.native_b,
-            taus.ctypes.data, out.ctypes.data,
-        )  # fmt: skip
+            n, count, ld, lam, vectors, self._kernel_addresses[1], held.native_b, times, out
+        )
         if status < 0:
             raise MemoryError("switched engine: the event kernel could not allocate")
-        return out
 
     def _first_crossing(
         self, data: _ModeData, held: _Held, z0: np.ndarray | None, h: float, tol_t: float
