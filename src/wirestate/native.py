@@ -104,7 +104,10 @@ def build_kernel(package: str, source_name: str) -> Path:
         c_file.write_bytes(source)
         built = Path(work) / "kernel.so"
         args = [*command, *KERNEL_FLAGS, str(c_file), "-o", str(built), "-lm"]
-        done = subprocess.run(args, capture_output=True, text=True, timeout=300)
+        try:
+            done = subprocess.run(args, capture_output=True, text=True, timeout=300)
+        except subprocess.TimeoutExpired:
+            raise OSError(f"{command[0]} took over 300 s to build {source_name}") from None
         if done.returncode != 0 or not built.is_file():
             lines = (done.stderr or done.stdout).strip().splitlines()
             first = next((line for line in lines if "error" in line), lines[0] if lines else "")
