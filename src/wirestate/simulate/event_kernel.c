@@ -81,9 +81,9 @@ static cplx c_phi1(cplx w, int all_big)
 
 /* indices into the per-mode pointer table */
 enum { M_LAM, M_R, M_PV, M_TOLROWS, M_RABS, M_INVRATE, M_LAMREAL, M_SIGN, M_OSC, M_SPACING,
-       M_DECAY, M_EVEN, M_EARLY, M_COUNT };
+       M_DECAY, M_EVEN, M_EARLY, M_VECTORS, M_MARGIN_ROWS, M_PVABS, M_ON, M_COUNT };
 /* indices into the per-held-inputs pointer table */
-enum { H_Q, H_TOLCONST, H_B, H_RB, H_BLAM, H_FINAL, H_NOISE, H_BOSC, H_COUNT };
+enum { H_Q, H_TOLCONST, H_B, H_RB, H_BLAM, H_FINAL, H_NOISE, H_BOSC, H_PC, H_COUNT };
 
 #define N_EVEN 16
 #define N_EARLY 9
@@ -443,4 +443,38 @@ int ws_states_at(int n, long count, long ld, const double *lam_raw, const double
     }
     free(modal);
     return 0;
+}
+
+/* The diode on the wrong side of its forward voltage with the largest margin, or -1
+ * (SwitchedEngine._inconsistent_diode): margins and rates from [Pv; Pv A] x, the band
+ * of _margin_tolerance widened by the rate times `slack` after a located event, and
+ * inside the band the search's verdict (`leaving`) or the sign of the rate. */
+int ws_inconsistent_diode(int n, int nd, const double *const *M, const double *const *H,
+                          const double *x, const int *leaving, double slack)
+{
+    const double *rows = M[M_MARGIN_ROWS], *pv_abs = M[M_PVABS], *on = M[M_ON];
+    const double *q = H[H_Q], *pc = H[H_PC], *tolconst = H[H_TOLCONST];
+    int found = -1;
+    double score = 0.0;
+    for (int i = 0; i < nd; i++) {
+        double v = 0.0, r = 0.0, t = 0.0;
+        for (int k = 0; k < n; k++) {
+            v += rows[i * n + k] * x[k];
+            r += rows[(nd + i) * n + k] * x[k];
+            t += pv_abs[i * n + k] * fabs(x[k]);
+        }
+        double vi = v + q[i], ri = r + pc[i];
+        double ti = tolconst[i] + 1e-12 * t;
+        if (slack != 0.0)
+            ti = ti + fabs(ri) * slack;
+        int is_on = on[i] != 0.0;
+        int wrong = is_on ? vi < -ti : vi > ti;
+        if (!wrong && fabs(vi) <= ti)
+            wrong = leaving[i] || (is_on ? ri < 0.0 : ri > 0.0);
+        if (wrong && fabs(vi) + 1e-300 > score) {
+            found = i;
+            score = fabs(vi) + 1e-300;
+        }
+    }
+    return found;
 }

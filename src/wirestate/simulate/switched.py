@@ -173,6 +173,10 @@ def event_kernel() -> Any:
             states = library.ws_states_at
             states.restype = ctypes.c_int
             states.argtypes = [ctypes.c_int, ctypes.c_long, ctypes.c_long, *[ctypes.c_void_p] * 6]
+            check = library.ws_inconsistent_diode
+            check.restype = ctypes.c_int
+            check.argtypes = [ctypes.c_int, ctypes.c_int, *[ctypes.c_void_p] * 4, ctypes.c_double]
+            _kernel_state["check"] = check
             _kernel_state["kernel"] = function
             _kernel_state["states"] = states
     return _kernel_state["kernel"]
@@ -244,6 +248,10 @@ class _ModeData:
             #: the addresses ``ws_states_at`` reads: eigenvalues and eigenvectors
             vectors = np.ascontiguousarray(m.V, dtype=complex)
             arrays.append(vectors)
+            arrays += [
+                np.ascontiguousarray(a, dtype=float)
+                for a in (self.margin_rows, self.Pv_abs, self.on_diodes)
+            ]
             self.native_states = (arrays[0].ctypes.data, vectors.ctypes.data)
             self._native = (_pointers(arrays), arrays)
         return self._native[0]
@@ -321,6 +329,7 @@ class _Held:
                 np.ascontiguousarray(self.final, dtype=float) if stable else _NO_ARRAY,
                 np.ascontiguousarray(self.noise_inputs, dtype=float),
                 np.ascontiguousarray(self.b_oscillating, dtype=complex),
+                np.ascontiguousarray(self.Pc, dtype=float),
             ]
             self._native = (_pointers(arrays), arrays)
             self.native_b = arrays[2].ctypes.data  # for ``ws_states_at``
@@ -432,6 +441,9 @@ class SwitchedEngine:
         self._leaving: set[int] = set()  # diodes whose margin the search saw leave their side
         self._kernel = event_kernel() if self.diodes else None
         self._kernel_states = _kernel_state.get("states") if self._kernel else None
+        self._kernel_check = _kernel_state.get("check") if self._kernel else None
+        self._kernel_flags = np.zeros(max(1, len(self.diodes)), dtype=np.intc)
+        self._kernel_flags_address = self._kernel_flags.ctypes.data
         # the kernel's arguments and results, at fixed addresses (one call per stretch)
         self._kernel_x = np.zeros(max(1, self.x.size))
         self._kernel_z = np.zeros(max(1, self.x.size), dtype=complex)
@@ -522,6 +534,8 @@ class SwitchedEngine:
             return None
         data = self.data()
         held = self._held(data)
+        if self._kernel_check is not None:
+            return self._native_inconsistent(data, held)
         x = self.x
         n = len(self.diodes)
         both = (data.margin_rows @ x).tolist()
@@ -543,6 +557,21 @@ class SwitchedEngine:
             if wrong and abs(vi) + 1e-300 > score:
                 found, score = i, abs(vi) + 1e-300
         return None if found is None else self.diodes[found]
+
+    def _native_inconsistent(self, data: _ModeData, held: _Held) -> int | None:
+        """:meth:`_inconsistent_diode` by the kernel (``ws_inconsistent_diode``)."""
+        table, held_table = data.native_table(), held.native_table(data)
+        n = self.x.size
+        self._kernel_x[:n] = self.x
+        flags = self._kernel_flags
+        leaving = self._leaving
+        for i, k in enumerate(self.diodes):
+            flags[i] = k in leaving
+        found = self._kernel_check(
+            n, len(self.diodes), table, held_table, self._kernel_addresses[0],
+            self._kernel_flags_address, self._time_slack,
+        )  # fmt: skip
+        return None if found < 0 else self.diodes[found]
 
     def _margin_tolerance(self, data: _ModeData, held: _Held) -> np.ndarray:
         """Per diode, how far from its forward voltage a voltage counts as on it (V).
