@@ -25,6 +25,11 @@ for 300 ns after each switching event.
   the pairs' differences is taken (wall clock; the CPU-time figure is in the details).
   Target 50 us. The whole run divided by N (which also carries the samples) is in the
   details as ``run_per_event_s``.
+* ``switched_event_kernel``: the same overhead per event (CPU time) with the compiled
+  event search (``simulate/event_kernel.c``, the default where a C compiler exists)
+  and sampling against the pure-Python ones (``WIRESTATE_NO_NATIVE=1``), each against
+  its own quiet run, all four timed in the same interleaved rounds. Without a compiler
+  both take the Python path and the ratio is about 1.
 
 Run as ``python benchmarks/bench_switched.py`` to print JSON.
 """
@@ -33,6 +38,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import statistics
 import sys
 import time
@@ -76,6 +82,15 @@ def ours(sc, until):
 
     return simulate_switched(sc, until, STEP, {"Q1": f"pwm:100kHz,duty={DUTY}"},
                              fine_step=FINE_STEP, fine_window=FINE_WINDOW)  # fmt: skip
+
+
+def python_path(function, *args):
+    """``function(*args)`` with the pure-Python event search and sampling."""
+    os.environ["WIRESTATE_NO_NATIVE"] = "1"
+    try:
+        return function(*args)
+    finally:
+        del os.environ["WIRESTATE_NO_NATIVE"]
 
 
 def quiet(sc, samples):
@@ -163,17 +178,25 @@ def _error(x, ref):
 
 def run(repeats: int = 3, pairs: int = 5) -> list[dict]:
     sc = buck()
-    ours(sc, 2e-5)  # mode compilation and imports outside the timing
+    ours(sc, 2e-5)  # mode compilation, imports and the kernel's build outside the timing
+    python_path(ours, sc, 2e-5)
     result = ours(sc, UNTIL)
     samples = len(result.time)
     calm = quiet(sc, samples)  # its mode compiled outside the timing, and checked
     if calm.events or len(calm.time) != samples:
         raise RuntimeError("the run without events must have none and the same samples")
     run_times, run_cpu, quiet_times, quiet_cpu = [], [], [], []
+    python_times, python_cpu, python_quiet_times, python_quiet_cpu = [], [], [], []
     for _ in range(max(repeats, pairs)):
         result, wall, cpu = _timed(ours, sc, UNTIL)
         run_times.append(wall)
         run_cpu.append(cpu)
+        python_result, wall, cpu = _timed(python_path, ours, sc, UNTIL)
+        python_times.append(wall)
+        python_cpu.append(cpu)
+        _, wall, cpu = _timed(python_path, quiet, sc, samples)
+        python_quiet_times.append(wall)
+        python_quiet_cpu.append(cpu)
         _, wall, cpu = _timed(quiet, sc, samples)
         quiet_times.append(wall)
         quiet_cpu.append(cpu)
@@ -207,6 +230,14 @@ def run(repeats: int = 3, pairs: int = 5) -> list[dict]:
     overhead = statistics.median(a - b for a, b in zip(run_times, quiet_times, strict=True))
     overhead_cpu = statistics.median(a - b for a, b in zip(run_cpu, quiet_cpu, strict=True))
     per_event = overhead / events
+    python_overhead_cpu = statistics.median(
+        a - b for a, b in zip(python_cpu, python_quiet_cpu, strict=True)
+    )
+    python_overhead = statistics.median(
+        a - b for a, b in zip(python_times, python_quiet_times, strict=True)
+    )
+    if len(python_result.events) != events:
+        raise RuntimeError("the compiled and the Python event search found different events")
     details = {
         "events": events,
         "samples": len(result.time),
@@ -253,9 +284,40 @@ def run(repeats: int = 3, pairs: int = 5) -> list[dict]:
                 "run_cpu_s": run_cpu,
                 "quiet_cpu_s": quiet_cpu,
                 "run_per_event_s": median / events,
+                "python_path_overhead_per_event_s": python_overhead / events,
+                "python_path_overhead_per_event_cpu_s": python_overhead_cpu / events,
+            },
+        },
+        {
+            "name": "switched_event_kernel",
+            "median_s": overhead_cpu / events,
+            "reference_median_s": python_overhead_cpu / events,
+            "ratio": overhead_cpu / python_overhead_cpu,
+            "higher_is_better": False,
+            "target": 1.0,
+            "meets_target": overhead_cpu < python_overhead_cpu,
+            "details": {
+                "definition": "overhead per event (as switched_per_event, CPU time) with the "
+                "compiled event search over the same with the Python search "
+                "(WIRESTATE_NO_NATIVE=1), interleaved in the same rounds",
+                "compiled_search_loaded": _kernel_loaded(),
+                "events": events,
+                "run_cpu_s": run_cpu,
+                "python_run_cpu_s": python_cpu,
+                "quiet_cpu_s": quiet_cpu,
+                "python_quiet_cpu_s": python_quiet_cpu,
+                "python_run_times_s": python_times,
+                "wall_overhead_per_event_s": per_event,
+                "python_wall_overhead_per_event_s": python_overhead / events,
             },
         },
     ]
+
+
+def _kernel_loaded() -> bool:
+    from wirestate.simulate.switched import event_kernel
+
+    return event_kernel() is not None
 
 
 if __name__ == "__main__":

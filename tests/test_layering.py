@@ -10,7 +10,7 @@ import pytest
 PACKAGE = Path(__file__).resolve().parents[1] / "src" / "wirestate"
 
 LAYERS = [
-    {"errors", "units", "atomic", "__init__"},
+    {"errors", "units", "atomic", "native", "__init__"},
     {"spec"},
     {"topology"},
     {"equations"},

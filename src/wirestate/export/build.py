@@ -15,8 +15,6 @@ from __future__ import annotations
 import importlib.util
 import io
 import os
-import shlex
-import shutil
 import subprocess
 import tempfile
 import zipfile
@@ -24,6 +22,7 @@ from importlib import resources
 from pathlib import Path
 
 from wirestate.export.plan import ExportError
+from wirestate.native import NoCompilerError, find_c_compiler
 
 HEADER_NAMES = ("fmi2Functions.h", "fmi2FunctionTypes.h", "fmi2TypesPlatform.h")
 RUNTIME_NAME = "wirestate_fmu.c"
@@ -36,35 +35,23 @@ ZIP_TIME = (2020, 1, 1, 0, 0, 0)
 
 
 def find_compiler(environ: dict[str, str] | None = None) -> list[str]:
-    """The C compiler command: ``$CC`` (split like a shell word list), then ``cc``.
+    """The C compiler command: ``$CC`` (split like a shell word list), then ``cc``
+    (:func:`wirestate.native.find_c_compiler`).
 
     Raises
     ------
     ExportError
         ``no_c_compiler`` when ``CC`` names no program or neither exists.
     """
-    env = os.environ if environ is None else environ
-    path = env.get("PATH", os.defpath)
-    given = env.get("CC", "").strip()
-    if given:
-        words = shlex.split(given)
-        if shutil.which(words[0], path=path) is None:
-            raise ExportError(
-                "no_c_compiler",
-                f"CC={given!r} names no program on the PATH; set CC to a C compiler or use "
-                "--sources-only to write the FMU without binaries",
-                location=("CC",),
-            )
-        return words
-    found = shutil.which("cc", path=path)
-    if found is None:
-        raise ExportError(
-            "no_c_compiler",
-            "no C compiler found (neither $CC nor cc); install one, set CC, or use "
-            "--sources-only to write the FMU without binaries",
-            location=("CC",),
+    try:
+        return find_c_compiler(environ)
+    except NoCompilerError as exc:
+        advice = (
+            "set CC to a C compiler or use --sources-only to write the FMU without binaries"
+            if (os.environ if environ is None else environ).get("CC", "").strip()
+            else "install one, set CC, or use --sources-only to write the FMU without binaries"
         )
-    return [found]
+        raise ExportError("no_c_compiler", f"{exc}; {advice}", location=("CC",)) from None
 
 
 def header_folder() -> tuple[Path, str]:

@@ -33,7 +33,9 @@ forward voltage (or on it and rising), off otherwise; one instant allows at most
 from __future__ import annotations
 
 import bisect
+import ctypes
 import math
+import warnings
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -42,7 +44,8 @@ from typing import Any, NamedTuple
 import numpy as np
 from scipy.linalg import expm
 
-from wirestate.errors import SimulationError
+from wirestate.errors import SimulationError, WirestateWarning
+from wirestate.native import NoCompilerError, is_native_disabled, load_kernel
 from wirestate.simulate.discretize import Discretization
 from wirestate.simulate.inputs import InputSet, Waveform, build_inputs
 from wirestate.simulate.linear import time_grid
@@ -127,6 +130,58 @@ class _Modal:
     propagate: bool  # well enough conditioned to advance the state in modal form
 
 
+#: a placeholder for the kernel's pointer tables where the mode has no such array
+_NO_ARRAY = np.zeros(1)
+
+
+def _pointers(arrays: list[np.ndarray]) -> Any:
+    """A C array of the arrays' data pointers (the caller keeps the arrays alive)."""
+    return (ctypes.c_void_p * max(1, len(arrays)))(*(a.ctypes.data for a in arrays))
+
+
+_kernel_state: dict[str, Any] = {}
+
+
+def event_kernel() -> Any:
+    """The compiled event search (``event_kernel.c``'s ``ws_first_crossing``), or None.
+
+    Built once per user and source (:func:`wirestate.native.build_kernel`). None when
+    ``WIRESTATE_NO_NATIVE`` is set, or when there is no C compiler or the build fails:
+    then the search runs in Python, with the same results to round-off, and a
+    :class:`~wirestate.errors.WirestateWarning` says so once per process.
+    """
+    if is_native_disabled():
+        return None
+    if "kernel" not in _kernel_state:
+        _kernel_state["kernel"] = None
+        try:
+            library = load_kernel("wirestate.simulate", "event_kernel.c")
+        except (NoCompilerError, OSError) as exc:
+            warnings.warn(
+                WirestateWarning(
+                    f"switched engine: {exc}; the diode event search runs in Python "
+                    "(the same results, slower)"
+                ),
+                stacklevel=2,
+            )
+        else:
+            function = library.ws_first_crossing
+            function.restype = ctypes.c_int
+            function.argtypes = [
+                *[ctypes.c_int] * 5, *[ctypes.c_double] * 4, *[ctypes.c_void_p] * 9,
+            ]  # fmt: skip
+            states = library.ws_states_at
+            states.restype = ctypes.c_int
+            states.argtypes = [ctypes.c_int, ctypes.c_long, ctypes.c_long, *[ctypes.c_void_p] * 6]
+            check = library.ws_inconsistent_diode
+            check.restype = ctypes.c_int
+            check.argtypes = [ctypes.c_int, ctypes.c_int, *[ctypes.c_void_p] * 4, ctypes.c_double]
+            _kernel_state["check"] = check
+            _kernel_state["kernel"] = function
+            _kernel_state["states"] = states
+    return _kernel_state["kernel"]
+
+
 #: at most this many sets of held inputs keep their constants per mode (a run whose
 #: inputs change at every output step must not grow the cache without bound)
 HELD_CACHE_SIZE = 16
@@ -173,6 +228,50 @@ class _ModeData:
         self.first_ring = float(self.spacing.min(initial=math.inf))
         self._rings: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
         self.held: dict[bytes, _Held] = {}
+        self._native: tuple | None = None
+        self._native_rings: tuple | None = None
+
+    def native_table(self) -> tuple:
+        """The event kernel's per-mode pointer table (``event_kernel.c``, ``M_*``) and the
+        contiguous arrays it points into (kept alive here)."""
+        if self._native is None:
+            m = self.modal
+            arrays = [
+                np.ascontiguousarray(m.lam, dtype=complex),
+                np.ascontiguousarray(m.R, dtype=complex),
+                *(np.ascontiguousarray(a, dtype=float) for a in (
+                    self.Pv, self.tolerance_rows, self.R_abs, self.inverse_rate,
+                    self.lam_real, self.sign, self.oscillating, self.spacing, self.decay,
+                    _EVEN, _EARLY,
+                )),
+            ]  # fmt: skip
+            #: the addresses ``ws_states_at`` reads: eigenvalues and eigenvectors
+            vectors = np.ascontiguousarray(m.V, dtype=complex)
+            arrays.append(vectors)
+            arrays += [
+                np.ascontiguousarray(a, dtype=float)
+                for a in (self.margin_rows, self.Pv_abs, self.on_diodes)
+            ]
+            self.native_states = (arrays[0].ctypes.data, vectors.ctypes.data)
+            self._native = (_pointers(arrays), arrays)
+        return self._native[0]
+
+    def native_rings(self) -> tuple:
+        """The cached ring exponentials for the event kernel: pointers ``(E_j, Phi_j)``
+        per oscillating eigenvalue and their column counts (0 while not computed)."""
+        if self._native_rings is None:
+            arrays, sizes = [], []
+            for j in range(len(self.oscillating)):
+                found = self._rings.get(j)
+                if found is None:
+                    arrays += [_NO_ARRAY, _NO_ARRAY]
+                    sizes.append(0)
+                else:
+                    arrays += [np.ascontiguousarray(a, dtype=complex) for a in found[1:]]
+                    sizes.append(len(found[0]))
+            size_array = np.array(sizes + [0], dtype=np.int64)
+            self._native_rings = (_pointers(arrays), size_array.ctypes.data, arrays, size_array)
+        return self._native_rings
 
     def ring(self, j: int, count: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``e^{lambda tau}`` and ``tau phi1(lambda tau)`` at ``tau = k spacing[j]`` (the
@@ -187,6 +286,7 @@ class _ModeData:
             e = np.exp(w)
             found = (tau, e, tau[None, :] * _phi1(w, e=e))
             self._rings[j] = found
+            self._native_rings = None
         return found
 
 
@@ -195,7 +295,7 @@ class _Held:
 
     __slots__ = (
         "c", "b", "q", "tol_base", "tol_inputs", "noise_inputs", "Rb", "final", "b_lam",
-        "b_oscillating", "tol_const", "Pc",
+        "b_oscillating", "tol_const", "Pc", "_native", "native_b",
     )  # fmt: skip
 
     def __init__(self, data: _ModeData, u: np.ndarray, vf: np.ndarray) -> None:
@@ -214,6 +314,26 @@ class _Held:
         if data.stable:
             self.b_lam = self.b / m.lam
             self.final = data.sign * (self.q - (m.R @ self.b_lam).real)
+        self._native = None
+
+    def native_table(self, data: _ModeData) -> Any:
+        """The event kernel's per-inputs pointer table (``event_kernel.c``, ``H_*``)."""
+        if self._native is None:
+            stable = data.stable
+            arrays = [
+                np.ascontiguousarray(self.q, dtype=float),
+                np.ascontiguousarray(np.broadcast_to(self.tol_const, self.q.shape), dtype=float),
+                np.ascontiguousarray(self.b, dtype=complex),
+                np.ascontiguousarray(self.Rb, dtype=complex),
+                np.ascontiguousarray(self.b_lam, dtype=complex) if stable else _NO_ARRAY,
+                np.ascontiguousarray(self.final, dtype=float) if stable else _NO_ARRAY,
+                np.ascontiguousarray(self.noise_inputs, dtype=float),
+                np.ascontiguousarray(self.b_oscillating, dtype=complex),
+                np.ascontiguousarray(self.Pc, dtype=float),
+            ]
+            self._native = (_pointers(arrays), arrays)
+            self.native_b = arrays[2].ctypes.data  # for ``ws_states_at``
+        return self._native[0]
 
 
 def _modal(A: np.ndarray, rows: np.ndarray) -> _Modal:
@@ -319,6 +439,22 @@ class SwitchedEngine:
         self._located = False  # changes now happen at a root found on the exact solution
         self._time_slack = 0.0  # how far past a located crossing the state may be (s)
         self._leaving: set[int] = set()  # diodes whose margin the search saw leave their side
+        self._kernel = event_kernel() if self.diodes else None
+        self._kernel_states = _kernel_state.get("states") if self._kernel else None
+        self._kernel_check = _kernel_state.get("check") if self._kernel else None
+        self._kernel_flags = np.zeros(max(1, len(self.diodes)), dtype=np.intc)
+        self._kernel_flags_address = self._kernel_flags.ctypes.data
+        # the kernel's arguments and results, at fixed addresses (one call per stretch)
+        self._kernel_x = np.zeros(max(1, self.x.size))
+        self._kernel_z = np.zeros(max(1, self.x.size), dtype=complex)
+        self._kernel_out = np.zeros(1)
+        self._kernel_leaving = np.zeros(max(1, len(self.diodes)), dtype=np.intc)
+        self._kernel_need = np.zeros(2, dtype=np.int64)
+        self._kernel_sample_buffers(256)
+        self._kernel_addresses = tuple(a.ctypes.data for a in (
+            self._kernel_x, self._kernel_z, self._kernel_out, self._kernel_leaving,
+            self._kernel_need,
+        ))  # fmt: skip
 
     # -- modes ---------------------------------------------------------------------------
     def data(self, on: tuple[bool, ...] | None = None) -> _ModeData:
@@ -398,6 +534,8 @@ class SwitchedEngine:
             return None
         data = self.data()
         held = self._held(data)
+        if self._kernel_check is not None:
+            return self._native_inconsistent(data, held)
         x = self.x
         n = len(self.diodes)
         both = (data.margin_rows @ x).tolist()
@@ -419,6 +557,21 @@ class SwitchedEngine:
             if wrong and abs(vi) + 1e-300 > score:
                 found, score = i, abs(vi) + 1e-300
         return None if found is None else self.diodes[found]
+
+    def _native_inconsistent(self, data: _ModeData, held: _Held) -> int | None:
+        """:meth:`_inconsistent_diode` by the kernel (``ws_inconsistent_diode``)."""
+        table, held_table = data.native_table(), held.native_table(data)
+        n = self.x.size
+        self._kernel_x[:n] = self.x
+        flags = self._kernel_flags
+        leaving = self._leaving
+        for i, k in enumerate(self.diodes):
+            flags[i] = k in leaving
+        found = self._kernel_check(
+            n, len(self.diodes), table, held_table, self._kernel_addresses[0],
+            self._kernel_flags_address, self._time_slack,
+        )  # fmt: skip
+        return None if found < 0 else self.diodes[found]
 
     def _margin_tolerance(self, data: _ModeData, held: _Held) -> np.ndarray:
         """Per diode, how far from its forward voltage a voltage counts as on it (V).
@@ -492,6 +645,8 @@ class SwitchedEngine:
         self, data: _ModeData, tau: float, z0: np.ndarray | None, held: _Held
     ) -> np.ndarray:
         m = data.modal
+        if m.propagate and self._kernel_states is not None and m.lam.size:
+            return self._native_states(data, held, float(tau), z0)
         if m.propagate:
             w = m.lam * tau
             return (m.V @ (np.exp(w) * z0 + tau * _phi1(w, tau * data.slowest) * held.b)).real
@@ -511,17 +666,63 @@ class SwitchedEngine:
         held = self._held(data) if held is None else held
         if m.propagate:
             z0 = m.Vinv @ self.x if z0 is None else z0
+            if self._kernel_states is not None and m.lam.size:
+                return self._native_states(data, held, taus, z0)
             w = m.lam[:, None] * taus[None, :]
             e = np.exp(w)
             modal = e * z0[:, None] + taus[None, :] * _phi1(w, e=e) * held.b[:, None]
             return (m.V @ modal).real
         return np.column_stack([self._propagate(data, float(t), z0, held) for t in taus])
 
+    def _kernel_sample_buffers(self, size: int) -> None:
+        """Times and states of up to ``size`` samples at fixed addresses for the kernel."""
+        self._kernel_taus = np.zeros(size)
+        self._kernel_samples = np.zeros((max(1, self.x.size), size))
+        self._kernel_sample_addresses = (
+            self._kernel_taus.ctypes.data,
+            self._kernel_samples.ctypes.data,
+        )
+
+    def _native_states(
+        self, data: _ModeData, held: _Held, taus: np.ndarray | float, z0: np.ndarray
+    ) -> np.ndarray:
+        """:meth:`states_at` in modal form by the compiled kernel (``ws_states_at``); a
+        float ``taus`` gives the one state there."""
+        data.native_table()
+        held.native_table(data)
+        n = self.x.size
+        self._kernel_z[:n] = z0
+        single = isinstance(taus, float)
+        count = 1 if single else len(taus)
+        lam, vectors = data.native_states
+        if count > self._kernel_taus.size:  # a long stretch: its own arrays
+            taus = np.ascontiguousarray(taus, dtype=float)
+            states = np.empty((n, count))
+            self._call_states(n, count, count, lam, vectors, held, taus, states)
+            return states
+        self._kernel_taus[:count] = taus
+        self._call_states(n, count, self._kernel_taus.size, lam, vectors, held, None, None)
+        if single:
+            return self._kernel_samples[:n, 0].copy()
+        return self._kernel_samples[:n, :count].copy()
+
+    def _call_states(self, n, count, ld, lam, vectors, held, taus, states) -> None:
+        times, out = self._kernel_sample_addresses
+        if taus is not None:
+            times, out = taus.ctypes.data, states.ctypes.data
+        status = self._kernel_states(
+            n, count, ld, lam, vectors, self._kernel_addresses[1], held.native_b, times, out
+        )
+        if status < 0:
+            raise MemoryError("switched engine: the event kernel could not allocate")
+
     def _first_crossing(
         self, data: _ModeData, held: _Held, z0: np.ndarray | None, h: float, tol_t: float
     ) -> float | None:
         """Earliest time in ``(0, h]`` where a diode leaves its side, or None."""
         m = data.modal
+        if self._kernel is not None and m.ok and m.lam.size:
+            return self._native_crossing(data, held, z0, h, tol_t)
         sign = data.sign
         q = held.q
         x_abs = np.abs(self.x)
@@ -563,6 +764,34 @@ class SwitchedEngine:
         best = min(roots.values())
         self._leaving = {self.diodes[row] for row, root in roots.items() if root <= best + tol_t}
         return best
+
+    def _native_crossing(
+        self, data: _ModeData, held: _Held, z0: np.ndarray, h: float, tol_t: float
+    ) -> float | None:
+        """:meth:`_first_crossing` on the modal form by one call of the compiled kernel
+        (``event_kernel.c`` follows the Python methods step by step)."""
+        table, held_table = data.native_table(), held.native_table(data)
+        n, nd = self.x.size, len(self.diodes)
+        self._kernel_x[:n] = self.x
+        self._kernel_z[:n] = z0
+        x, z, out, leaving, need = self._kernel_addresses
+        while True:
+            rings, sizes = data.native_rings()[:2]
+            status = self._kernel(
+                n, nd, len(data.oscillating), data.stable, self._fresh, h, tol_t,
+                data.first_ring, data.slowest, table, held_table, rings, sizes, x, z, out,
+                leaving, need,
+            )  # fmt: skip
+            if status != 2:
+                break
+            data.ring(*self._kernel_need.tolist())  # the same growth as the Python search
+        if status < 0:
+            raise MemoryError("switched engine: the event kernel could not allocate")
+        if status == 0:
+            return None
+        flags = self._kernel_leaving.tolist()
+        self._leaving = {self.diodes[i] for i in range(nd) if flags[i]}
+        return float(self._kernel_out[0])
 
     def _modal_noise(self, data: _ModeData, held: _Held, h: float) -> np.ndarray:
         """Per diode, how far round-off in the modal amplitudes can move a margin (V):
