@@ -141,7 +141,7 @@ parts = ["C1"]
                 "[objective]",
             ),
             "invalid_field",
-            "limits.0",
+            "limits.minimum_v_out.after",
         ),
     ],
 )
@@ -225,13 +225,17 @@ def test_a_field_that_does_not_apply_names_the_fields_that_do(rc_case):
     path = rc_case()
     text = BASE.replace(
         "[objective]",
-        '[[limits]]\nkind = "minimum"\noutput = "v_out"\nmin = "0V"\nafter = "1ms"\n[objective]',
+        '[[limits]]\nname = "vmin"\nkind = "minimum"\noutput = "v_out"\nmin = "0V"\n'
+        'after = "1ms"\n[objective]',
     )
     path.write_text(text, encoding="utf-8")
     with pytest.raises(WirestateError) as info:
         load_tuning(path)
     assert "'after' does not apply to a 'minimum' limit" in info.value.message
     assert "output, min, window" in info.value.message
+    # located by the limit's name and the field, like every other limit error (was limits.0)
+    assert info.value.code == "invalid_field"
+    assert info.value.location == ("limits", "vmin", "after")
 
 
 @pytest.mark.parametrize(

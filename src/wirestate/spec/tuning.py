@@ -85,7 +85,7 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, WrapValidato
 from pydantic.json_schema import SkipJsonSchema
 
 from wirestate.errors import TuningError
-from wirestate.spec.load import QuantityInput, expect_file_kind, read_toml, validate
+from wirestate.spec.load import Flag, QuantityInput, expect_file_kind, read_toml, validate
 from wirestate.units import PREFIXES, parse_quantity, parse_tolerance
 
 __all__ = ["TuningSpec", "load_tuning", "parse_tuning", "LIMIT_KINDS"]
@@ -447,9 +447,13 @@ class Limit(_Strict):
             hint = ""
             if self.kind in ("peak_current", "energy") and "output" in extra:
                 hint = ' (limits on a part\'s stress name the part: part = "...")'
-            raise ValueError(
+            # located at the limit's name and the field, as the unit checks locate theirs
+            # (pydantic would give the list index); a TuningError passes through validation
+            raise TuningError(
+                "invalid_field",
                 f"{extra[0]!r} does not apply to a {self.kind!r} limit{hint}; its fields are "
-                f"{', '.join(applies)}"
+                f"{', '.join(applies)}",
+                location=("limits", self.label, extra[0]),
             )
 
     @property
@@ -524,8 +528,8 @@ class Ripple(_Strict):
 
 class Stress(_Strict):
     ripple: Ripple | None = None
-    tolerance_corners: bool = Field(default=True, description="check every tolerance corner")
-    corners_must_pass: bool = Field(
+    tolerance_corners: Flag = Field(default=True, description="check every tolerance corner")
+    corners_must_pass: Flag = Field(
         default=False,
         description="choose the preferred values (three neighbours each side) so that every "
         "tolerance corner meets every limit, not only the nominal values",
@@ -548,7 +552,7 @@ class SolverOptions(_Strict):
 
     max_iterations: int = Field(default=300, ge=1, le=10000)
     tolerance: float = Field(default=1e-8, gt=0, lt=1)
-    robust: bool = Field(
+    robust: Flag = Field(
         default=False,
         description="impose every limit at the nominal values and at every tolerance corner "
         "inside the optimiser, and snap to values that pass every corner",
