@@ -88,7 +88,7 @@ parts = ["C1"]
         (
             ("[objective]", '[[limits]]\nkind = "settling"\noutput = "v_out"\n[objective]'),
             "invalid_field",
-            "limits.0",
+            "limits.settling_v_out.band",
         ),
         # units checked against what the value names (issue 9, item 2)
         (
@@ -142,6 +142,16 @@ parts = ["C1"]
             ),
             "invalid_field",
             "limits.minimum_v_out.after",
+        ),
+        # every check of a limit's fields is located by its name (was limits.0)
+        (
+            (
+                "[objective]",
+                '[[limits]]\nname = "vwin"\nkind = "maximum"\noutput = "v_out"\n'
+                'max = "1V"\nwindow = ["2ms", "1ms"]\n[objective]',
+            ),
+            "invalid_field",
+            "limits.vwin.window",
         ),
     ],
 )
