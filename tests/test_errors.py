@@ -314,6 +314,20 @@ def test_sweep_grid_errors():
     assert info.value.code == "invalid_grid" and info.value.location == ("grid",)
 
 
+@pytest.mark.parametrize(
+    "text", ["Rd=1:2:3,Rd=1:2:3", "Rd=1:2:3, Rd =1:2:5", "Rd=1:2:3,Cd=1:2:3,Rd=2:3:3"]
+)
+def test_a_part_named_twice_in_a_grid_is_refused(text):
+    # the library kept the last axis (the command line alone checked): a sweep of one part
+    # taken for a sweep of two
+    from wirestate.explore import parse_grid
+
+    with pytest.raises(WirestateError) as info:
+        parse_grid(text)
+    assert info.value.code == "invalid_grid" and info.value.location == ("grid", "Rd")
+    assert info.value.message == "Rd appears twice in --grid"
+
+
 # -- robustness codes (issue 10): each raised once here, asserting on code and location ----
 def _robustness_error(code: str) -> WirestateError:
     import numpy as np
@@ -594,3 +608,74 @@ def test_a_block_unit_not_in_si_symbols_is_named(kind):
     assert info.value.location == ("blocks", "b", "unit")
     assert info.value.code == "wrong_unit"
     assert "'volts' is not a unit in SI symbols" in info.value.message
+
+
+# a TOML boolean is true or false: pydantic's lax reading took "yes", "off", 1 and 0.0
+# as booleans, so `delay = "no"` switched nothing off without a word
+_BOOLEANS = [
+    ("system", ("blocks", "pi", "delay")),
+    ("system", ("blocks", "pwm", "complementary")),
+    ("tuning", ("stress", "tolerance_corners")),
+    ("tuning", ("stress", "corners_must_pass")),
+    ("tuning", ("solver", "robust")),
+]
+
+
+def _with_flag(kind: str, where: tuple[str, ...], value: object):
+    from wirestate.spec.system import parse_system
+    from wirestate.spec.tuning import parse_tuning
+
+    if kind == "system":
+        data = {"system": {"name": "s"},
+                "blocks": {"pi": {"kind": "pi", "kp": 1, "ki": 1, "sample_time": "1ms"},
+                           "pwm": {"kind": "modulator", "frequency": "10kHz"}}}  # fmt: skip
+    else:
+        data = {"tuning": {"name": "t", "circuit": "c.toml"},
+                "variables": {"R1": {"min": "1ohm", "max": "2ohm"}},
+                "scenario": {"until": "1ms", "step": "10us"},
+                "objective": {"capacitance": 1.0, "parts": ["R1"]}}  # fmt: skip
+    table = data
+    for key in where[:-1]:
+        table = table.setdefault(key, {})
+    table[where[-1]] = value
+    parse = parse_system if kind == "system" else parse_tuning
+    return parse(data, file="f.toml")
+
+
+@pytest.mark.parametrize(("kind", "where"), _BOOLEANS)
+@pytest.mark.parametrize("value", ["yes", "true", "off", 1, 0, 0.0])
+def test_a_boolean_field_takes_only_true_or_false(kind, where, value):
+    with pytest.raises(WirestateError) as info:
+        _with_flag(kind, where, value)
+    assert info.value.code == "invalid_field"
+    assert info.value.location == where
+    assert info.value.message == f"expected true or false, got {value!r}"
+    assert "\n" not in str(info.value)
+
+
+@pytest.mark.parametrize(("kind", "where"), _BOOLEANS)
+def test_a_boolean_field_reads_true_and_false(kind, where):
+    for value in (True, False):
+        spec = _with_flag(kind, where, value)
+        item = spec.blocks[where[1]] if kind == "system" else getattr(spec, where[0])
+        assert getattr(item, where[-1]) is value
+
+
+@pytest.mark.parametrize(("value", "code"), [("2kF", "wrong_unit"), ("abc", "invalid_quantity")])
+def test_a_block_value_replacement_is_located_by_its_dotted_place(tmp_path, value, code):
+    # was located at blocks.div with "values.R1: " in the message
+    from wirestate.compose import load_system
+
+    (tmp_path / "d.toml").write_text(
+        '[circuit]\nname = "d"\n[parts.Vs]\nkind = "voltage_source"\nnodes = ["a", "gnd"]\n'
+        '[parts.R1]\nkind = "resistor"\nnodes = ["a", "gnd"]\nvalue = "1kohm"\n'
+    )
+    (tmp_path / "s.toml").write_text(
+        f'[system]\nname = "s"\n[blocks.div]\nkind = "circuit"\nfile = "d.toml"\n'
+        f'values = {{ R1 = "{value}" }}\n'
+    )
+    with pytest.raises(WirestateError) as info:
+        load_system(tmp_path / "s.toml")
+    assert info.value.location == ("blocks", "div", "values", "R1")
+    assert info.value.code == code
+    assert not info.value.message.startswith("values")

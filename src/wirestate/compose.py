@@ -741,7 +741,13 @@ def _with_values(circuit: Any, values: Mapping[str, Any], block: str, file: str)
                 location=("blocks", block, "values", part),
             )
         unit = unit_of.get(circuit.parts[part].kind, "1")
-        si[part] = parse_quantity(value, unit, field=f"values.{part}")
+        try:
+            si[part] = parse_quantity(value, unit, field="")
+        except WirestateError as exc:
+            # the whole place in the location (blocks.div.values.R1), like every other field
+            exc.location = ("blocks", block, "values", part)
+            exc.args = (str(exc),)
+            raise
     try:
         return circuit.with_values(si)
     except WirestateError as exc:

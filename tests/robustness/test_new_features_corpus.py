@@ -1389,6 +1389,134 @@ CASES: list[Case] = [
 ]
 
 
+# -- the acceptance audit of issues 9 and 10: the last four gaps ----------------------------
+
+# the divider as a block of a system, with a part value replaced by the system file
+DIVIDER_SYSTEM = """
+[system]
+name = "s"
+[blocks.div]
+kind = "circuit"
+file = "d.toml"
+values = { R1 = "2kohm" }
+[inputs]
+Vs = "div.Vs"
+[outputs]
+v = "div.v"
+"""
+
+# a sampled PI and a modulator driving nothing; only the fields are read
+FLAGS_SYSTEM = """
+[system]
+name = "flags"
+[blocks.pi]
+kind = "pi"
+kp = 1.0
+ki = 1.0
+sample_time = "1ms"
+unit = "V"
+delay = true
+[blocks.pwm]
+kind = "modulator"
+frequency = "10kHz"
+complementary = false
+"""
+
+
+def _flag(old: str, new: str) -> str:
+    assert old in FLAGS_SYSTEM, old
+    return FLAGS_SYSTEM.replace(old, new)
+
+
+def _audit_tuning(old: str, new: str) -> str:
+    assert old in TUNING, old
+    return TUNING.replace(old, new)
+
+
+AUDIT_CASES = [
+    Case(
+        "limit_field_that_does_not_apply_named_by_the_limit",
+        "tune",
+        {"t.toml": _audit_tuning('max = "10V"', 'max = "10V"\nafter = "0.3ms"'), "rc.toml": RC},
+        ["tune", "{t.toml}", "--quiet"],
+        where=("t.toml", "limits.vmax.after", "'after' does not apply"),
+    ),
+    Case(
+        "system_delay_as_text",
+        "system",
+        {"sys.toml": _flag("delay = true", 'delay = "yes"')},
+        ["inspect", "{sys.toml}"],
+        where=("sys.toml", "blocks.pi.delay", "expected true or false, got 'yes'"),
+    ),
+    Case(
+        "system_delay_as_number",
+        "system",
+        {"sys.toml": _flag("delay = true", "delay = 1")},
+        ["inspect", "{sys.toml}"],
+        where=("blocks.pi.delay", "expected true or false, got 1"),
+    ),
+    Case(
+        "system_complementary_as_text",
+        "system",
+        {"sys.toml": _flag("complementary = false", 'complementary = "yes"')},
+        ["inspect", "{sys.toml}"],
+        where=("blocks.pwm.complementary", "expected true or false"),
+    ),
+    Case(
+        "tuning_corners_as_text",
+        "tune",
+        {"t.toml": TUNING + '[stress]\ntolerance_corners = "no"\n', "rc.toml": RC},
+        ["tune", "{t.toml}", "--quiet"],
+        where=("stress.tolerance_corners", "expected true or false, got 'no'"),
+    ),
+    Case(
+        "tuning_robust_as_number",
+        "tune",
+        {"t.toml": TUNING + "[solver]\nrobust = 0\n", "rc.toml": RC},
+        ["tune", "{t.toml}", "--quiet"],
+        where=("solver.robust", "expected true or false, got 0"),
+    ),
+    Case(
+        "sweep_grid_same_part_twice_identical",
+        "yield/sweep",
+        {"t.toml": TUNING, "rc.toml": RC_TOLERANCE},
+        [
+            "sweep",
+            "{t.toml}",
+            "--grid",
+            "R1=1kohm:2kohm:3,R1=1kohm:2kohm:3",
+            "--tuned",
+            "none",
+            "--quiet",
+        ],
+        where=("grid.R1", "R1 appears twice"),
+    ),
+    Case(
+        "system_block_value_unreadable",
+        "system",
+        {"sys.toml": DIVIDER_SYSTEM.replace('"2kohm"', '"2kfarad"'), "d.toml": DIVIDER},
+        ["inspect", "{sys.toml}"],
+        where=("sys.toml: blocks.div.values.R1: ",),
+    ),
+    Case(
+        "system_block_value_negative",
+        "system",
+        {"sys.toml": DIVIDER_SYSTEM.replace('"2kohm"', '"-5ohm"'), "d.toml": DIVIDER},
+        ["inspect", "{sys.toml}"],
+        where=("sys.toml: blocks.div.values.R1: ",),
+    ),
+    Case(
+        "system_block_value_replaced",
+        "system",
+        {"sys.toml": DIVIDER_SYSTEM, "d.toml": DIVIDER},
+        ["inspect", "{sys.toml}"],
+        expect="ok",
+        check=_in_output("div"),
+    ),
+]
+CASES += AUDIT_CASES
+
+
 # -- switched circuits, pwm waveforms and modulator blocks (issue 12 features) -------------
 
 # a diode buck stage on gate g, and the same under a sampled PI through a modulator (the

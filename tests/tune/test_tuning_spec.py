@@ -88,7 +88,7 @@ parts = ["C1"]
         (
             ("[objective]", '[[limits]]\nkind = "settling"\noutput = "v_out"\n[objective]'),
             "invalid_field",
-            "limits.0",
+            "limits.settling_v_out.band",
         ),
         # units checked against what the value names (issue 9, item 2)
         (
@@ -141,7 +141,17 @@ parts = ["C1"]
                 "[objective]",
             ),
             "invalid_field",
-            "limits.0",
+            "limits.minimum_v_out.after",
+        ),
+        # every check of a limit's fields is located by its name (was limits.0)
+        (
+            (
+                "[objective]",
+                '[[limits]]\nname = "vwin"\nkind = "maximum"\noutput = "v_out"\n'
+                'max = "1V"\nwindow = ["2ms", "1ms"]\n[objective]',
+            ),
+            "invalid_field",
+            "limits.vwin.window",
         ),
     ],
 )
@@ -225,13 +235,17 @@ def test_a_field_that_does_not_apply_names_the_fields_that_do(rc_case):
     path = rc_case()
     text = BASE.replace(
         "[objective]",
-        '[[limits]]\nkind = "minimum"\noutput = "v_out"\nmin = "0V"\nafter = "1ms"\n[objective]',
+        '[[limits]]\nname = "vmin"\nkind = "minimum"\noutput = "v_out"\nmin = "0V"\n'
+        'after = "1ms"\n[objective]',
     )
     path.write_text(text, encoding="utf-8")
     with pytest.raises(WirestateError) as info:
         load_tuning(path)
     assert "'after' does not apply to a 'minimum' limit" in info.value.message
     assert "output, min, window" in info.value.message
+    # located by the limit's name and the field, like every other limit error (was limits.0)
+    assert info.value.code == "invalid_field"
+    assert info.value.location == ("limits", "vmin", "after")
 
 
 @pytest.mark.parametrize(

@@ -64,22 +64,16 @@ def format_sweep(result) -> str:
 
 def run(args: argparse.Namespace) -> int:
     from wirestate.commands.outputs import check_outputs
-    from wirestate.errors import WirestateError
     from wirestate.explore import parse_grid, sweep
     from wirestate.tune import load_tuning
 
     check_outputs(
         json=args.json, csv=args.csv, plot=args.plot, figures=("plot",), inputs=(args.spec,)
     )
-    names = [item.partition("=")[0].strip() for item in args.grid.split(",") if item.strip()]
-    twice = sorted({name for name in names if names.count(name) > 1})
-    if twice:  # parse_grid keeps the last one: a sweep of one part taken for two
-        raise WirestateError(
-            "invalid_grid", f"{twice[0]} appears twice in --grid", location=("grid", twice[0])
-        )
+    grid = parse_grid(args.grid)  # before the tuning file: a mistyped grid costs nothing
     spec = load_tuning(args.spec)
     with progress_bar("sweep", args.quiet) as bar:
-        result = sweep(spec, parse_grid(args.grid), log=args.log, **run_options(args, bar))
+        result = sweep(spec, grid, log=args.log, **run_options(args, bar))
     print(format_sweep(result))
     if args.json:
         write_json(args.json, result.to_dict())

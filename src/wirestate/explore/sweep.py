@@ -106,6 +106,12 @@ def parse_grid(text: str) -> dict[str, tuple[str, str, int]]:
                 f"{name.strip()}: the number of points must be a whole number, got {fields[2]!r}",
                 location=("grid", name.strip()),
             ) from None
+        if name.strip() in out:  # the last would replace the first: one axis taken for two
+            raise WirestateError(
+                "invalid_grid",
+                f"{name.strip()} appears twice in --grid",
+                location=("grid", name.strip()),
+            )
         out[name.strip()] = (fields[0].strip(), fields[1].strip(), points)
     return out
 

@@ -11,7 +11,7 @@ import typing
 from pathlib import Path
 from typing import Annotated, Any, TypeVar
 
-from pydantic import BaseModel, Field, ValidationError
+from pydantic import BaseModel, BeforeValidator, Field, ValidationError
 
 from wirestate.errors import ModelFileError, WirestateError
 
@@ -25,6 +25,18 @@ QuantityInput = (
         str, Field(pattern=r"^\s*[-+]?(\d|\.\d|[A-Za-zµμ]\d)", examples=["100uH", "4k7", "48V"])
     ]
 )
+
+
+def _true_or_false(value: Any) -> Any:
+    # pydantic's lax bool reads "yes", "off", 1 and 0.0 as booleans; a TOML boolean is
+    # written true or false, and anything else is more likely a mistake than a switch
+    if isinstance(value, bool):
+        return value
+    raise ValueError(f"expected true or false, got {value!r}")
+
+
+#: a boolean field of a file: only TOML's true or false (no "yes", no 1)
+Flag = Annotated[bool, BeforeValidator(_true_or_false)]
 
 _CODES = {
     "missing": "missing_field",

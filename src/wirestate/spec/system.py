@@ -70,7 +70,7 @@ from pydantic import (
 )
 
 from wirestate.errors import QuantityError, WirestateError
-from wirestate.spec.load import QuantityInput, expect_file_kind, read_toml, validate
+from wirestate.spec.load import Flag, QuantityInput, expect_file_kind, read_toml, validate
 from wirestate.units import UNITS, is_si_unit, parse_quantity
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -208,7 +208,7 @@ class _ControllerSpec(_Block):
     unit: SignalUnit = Field(default="", description="unit of the command, e.g. 'V'")
     anti_windup: Literal["back_calculation", "conditional", "none"] = "back_calculation"
     tracking_time: Seconds | None = Field(default=None, gt=0)
-    delay: bool = False
+    delay: Flag = False
 
     def limits_si(self) -> tuple[float | None, float | None] | None:
         """``output_limits`` read in the command unit (SI)."""
@@ -286,7 +286,7 @@ class ModulatorSpec(_Block):
     kind: Literal["modulator"]
     frequency: Annotated[float, _q("Hz")] = Field(gt=0, description="carrier frequency")
     carrier: Literal["sawtooth", "triangle"] = "sawtooth"
-    complementary: bool = Field(
+    complementary: Flag = Field(
         default=False, description="two outputs, high and low, instead of one gate"
     )
     dead_time: Seconds = Field(default=0.0, ge=0, description="turn-on delay of each output")

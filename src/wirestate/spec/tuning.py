@@ -85,7 +85,7 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, WrapValidato
 from pydantic.json_schema import SkipJsonSchema
 
 from wirestate.errors import TuningError
-from wirestate.spec.load import QuantityInput, expect_file_kind, read_toml, validate
+from wirestate.spec.load import Flag, QuantityInput, expect_file_kind, read_toml, validate
 from wirestate.units import PREFIXES, parse_quantity, parse_tolerance
 
 __all__ = ["TuningSpec", "load_tuning", "parse_tuning", "LIMIT_KINDS"]
@@ -423,21 +423,26 @@ class Limit(_Strict):
         }
         for field in need[self.kind]:
             if getattr(self, _ATTRIBUTE.get(field, field)) is None:
-                raise ValueError(f"a {self.kind!r} limit needs the field {field!r}")
+                self._refuse(field, f"a {self.kind!r} limit needs the field {field!r}")
         self._refuse_fields_that_do_not_apply()
         if self.kind == "output_impedance" and not isinstance(self.band, tuple):
-            raise ValueError("an 'output_impedance' limit takes band = [f_low, f_high] in Hz")
+            self._refuse("band", "an 'output_impedance' limit takes band = [f_low, f_high] in Hz")
         if self.kind == "settling" and isinstance(self.band, tuple):
-            raise ValueError("a 'settling' limit takes band as a fraction such as '2%'")
+            self._refuse("band", "a 'settling' limit takes band as a fraction such as '2%'")
         if isinstance(self.band, tuple) and not 0 < self.band[0] < self.band[1]:
-            raise ValueError("band must be [f_low, f_high] with 0 < f_low < f_high")
+            self._refuse("band", "band must be [f_low, f_high] with 0 < f_low < f_high")
         if self.window is not None and not self.window[0] < self.window[1]:
-            raise ValueError("window must be [t_start, t_end] with t_start < t_end")
+            self._refuse("window", "window must be [t_start, t_end] with t_start < t_end")
         if self.kind == "ring_settling" and not 0 <= self.by < self.within:
-            raise ValueError("settled_by must lie within [0, within)")
+            self._refuse("settled_by", "settled_by must lie within [0, within)")
         if self.kind == "efficiency" and not 0 < self.min < 1:
-            raise ValueError("an efficiency 'min' must lie between 0 and 100 %")
+            self._refuse("min", "an efficiency 'min' must lie between 0 and 100 %")
         return self
+
+    def _refuse(self, field: str, message: str) -> None:
+        # located at the limit's name and the field, as the unit checks locate theirs
+        # (pydantic would give the list index); a TuningError passes through validation
+        raise TuningError("invalid_field", message, location=("limits", self.label, field))
 
     def _refuse_fields_that_do_not_apply(self) -> None:
         applies = LIMIT_FIELDS[self.kind]
@@ -447,9 +452,10 @@ class Limit(_Strict):
             hint = ""
             if self.kind in ("peak_current", "energy") and "output" in extra:
                 hint = ' (limits on a part\'s stress name the part: part = "...")'
-            raise ValueError(
+            self._refuse(
+                extra[0],
                 f"{extra[0]!r} does not apply to a {self.kind!r} limit{hint}; its fields are "
-                f"{', '.join(applies)}"
+                f"{', '.join(applies)}",
             )
 
     @property
@@ -524,8 +530,8 @@ class Ripple(_Strict):
 
 class Stress(_Strict):
     ripple: Ripple | None = None
-    tolerance_corners: bool = Field(default=True, description="check every tolerance corner")
-    corners_must_pass: bool = Field(
+    tolerance_corners: Flag = Field(default=True, description="check every tolerance corner")
+    corners_must_pass: Flag = Field(
         default=False,
         description="choose the preferred values (three neighbours each side) so that every "
         "tolerance corner meets every limit, not only the nominal values",
@@ -548,7 +554,7 @@ class SolverOptions(_Strict):
 
     max_iterations: int = Field(default=300, ge=1, le=10000)
     tolerance: float = Field(default=1e-8, gt=0, lt=1)
-    robust: bool = Field(
+    robust: Flag = Field(
         default=False,
         description="impose every limit at the nominal values and at every tolerance corner "
         "inside the optimiser, and snap to values that pass every corner",
