@@ -219,14 +219,8 @@ SAMPLING_CASES = {
     # (merged onto it), and the fine window spanning several output steps
     "fine_on_the_grid": (
         snubbed_buck,
-        dict(
-            until=3e-5,
-            step=2e-7,
-            inputs={"Q1": "pwm:100kHz,duty=0.35"},
-            fine_step=1e-7,
-            fine_window=1e-6,
-        ),
-    ),  # fmt: skip
+        {**CASES["snubbed_buck"][1], "until": 3e-5, "fine_step": 1e-7, "fine_window": 1e-6},
+    ),
     # the switch held on: stretches of hundreds of samples, beyond the kernel's buffers
     "long_stretches": (snubbed_buck, dict(until=6e-5, step=1e-7, inputs={"Q1": 1.0})),
 }
@@ -242,10 +236,10 @@ def test_each_stretch_samples_where_the_python_sampler_does(case, monkeypatch, k
     kernel_samples = SwitchedEngine._native_samples
     compared: list[tuple] = []
 
-    def both(self, clock, data, held, z0, stop, include_start):
-        chunk = kernel_samples(self, clock, data, held, z0, stop, include_start)
+    def both(self, clock, data, held, stop, include_start):
+        chunk = kernel_samples(self, clock, data, held, stop, include_start)
         times = clock.sample(self.time, self.time + stop, include_start)
-        states = self.states_at(data, times - self.time, z0, held) if len(times) else None
+        states = self.states_at(data, times - self.time, None, held) if len(times) else None
         compared.append((chunk, times, states))
         return chunk
 

@@ -621,7 +621,7 @@ class SwitchedEngine:
             stop = remaining if tau is None else tau
             if clock is not None and data.modal.propagate and data.modal.lam.size:
                 # samples and the end state in one call (``_propagate`` in modal form)
-                chunk = self._native_samples(clock, data, held, z0, stop, include_start)
+                chunk = self._native_samples(clock, data, held, stop, include_start)
                 if chunk is not None:
                     chunks.append(chunk)
                 if stop > 0.0:
@@ -723,18 +723,19 @@ class SwitchedEngine:
         clock: SampleClock,
         data: _ModeData,
         held: _Held,
-        z0: np.ndarray,
         stop: float,
         include_start: bool,
     ) -> Chunk | None:
         """``clock.sample`` over the next ``stop`` seconds and :meth:`states_at` there, in
         one call of the kernel (``ws_sample_stretch``), as a :class:`Chunk` (None when
         the stretch holds no sample); the state ``stop`` from now goes to
-        ``_kernel_end``."""
-        data.native_table()
-        held.native_table(data)
+        ``_kernel_end``.
+
+        Called only after this stretch's :meth:`_native_crossing` (a mode that advances
+        in modal form is searched in modal form), which built the pointer tables and put
+        the state in modal coordinates at the kernel's address.
+        """
         n = self.x.size
-        self._kernel_z[:n] = z0
         lam, vectors = data.native_states
         fine, events = clock.fine, self.events
         has_fine = bool(fine) and bool(events)
