@@ -221,8 +221,10 @@ SAMPLING_CASES = {
         snubbed_buck,
         {**CASES["snubbed_buck"][1], "until": 3e-5, "fine_step": 1e-7, "fine_window": 1e-6},
     ),
-    # the switch held on: stretches of hundreds of samples, beyond the kernel's buffers
-    "long_stretches": (snubbed_buck, dict(until=6e-5, step=1e-7, inputs={"Q1": 1.0})),
+    # the switch held on: one stretch of 599 samples, more than the kernel's buffers
+    # hold at first (they grow), and one of 5999, beyond their limit (its own arrays)
+    "long_stretch": (snubbed_buck, dict(until=6e-5, step=1e-7, inputs={"Q1": 1.0})),
+    "longer_stretch": (snubbed_buck, dict(until=6e-4, step=1e-7, inputs={"Q1": 1.0})),
 }
 
 
@@ -245,11 +247,10 @@ def test_each_stretch_samples_where_the_python_sampler_does(case, monkeypatch, k
 
     monkeypatch.setattr(SwitchedEngine, "_native_samples", both)
     result = _run(make, options, monkeypatch, python=False)
-    # one stretch of 599 samples without events, else one per stretch between events
-    assert len(compared) >= (1 if case == "long_stretches" else 10)
-    assert max(len(times) for _, times, _ in compared) > (
-        300 if case == "long_stretches" else 1
-    )  # fmt: skip
+    # one long stretch without events, else one per stretch between events
+    longest = {"long_stretch": 598, "longer_stretch": switched.KERNEL_SAMPLE_BUFFER_LIMIT}
+    assert len(compared) >= (1 if case in longest else 10)
+    assert max(len(times) for _, times, _ in compared) > longest.get(case, 1)
     for chunk, times, states in compared:
         if not len(times):
             assert chunk is None

@@ -190,6 +190,9 @@ def event_kernel() -> Any:
     return _kernel_state["kernel"]
 
 
+#: the kernel's sample buffers grow up to this many samples (longer stretches: their own)
+KERNEL_SAMPLE_BUFFER_LIMIT = 4096
+
 #: at most this many sets of held inputs keep their constants per mode (a run whose
 #: inputs change at every output step must not grow the cache without bound)
 HELD_CACHE_SIZE = 16
@@ -460,6 +463,8 @@ class SwitchedEngine:
         self._kernel_leaving = np.zeros(max(1, len(self.diodes)), dtype=np.intc)
         self._kernel_need = np.zeros(2, dtype=np.int64)
         self._kernel_sample_buffers(256)
+        self._kernel_end = np.zeros(max(1, self.x.size))  # where a stretch ends
+        self._kernel_end_address = self._kernel_end.ctypes.data
         self._kernel_addresses = tuple(a.ctypes.data for a in (
             self._kernel_x, self._kernel_z, self._kernel_out, self._kernel_leaving,
             self._kernel_need,
@@ -697,8 +702,6 @@ class SwitchedEngine:
         self._kernel_taus = np.zeros(size)
         self._kernel_samples = np.zeros((max(1, self.x.size), size))
         self._kernel_times = np.zeros(size)
-        self._kernel_end = np.zeros(max(1, self.x.size))
-        self._kernel_end_address = self._kernel_end.ctypes.data
         self._kernel_sample_addresses = (
             self._kernel_taus.ctypes.data,
             self._kernel_samples.ctypes.data,
@@ -751,6 +754,14 @@ class SwitchedEngine:
         count = self._kernel_stretch(
             *head, capacity, times, n, lam, vectors, z, b, taus, out, *end
         )  # fmt: skip
+        if capacity < count <= KERNEL_SAMPLE_BUFFER_LIMIT:
+            # a fine window holds more samples than the buffers: grow them once per run
+            self._kernel_sample_buffers(min(KERNEL_SAMPLE_BUFFER_LIMIT, max(count, 2 * capacity)))
+            taus, out, times = self._kernel_sample_addresses
+            capacity = self._kernel_times.size
+            count = self._kernel_stretch(
+                *head, capacity, times, n, lam, vectors, z, b, taus, out, *end
+            )  # fmt: skip
         if 0 < count <= capacity:
             times = self._kernel_times[:count].copy()
             states = self._kernel_samples[:n, :count].copy()
