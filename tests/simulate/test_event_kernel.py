@@ -211,3 +211,50 @@ def test_each_consistency_check_picks_the_diode_the_python_check_picks(
     _run(make, options, monkeypatch, python=False)
     assert len(verdicts) >= 10 and any(v[0] is not None for v in verdicts)
     assert all(expected == found for expected, found in verdicts)
+
+
+SAMPLING_CASES = {
+    **CASES,
+    # fine samples every half output step: every other one within snap of an output step
+    # (merged onto it), and the fine window spanning several output steps
+    "fine_on_the_grid": (
+        snubbed_buck,
+        {**CASES["snubbed_buck"][1], "until": 3e-5, "fine_step": 1e-7, "fine_window": 1e-6},
+    ),
+    # the switch held on: one stretch of 599 samples, more than the kernel's buffers
+    # hold at first (they grow), and one of 5999, beyond their limit (its own arrays)
+    "long_stretch": (snubbed_buck, dict(until=6e-5, step=1e-7, inputs={"Q1": 1.0})),
+    "longer_stretch": (snubbed_buck, dict(until=6e-4, step=1e-7, inputs={"Q1": 1.0})),
+}
+
+
+@needs_compiler
+@pytest.mark.parametrize("case", sorted(SAMPLING_CASES))
+def test_each_stretch_samples_where_the_python_sampler_does(case, monkeypatch, kernel_allowed):
+    # the kernel generates a stretch's sample times itself (ws_sample_stretch) in the same
+    # floating-point expressions as SampleClock.sample and evaluates the states there by
+    # ws_states_at: the same times and states to the bit as the sampler, then states_at
+    make, options = SAMPLING_CASES[case]
+    kernel_samples = SwitchedEngine._native_samples
+    compared: list[tuple] = []
+
+    def both(self, clock, data, held, stop, include_start):
+        chunk = kernel_samples(self, clock, data, held, stop, include_start)
+        times = clock.sample(self.time, self.time + stop, include_start)
+        states = self.states_at(data, times - self.time, None, held) if len(times) else None
+        compared.append((chunk, times, states))
+        return chunk
+
+    monkeypatch.setattr(SwitchedEngine, "_native_samples", both)
+    result = _run(make, options, monkeypatch, python=False)
+    # one long stretch without events, else one per stretch between events
+    longest = {"long_stretch": 598, "longer_stretch": switched.KERNEL_SAMPLE_BUFFER_LIMIT}
+    assert len(compared) >= (1 if case in longest else 10)
+    assert max(len(times) for _, times, _ in compared) > longest.get(case, 1)
+    for chunk, times, states in compared:
+        if not len(times):
+            assert chunk is None
+            continue
+        assert np.array_equal(chunk.times, times)
+        assert np.array_equal(chunk.states, states)
+    assert np.all(np.diff(result.time) > 0.0)

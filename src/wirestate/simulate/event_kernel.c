@@ -478,3 +478,97 @@ int ws_inconsistent_diode(int n, int nd, const double *const *M, const double *c
     }
     return found;
 }
+
+/* The first index of grid[0..count) not below `value` (Python's bisect_left) */
+static long bisect_left(const double *grid, long count, double value)
+{
+    long lo = 0, hi = count;
+    while (lo < hi) {
+        long mid = lo + (hi - lo) / 2;
+        if (grid[mid] < value)
+            lo = mid + 1;
+        else
+            hi = mid;
+    }
+    return lo;
+}
+
+/* The samples of one stretch and the states there, in one call (SampleClock.sample, then
+ * ws_states_at on the times less t0). The sample times follow SampleClock.sample and
+ * _fine_range in the same floating-point expressions: output steps grid[lo..hi) by
+ * bisection, fine samples last + fine_step * k (k0 <= k < k1) after the latest event
+ * (`has_fine` is 0 without fine sampling or before any event), merged and thinned to
+ * one per `snap` as np.sort + np.diff there. Writes the times into `times` and the states
+ * into `out` (row stride `ld`) and returns their number; when that exceeds `capacity`
+ * nothing is evaluated and the number is returned all the same (the caller calls again
+ * with room). With `end_state`, also the state `end_tau` from now, where the stretch
+ * ends (SwitchedEngine._propagate). Returns -1 when it cannot allocate. */
+long ws_sample_stretch(const double *grid, long grid_count, double snap, double t0, double t1,
+                       int include_start, int has_fine, double fine_step, double window,
+                       double last, long capacity, double *times, int n, const double *lam_raw,
+                       const double *V_raw, const double *z0_raw, const double *b_raw,
+                       double *taus, double *out, double end_tau, double *end_state)
+{
+    if (end_state && ws_states_at(n, 1, 1, lam_raw, V_raw, z0_raw, b_raw, &end_tau, end_state) < 0)
+        return -1;
+    double low = include_start ? t0 - snap : t0 + snap;
+    double high = t1 - snap;
+    long lo = bisect_left(grid, grid_count, low), hi = bisect_left(grid, grid_count, high);
+    long long k0 = 0, k1 = 0;
+    if (has_fine) {
+        long long first = (long long)floor((t0 - last) / fine_step);
+        if (first < 1)
+            first = 1;
+        double stop = fmin(t1, last + window);
+        long long end = (long long)floor((stop - last) / fine_step) + 1;
+        double top = fmin(last + window, high);
+        k0 = first;
+        k1 = end;
+        while (k0 < k1 && last + fine_step * (double)k0 < low)
+            k0++;
+        while (k1 > k0 && !(last + fine_step * (double)(k1 - 1) < top))
+            k1--;
+    }
+    long count = 0;
+    if (k1 <= k0) {
+        count = hi - lo;
+        if (count <= capacity)
+            for (long j = 0; j < count; j++)
+                times[j] = grid[lo + j];
+    } else if (hi == lo && fine_step > snap) {
+        count = (long)(k1 - k0);
+        if (count <= capacity)
+            for (long j = 0; j < count; j++)
+                times[j] = last + fine_step * (double)(k0 + j);
+    } else {
+        /* merge the two sorted runs; keep a time more than `snap` after its predecessor */
+        long i = lo;
+        long long k = k0;
+        double previous = 0.0;
+        int started = 0;
+        while (i < hi || k < k1) {
+            double fine = k < k1 ? last + fine_step * (double)k : 0.0;
+            double t;
+            if (k >= k1 || (i < hi && grid[i] <= fine))
+                t = grid[i++];
+            else {
+                t = fine;
+                k++;
+            }
+            if (!started || t - previous > snap) {
+                if (count < capacity)
+                    times[count] = t;
+                count++;
+            }
+            previous = t;
+            started = 1;
+        }
+    }
+    if (count > capacity || count == 0)
+        return count;
+    for (long j = 0; j < count; j++)
+        taus[j] = times[j] - t0;
+    if (ws_states_at(n, count, capacity, lam_raw, V_raw, z0_raw, b_raw, taus, out) < 0)
+        return -1;
+    return count;
+}

@@ -177,10 +177,21 @@ def event_kernel() -> Any:
             check.restype = ctypes.c_int
             check.argtypes = [ctypes.c_int, ctypes.c_int, *[ctypes.c_void_p] * 4, ctypes.c_double]
             _kernel_state["check"] = check
+            stretch = library.ws_sample_stretch
+            stretch.restype = ctypes.c_long
+            stretch.argtypes = [
+                ctypes.c_void_p, ctypes.c_long, *[ctypes.c_double] * 3, ctypes.c_int,
+                ctypes.c_int, *[ctypes.c_double] * 3, ctypes.c_long, ctypes.c_void_p,
+                ctypes.c_int, *[ctypes.c_void_p] * 6, ctypes.c_double, ctypes.c_void_p,
+            ]  # fmt: skip
+            _kernel_state["stretch"] = stretch
             _kernel_state["kernel"] = function
             _kernel_state["states"] = states
     return _kernel_state["kernel"]
 
+
+#: the kernel's sample buffers grow up to this many samples (longer stretches: their own)
+KERNEL_SAMPLE_BUFFER_LIMIT = 4096
 
 #: at most this many sets of held inputs keep their constants per mode (a run whose
 #: inputs change at every output step must not grow the cache without bound)
@@ -442,6 +453,7 @@ class SwitchedEngine:
         self._kernel = event_kernel() if self.diodes else None
         self._kernel_states = _kernel_state.get("states") if self._kernel else None
         self._kernel_check = _kernel_state.get("check") if self._kernel else None
+        self._kernel_stretch = _kernel_state.get("stretch") if self._kernel else None
         self._kernel_flags = np.zeros(max(1, len(self.diodes)), dtype=np.intc)
         self._kernel_flags_address = self._kernel_flags.ctypes.data
         # the kernel's arguments and results, at fixed addresses (one call per stretch)
@@ -451,6 +463,8 @@ class SwitchedEngine:
         self._kernel_leaving = np.zeros(max(1, len(self.diodes)), dtype=np.intc)
         self._kernel_need = np.zeros(2, dtype=np.int64)
         self._kernel_sample_buffers(256)
+        self._kernel_end = np.zeros(max(1, self.x.size))  # where a stretch ends
+        self._kernel_end_address = self._kernel_end.ctypes.data
         self._kernel_addresses = tuple(a.ctypes.data for a in (
             self._kernel_x, self._kernel_z, self._kernel_out, self._kernel_leaving,
             self._kernel_need,
@@ -601,6 +615,7 @@ class SwitchedEngine:
         tol_t = min(EVENT_RELATIVE_TOLERANCE * h, EVENT_ABSOLUTE_TOLERANCE)
         include_start = False
         idle = 0  # crossings found in a row that changed nothing
+        clock = self._native_clock(sample)
         while end - self.time > tol_t:
             remaining = end - self.time
             data = self.data()
@@ -609,13 +624,21 @@ class SwitchedEngine:
             z0 = data.modal.Vinv @ self.x if data.modal.ok else None
             tau = self._first_crossing(data, held, z0, remaining, tol_t) if self.diodes else None
             stop = remaining if tau is None else tau
-            if sample is not None:
-                times = sample(self.time, self.time + stop, include_start)
-                if len(times):
-                    states = self.states_at(data, times - self.time, z0, held)
-                    chunks.append(Chunk(times, states, tuple(self.on), self._u))
-            if stop > 0.0:
-                self.x = self._propagate(data, stop, z0, held)
+            if clock is not None and data.modal.propagate and data.modal.lam.size:
+                # samples and the end state in one call (``_propagate`` in modal form)
+                chunk = self._native_samples(clock, data, held, stop, include_start)
+                if chunk is not None:
+                    chunks.append(chunk)
+                if stop > 0.0:
+                    self.x = self._kernel_end[: self.x.size].copy()
+            else:
+                if sample is not None:
+                    times = sample(self.time, self.time + stop, include_start)
+                    if len(times):
+                        states = self.states_at(data, times - self.time, z0, held)
+                        chunks.append(Chunk(times, states, tuple(self.on), self._u))
+                if stop > 0.0:
+                    self.x = self._propagate(data, stop, z0, held)
             self._fresh = False
             if tau is None:
                 break
@@ -678,10 +701,83 @@ class SwitchedEngine:
         """Times and states of up to ``size`` samples at fixed addresses for the kernel."""
         self._kernel_taus = np.zeros(size)
         self._kernel_samples = np.zeros((max(1, self.x.size), size))
+        self._kernel_times = np.zeros(size)
         self._kernel_sample_addresses = (
             self._kernel_taus.ctypes.data,
             self._kernel_samples.ctypes.data,
+            self._kernel_times.ctypes.data,
         )
+
+    def _native_clock(self, sample: Sampler | None) -> SampleClock | None:
+        """The :class:`SampleClock` behind ``sample`` when the kernel can generate its
+        times itself (``ws_sample_stretch``), else None (``sample`` is called)."""
+        clock = getattr(sample, "__self__", None)
+        if (
+            self._kernel_stretch is None
+            or not isinstance(clock, SampleClock)
+            or getattr(sample, "__func__", None) is not SampleClock.sample
+            or clock.engine is not self
+        ):
+            return None
+        return clock
+
+    def _native_samples(
+        self,
+        clock: SampleClock,
+        data: _ModeData,
+        held: _Held,
+        stop: float,
+        include_start: bool,
+    ) -> Chunk | None:
+        """``clock.sample`` over the next ``stop`` seconds and :meth:`states_at` there, in
+        one call of the kernel (``ws_sample_stretch``), as a :class:`Chunk` (None when
+        the stretch holds no sample); the state ``stop`` from now goes to
+        ``_kernel_end``.
+
+        Called only after this stretch's :meth:`_native_crossing` (a mode that advances
+        in modal form is searched in modal form), which built the pointer tables and put
+        the state in modal coordinates at the kernel's address.
+        """
+        n = self.x.size
+        lam, vectors = data.native_states
+        fine, events = clock.fine, self.events
+        has_fine = bool(fine) and bool(events)
+        step, window = fine if has_fine else (0.0, 0.0)
+        last = events[-1].time if has_fine else 0.0
+        t0 = self.time
+        head = (clock.grid_address, clock.grid_count, clock.snap, t0, t0 + stop, include_start,
+                has_fine, step, window, last)  # fmt: skip
+        taus, out, times = self._kernel_sample_addresses
+        capacity = self._kernel_times.size
+        z, b = self._kernel_addresses[1], held.native_b
+        end = (stop, self._kernel_end_address)
+        count = self._kernel_stretch(
+            *head, capacity, times, n, lam, vectors, z, b, taus, out, *end
+        )  # fmt: skip
+        if capacity < count <= KERNEL_SAMPLE_BUFFER_LIMIT:
+            # a fine window holds more samples than the buffers: grow them once per run
+            self._kernel_sample_buffers(min(KERNEL_SAMPLE_BUFFER_LIMIT, max(count, 2 * capacity)))
+            taus, out, times = self._kernel_sample_addresses
+            capacity = self._kernel_times.size
+            count = self._kernel_stretch(
+                *head, capacity, times, n, lam, vectors, z, b, taus, out, *end
+            )  # fmt: skip
+        if 0 < count <= capacity:
+            times = self._kernel_times[:count].copy()
+            states = self._kernel_samples[:n, :count].copy()
+        elif count > capacity:  # a long stretch: its own arrays
+            times_array, states = np.empty(count), np.empty((n, count))
+            taus_array = np.empty(count)
+            count = self._kernel_stretch(
+                *head, count, times_array.ctypes.data, n, lam, vectors, z, b,
+                taus_array.ctypes.data, states.ctypes.data, *end,
+            )  # fmt: skip
+            times = times_array
+        if count < 0:
+            raise MemoryError("switched engine: the event kernel could not allocate")
+        if count == 0:
+            return None
+        return Chunk(times, states, tuple(self.on), self._u)
 
     def _native_states(
         self, data: _ModeData, held: _Held, taus: np.ndarray | float, z0: np.ndarray
@@ -707,7 +803,7 @@ class SwitchedEngine:
         return self._kernel_samples[:n, :count].copy()
 
     def _call_states(self, n, count, ld, lam, vectors, held, taus, states) -> None:
-        times, out = self._kernel_sample_addresses
+        times, out = self._kernel_sample_addresses[:2]
         if taus is not None:
             times, out = taus.ctypes.data, states.ctypes.data
         status = self._kernel_states(
@@ -1153,6 +1249,10 @@ class SampleClock:
         self.step = step
         self.snap = SNAP * step
         self._grid = grid.tolist()  # for bisect: a search per stretch of the run
+        #: the grid for the event kernel's sampler (``ws_sample_stretch``), kept alive here
+        self._grid_array = np.ascontiguousarray(grid, dtype=float)
+        self.grid_address = self._grid_array.ctypes.data
+        self.grid_count = len(self._grid_array)
         self.until = float(grid[-1])
         self.engine = engine
         self.fine = fine
