@@ -47,7 +47,7 @@ C_CALLS, PY_CALLS, REPEATS = 1_000_000, 20_000, 7
 
 def _build_harness(folder: Path) -> Path:
     compiler = find_compiler()
-    headers, _ = header_folder()
+    headers = header_folder()
     binary = folder / "fmu_harness"
     subprocess.run(
         [*compiler, "-std=c99", "-O2", f"-I{headers}", str(HERE / "fmu_harness.c"),

@@ -101,6 +101,7 @@ ERROR_CODES: dict[str, str] = {
     "not_exportable": "a model with blocks an FMU cannot reproduce (non-linear blocks)",
     "no_c_compiler": "no C compiler to build the FMU binary ($CC, then cc)",
     "build_failed": "the C compiler failed to build the FMU binary",
+    "no_fmi_headers": "the FMI 2.0 headers are missing from the fmpy package (a dependency)",
 }
 
 

@@ -83,3 +83,18 @@ def test_build_failure_is_reported(tmp_path):
         )
     assert info.value.code == "build_failed"
     assert not (tmp_path / "b.fmu").exists()
+
+
+def test_missing_fmi_headers_are_one_error(tmp_path, monkeypatch):
+    # the headers come only from fmpy's c-code folder (wirestate keeps no copy): without
+    # fmpy, the export names the package instead of failing inside the C build
+    import importlib.util
+
+    real = importlib.util.find_spec
+    monkeypatch.setattr(
+        importlib.util, "find_spec", lambda name, *a: None if name == "fmpy" else real(name, *a)
+    )
+    with pytest.raises(WirestateError) as info:
+        export_fmu(MODELS / "servo_armature.toml", tmp_path / "h.fmu", sources_only=True)
+    assert info.value.code == "no_fmi_headers" and info.value.location == ("fmpy",)
+    assert not (tmp_path / "h.fmu").exists()

@@ -1,6 +1,6 @@
 """Exported FMUs checked by an outside FMI library (fmpy) against wirestate's simulator.
 
-Sources: the FMI 2.0.1 standard (Modelica Association, 2019) for the archive and the API;
+Sources: the FMI 2.0.1 standard (2019) for the archive and the API;
 fmpy's ``validate_fmu`` (schema, names, model structure, start values, units) and its
 simulation drivers as the independent importer.
 

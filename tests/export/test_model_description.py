@@ -1,6 +1,6 @@
 """What an exported FMU says about itself, checked against what it does.
 
-Sources: FMI 2.0.1 (Modelica Association, 2019): sec. 2.2.2 (UnitDefinitions, BaseUnit
+Sources: FMI 2.0.1 (2019): sec. 2.2.2 (UnitDefinitions, BaseUnit
 exponents of the SI base units), sec. 2.2.7 (causality, variability, start), sec. 4.3.1
 (co-simulation capability flags); the SI Brochure (BIPM, 9th edition, 2019), table 4, for
 the derived units in base units; mpmath's arbitrary-precision ``expm`` for the matrix

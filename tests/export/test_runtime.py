@@ -3,7 +3,7 @@ hold matrices computed once per step size and cached, ``fmi2Reset`` back to the 
 values, a sampled PID with its derivative filter, and every bundled model accepted by
 fmpy's validator.
 
-Source: FMI 2.0.1 (Modelica Association, 2019) sec. 2.1.5 (memory callbacks), 2.1.6
+Source: FMI 2.0.1 (2019) sec. 2.1.5 (memory callbacks), 2.1.6
 (``fmi2Reset``), 4.2 (co-simulation); fmpy as the independent importer.
 """
 

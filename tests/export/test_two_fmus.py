@@ -3,7 +3,7 @@ drive (a circuit FMU) and a sampled PI current controller (a system FMU whose me
 is an external input and whose command is an output), against the same loop composed and
 simulated by wirestate.
 
-Source of the coupling order: FMI 2.0.1 (Modelica Association, 2019) sec. 4.2.4: a master
+Source of the coupling order: FMI 2.0.1 (2019) sec. 4.2.4: a master
 sets the inputs of each slave from the outputs of the others, then calls ``fmi2DoStep`` on
 every slave with the same communication point and step.
 """

@@ -7,7 +7,7 @@ controllers at their own period inside the step, with the sample-instant semanti
 computed here (the same function as the simulator's); other step sizes are computed in the
 C code by scaling and squaring and cached. Part values are fixed at export.
 
-Standard: FMI 2.0.1 (Modelica Association, 2019), co-simulation interface.
+Standard: FMI 2.0.1 (2019), co-simulation interface.
 """
 
 from __future__ import annotations
@@ -26,7 +26,6 @@ from wirestate.export.build import (
     RUNTIME_NAME,
     compile_shared,
     find_compiler,
-    header_folder,
     pack,
     runtime_source,
     shipped_headers,
@@ -67,7 +66,6 @@ class ExportResult:
     guid: str
     members: list[str]
     has_binary: bool
-    headers_from: str
 
 
 def load_model(path: str | Path) -> tuple[Any, str | None]:
@@ -171,7 +169,7 @@ def export_fmu(
     members[f"sources/{RUNTIME_NAME}"] = runtime_source().encode("utf-8")
     members[f"sources/{MODEL_HEADER_NAME}"] = header.encode("utf-8")
     for name, data in shipped_headers().items():
-        members[f"sources/{name}" if name != "LICENSE.txt" else "sources/FMI2_LICENSE.txt"] = data
+        members[f"sources/{name}"] = data
     archive = pack(members)
     target = Path(out)
     try:
@@ -182,4 +180,4 @@ def export_fmu(
             f"cannot write the FMU: {exc.strerror or exc}",
             file=str(target),
         ) from None
-    return ExportResult(target, plan, guid, list(members), not sources_only, header_folder()[1])
+    return ExportResult(target, plan, guid, list(members), not sources_only)

@@ -3,11 +3,9 @@
 The compiler is found as users expect: the ``CC`` environment variable (which may carry
 options, e.g. ``"ccache gcc"``), then ``cc`` on the ``PATH``.
 
-The FMI 2.0 headers: when the fmpy package is installed its ``c-code`` folder is used;
-otherwise the copies shipped in this package (``wirestate/export/fmi2/``, unmodified
-FMI 2.0.1 headers under the 2-clause BSD licence printed in each of them, see
-``fmi2/LICENSE.txt``). Both are the standard's own files; shipping them means that
-``wirestate export`` needs nothing beyond a C compiler.
+The FMI 2.0 headers are the open standard's own files as the fmpy package (a dependency)
+distributes them in its ``c-code`` folder, under the 2-clause BSD licence printed in each;
+they are copied unmodified into the FMU's ``sources/``. wirestate keeps no copy of its own.
 """
 
 from __future__ import annotations
@@ -54,15 +52,25 @@ def find_compiler(environ: dict[str, str] | None = None) -> list[str]:
         raise ExportError("no_c_compiler", f"{exc}; {advice}", location=("CC",)) from None
 
 
-def header_folder() -> tuple[Path, str]:
-    """The folder holding the FMI 2.0 headers and where it comes from (``"fmpy"`` or
-    ``"wirestate"``)."""
+def header_folder() -> Path:
+    """The folder holding the FMI 2.0 headers (fmpy's ``c-code``).
+
+    Raises
+    ------
+    ExportError
+        ``no_fmi_headers`` when fmpy is missing or its folder lacks a header.
+    """
     spec = importlib.util.find_spec("fmpy")
     if spec is not None and spec.origin is not None:
         folder = Path(spec.origin).parent / "c-code"
         if all((folder / name).is_file() for name in HEADER_NAMES):
-            return folder, "fmpy"
-    return Path(str(resources.files("wirestate.export") / "fmi2")), "wirestate"
+            return folder
+    raise ExportError(
+        "no_fmi_headers",
+        "the FMI 2.0 headers were not found in the fmpy package's c-code folder; "
+        "reinstall wirestate with its dependencies (pip install fmpy)",
+        location=("fmpy",),
+    )
 
 
 def runtime_source() -> str:
@@ -71,10 +79,9 @@ def runtime_source() -> str:
 
 
 def shipped_headers() -> dict[str, bytes]:
-    """The FMI 2.0 headers and their licence note, as put into ``sources/``."""
-    folder = resources.files("wirestate.export") / "fmi2"
-    names = (*HEADER_NAMES, "LICENSE.txt")
-    return {name: (folder / name).read_bytes() for name in names}
+    """The FMI 2.0 headers (each carrying its licence), as put into ``sources/``."""
+    folder = header_folder()
+    return {name: (folder / name).read_bytes() for name in HEADER_NAMES}
 
 
 def compile_shared(identifier: str, model_header: str, compiler: list[str] | None = None) -> bytes:
@@ -87,7 +94,7 @@ def compile_shared(identifier: str, model_header: str, compiler: list[str] | Non
         line the compiler printed.
     """
     command = compiler or find_compiler()
-    headers, _ = header_folder()
+    headers = header_folder()
     with tempfile.TemporaryDirectory(prefix="wirestate-fmu-") as work:
         folder = Path(work)
         (folder / RUNTIME_NAME).write_text(runtime_source(), encoding="utf-8")

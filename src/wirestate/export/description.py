@@ -1,6 +1,6 @@
 """``modelDescription.xml`` of an exported FMU (FMI 2.0, co-simulation).
 
-The layout follows the FMI 2.0.1 standard (Modelica Association, 2019), chapter 2.2
+The layout follows the FMI 2.0.1 standard (2019), chapter 2.2
 (``fmiModelDescription``, ``UnitDefinitions``, ``LogCategories``, ``DefaultExperiment``,
 ``ModelVariables``, ``ModelStructure``) and chapter 4.3.1 (the co-simulation capability
 flags). Every flag says what the C runtime actually does.
