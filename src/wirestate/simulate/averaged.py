@@ -34,6 +34,7 @@ from wirestate.simulate.results import SimulationResult
 from wirestate.simulate.switched import (
     SwitchedEngine,
     device_output_names,
+    result_labels,
     run_setup,
     start_state,
 )
@@ -188,7 +189,6 @@ def simulate_averaged(
     averaged = AveragedModel(circuit)
     x = np.array(circuit.x0 if x0 is None else x0, dtype=float)
     extra = device_output_names(circuit)
-    n_dev = len(circuit.devices)
     X = np.zeros((len(x), len(grid)))
     Y = np.zeros((len(circuit.outputs) + len(extra), len(grid)))
     discretizations: dict[int, Discretization] = {}
@@ -214,13 +214,7 @@ def simulate_averaged(
             x = Ad @ x + Bd @ ua
         if progress is not None and k % max(1, len(grid) // 20) == 0:
             progress(k / max(1, len(grid) - 1))
-    names = [*circuit.outputs, *(name for name, _, _ in extra)]
-    units = dict(circuit.units)
-    for name, what, i in extra:
-        units[name] = "1" if what == "on" else ("A" if i < n_dev else "V")
-    states = [s.removesuffix("_shifted") for s in circuit.states]
-    for s, s_phys in zip(circuit.states, states, strict=True):
-        units[s_phys] = circuit.units.get(s, "")
+    names, units, states = result_labels(circuit, extra)
     return SimulationResult(
         name=circuit.name,
         time=grid,

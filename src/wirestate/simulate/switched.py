@@ -1138,6 +1138,21 @@ def device_output_names(circuit: SwitchedCircuit) -> list[tuple[str, str, int]]:
     return out
 
 
+def result_labels(
+    circuit: SwitchedCircuit, extra: list[tuple[str, str, int]]
+) -> tuple[list[str], dict[str, str], list[str]]:
+    """Output names (the file's, then ``extra`` of :func:`device_output_names`), units of
+    outputs and states, and the physical state names of a switched run's result."""
+    names = [*circuit.outputs, *(name for name, _, _ in extra)]
+    units = dict(circuit.units)
+    for name, what, i in extra:
+        units[name] = "1" if what == "on" else ("A" if i < len(circuit.devices) else "V")
+    states = [s.removesuffix("_shifted") for s in circuit.states]
+    for s, s_phys in zip(circuit.states, states, strict=True):
+        units[s_phys] = circuit.units.get(s, "")
+    return names, units, states
+
+
 def simulate_switched(
     model: Any,
     until: float,
@@ -1431,13 +1446,7 @@ class _Run:
     def result(self) -> SimulationResult:
         c = self.circuit
         e = self.engine
-        names = [*c.outputs, *(name for name, _, _ in self.extra)]
-        units = dict(c.units)
-        for name, what, i in self.extra:
-            units[name] = "1" if what == "on" else ("A" if i < len(c.devices) else "V")
-        states = [s.removesuffix("_shifted") for s in c.states]
-        for s, s_phys in zip(c.states, states, strict=True):
-            units[s_phys] = c.units.get(s, "")
+        names, units, states = result_labels(c, self.extra)
         rows = [i for _, what, i in self.extra if what == "row"]
         on_rows = [i for _, what, i in self.extra if what == "on"]
         slots = [len(c.outputs) + j for j, (_, w, _) in enumerate(self.extra) if w == "row"]
