@@ -14,7 +14,6 @@ quadratic forms of :func:`energy_gramian` (exact integrals of the piecewise solu
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from functools import lru_cache
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -322,51 +321,3 @@ def _part_row(outputs: list[str], name: str) -> int:
         if output == name or output.endswith("." + name):
             return index
     raise ValueError(f"internal: no output {name!r} in the continuous part")
-
-
-@lru_cache(maxsize=32)
-def stepping_function(n: int, blocks: int, block: int) -> Any:
-    """``mapaccum`` of a small SX function advancing ``block`` samples of an ``n``-state
-    loop, repeated ``blocks`` times. Cached, so that every point of a robust problem (and
-    every NLP of the same size) calls the same CasADi function, whose derivative functions
-    CasADi then generates once and keeps."""
-    import casadi
-
-    x = casadi.SX.sym("x", n)
-    w = casadi.SX.sym("w", n, block)
-    P = casadi.SX.sym("Phi", n, n)
-    columns = []
-    state = x
-    for j in range(block):
-        state = casadi.mtimes(P, state) + w[:, j]
-        columns.append(state)
-    steps = casadi.Function("steps", [x, w, P], [state, casadi.horzcat(*columns)])
-    return steps.mapaccum("trajectory", blocks, [0], [0])
-
-
-#: samples advanced per call of the stepping function
-STEP_BLOCK = 50
-
-
-def condensed_states(Phi: Any, Gamma: Any, x0: Any, V: np.ndarray, horizon: int | None) -> Any:
-    """State trajectory ``[x0, x1, ..., x_H]`` as a CasADi expression of the loop matrices
-    (the states eliminated, as in condensing the QPs of multiple shooting: Bock and Plitt,
-    IFAC 1984), up to sample ``H = horizon`` (default: the whole schedule ``V``).
-
-    ``x[k+1] = Phi x[k] + w[k]`` with ``w = Gamma v`` formed in one product; the steps run
-    through :func:`stepping_function` (padded with zero inputs to whole blocks, cut off
-    again), so the graph holds ``H / STEP_BLOCK`` calls of one function.
-    """
-    import casadi
-
-    n = Phi.shape[0]
-    steps = V.shape[1] - 1 if horizon is None else int(horizon)
-    if steps == 0:
-        return casadi.horzcat(x0)
-    blocks = -(-steps // STEP_BLOCK)
-    padded = np.zeros((V.shape[0], blocks * STEP_BLOCK))
-    padded[:, :steps] = V[:, :steps]
-    run = stepping_function(n, blocks, STEP_BLOCK)
-    W = casadi.mtimes(Gamma, casadi.DM(padded))
-    _, states = run(x0, W, casadi.repmat(Phi, 1, blocks))
-    return casadi.horzcat(x0, states[:, :steps])

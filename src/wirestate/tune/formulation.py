@@ -36,6 +36,7 @@ import numpy as np
 from wirestate.tune import limits as measures
 from wirestate.tune.evaluation import Evaluation
 from wirestate.tune.objective import objective_terms
+from wirestate.tune.parametric import resolve_states
 
 if TYPE_CHECKING:
     from wirestate.tune.problem import Problem
@@ -165,23 +166,27 @@ def formulate(
     builder.unknown(q, scaled(names, bounds, guess), 0.0, 1.0)
     values = {n: bounds[n][0] * (bounds[n][1] / bounds[n][0]) ** q[i] for i, n in enumerate(names)}
     nominal_ev = None
+    evaluations: list[Evaluation] = []
     for index, factors in enumerate(active.points):
         point_values = problem.corner_values(values, factors)
         limits = {j: pos for (p, j), pos in active.rows.items() if p == index}
         guess_ev = None
         if kind == "condensed":
-            ev = loop.symbolic(point_values, horizon=_horizon(problem, limits, index == 0))
+            horizon = _horizon(problem, limits, index == 0)
+            ev = loop.symbolic(point_values, horizon=horizon, deferred=True)
         else:
             guess_ev = guesses.row(index)
             ev = _shooting(problem, loop, point_values, guess_ev, builder, index)
         if index == 0:
             nominal_ev = ev
+        evaluations.append(ev)
         point = tuple(sorted(factors.items()))
         for j, positions in sorted(limits.items()):
             _impose(problem, (point, j), ev, start, positions, kind, builder, guess_ev)
     f = _objective(problem, nominal_ev, start, builder)
+    f, g = resolve_states([f, casadi.vertcat(*builder.g)], evaluations)
     return Formulation(
-        nlp={"x": casadi.vertcat(*builder.x), "f": f, "g": casadi.vertcat(*builder.g)},
+        nlp={"x": casadi.vertcat(*builder.x), "f": f, "g": g},
         x0=np.concatenate(builder.x0),
         lbx=np.concatenate(builder.lbx),
         ubx=np.concatenate(builder.ubx),

@@ -31,7 +31,6 @@ from wirestate.tune.closed_loop import held_pair, loop_matrices
 from wirestate.tune.evaluation import (
     Evaluation,
     _part_row,
-    condensed_states,
     energy_gramian,
     energy_parts,
     held_quadratic,
@@ -93,9 +92,6 @@ def part_nominal_value(problem: Problem, name: str) -> float:
 
 #: largest ``states + inputs`` of the circuit whose loop is built as SX (else as MX)
 SX_SIZE = 16
-#: largest ``states**2 * steps * (1 + parameters)`` whose trajectory is unrolled into one
-#: SX function (beyond it, generating the derivatives costs more than they save)
-UNROLLED_SIZE = 400_000
 
 
 class ParametricLoop:
@@ -212,35 +208,8 @@ class ParametricLoop:
                                      list(energies))  # fmt: skip
         return {
             "loop": function, "keys": keys, "squarings": squarings, "circuit": circuit,
-            "energy": energy, "unrolled": (p, named) if kind is casadi.SX else None,
+            "energy": energy,
         }  # fmt: skip
-
-    def _unrolled_states(self) -> Any:
-        """The function of :meth:`_states`, built on first use (``None`` for large
-        loops)."""
-        compiled = self._compiled()
-        if "states" not in compiled:
-            arguments = compiled["unrolled"]
-            compiled["states"] = None if arguments is None else self._states(*arguments)
-        return compiled["states"]
-
-    def _states(self, p: Any, named: dict[str, Any]) -> Any:
-        """``p -> X``: the whole trajectory as one SX function, for the condensed NLP (its
-        forward derivatives cost a third of stepping through CasADi's ``mapaccum``);
-        ``None`` for large loops, which step through :func:`condensed_states` instead."""
-        import casadi
-
-        V = self.problem.schedule.inputs
-        n, steps = named["Phi"].shape[0], V.shape[1] - 1
-        # generating its derivatives grows with the graph times the directions
-        if n * n * steps * (1 + len(self.parameters)) > UNROLLED_SIZE:
-            return None
-        inner = casadi.Function("loop_part", [p], [named["Phi"], named["Gamma"], named["x0"]])
-        q = casadi.MX.sym("p", p.numel())
-        Phi, Gamma, x0 = inner(q)
-        # the mapaccum graph expanded to SX: the same unrolled recursion, built in C++
-        X = condensed_states(Phi, Gamma, x0, V, None)
-        return casadi.Function("tuning_states", [q], [X], ["p"], ["X"]).expand()
 
     def _energies(self, m: dict, p: Any, h: float, squarings: int) -> dict[str, Any]:
         """``energy_<part>``: the quadratic form of :func:`held_quadratic` per resistor."""
@@ -265,6 +234,20 @@ class ParametricLoop:
             W = energy_gramian(Ap, Bp, q / scale, h, lambda X: cexpm.expm(X, squarings))
             out[f"energy_{part}"] = held_quadratic(W, held) * scale**2
         return out
+
+    def states(self, V: np.ndarray, columns: Any = None) -> Any:
+        """The CasADi function ``(Phi, Gamma, x0) -> X[:, columns]`` of
+        :func:`~wirestate.tune.recursion.state_samples`, kept by this loop (CasADi holds no
+        reference to a Python callback, so the loop keeps each one for the run)."""
+        from wirestate.tune.recursion import state_samples
+
+        V = np.asarray(V, dtype=float)
+        columns = np.arange(V.shape[1]) if columns is None else np.asarray(columns, dtype=int)
+        cache = self._compiled().setdefault("states", {})
+        key = (V.shape, V.tobytes(), columns.tobytes())
+        if key not in cache:
+            cache[key] = state_samples(self.function.size1_out(0), V, columns)
+        return cache[key]
 
     def pole_rows(self, limit: Any, vector: Any, rho: float) -> Any:
         """The Routh-Hurwitz rows of a pole limit
@@ -331,14 +314,16 @@ class ParametricLoop:
         *,
         X: Any = None,
         horizon: int | None = None,
-        unrolled: bool = True,
+        deferred: bool = False,
     ) -> Evaluation:
         """The case with part values as CasADi expressions (missing parts: nominal).
 
-        ``X`` gives the states (multiple shooting); otherwise they are eliminated
-        (:func:`~wirestate.tune.evaluation.condensed_states`) up to sample ``horizon``.
-        ``unrolled=False`` steps through blocks of one function even for a small loop
-        (whose derivatives are quicker to generate once than the unrolled trajectory's).
+        ``X`` gives the states (multiple shooting); otherwise they are eliminated (the
+        states of :meth:`states`, as in condensing the QPs of multiple shooting: Bock and
+        Plitt, IFAC 1984) up to sample ``horizon``.
+        ``deferred=True`` leaves them as a placeholder symbol (``extra["deferred"]``) for
+        :func:`resolve_states` to replace, once the rows are built, by the samples the rows
+        use only.
         """
         import casadi
 
@@ -352,18 +337,21 @@ class ParametricLoop:
         out = dict(zip(self.keys, self.function(vector), strict=True))
         problem = self.problem
         V = problem.schedule.inputs
-        states = self._unrolled_states() if X is None and unrolled else None
-        if states is not None:
-            X = states(vector)
+        pending = None
+        if X is None and deferred:
+            steps = V.shape[1] - 1 if horizon is None else int(horizon)
+            X = casadi.MX.sym("X_deferred", out["Phi"].shape[0], steps + 1)
+            pending = (self, X, out["Phi"], out["Gamma"], out["x0"], V[:, : steps + 1])
         elif X is None:
-            X = condensed_states(out["Phi"], out["Gamma"], out["x0"], V, horizon)
+            steps = V.shape[1] - 1 if horizon is None else int(horizon)
+            X = self.states(V[:, : steps + 1])(out["Phi"], out["Gamma"], out["x0"])
         columns = problem.schedule.steady_columns
         maps = [(out[f"C_{j}"], out[f"D_{j}"]) for j in range(problem.substeps)]
         extra = {
             "Cc": out["Cc"], "Dc": out["Dc"], "x0": out["x0"], "maps": maps,
             "steady": {k: out["steady"][:, i] for i, k in enumerate(columns)},
             "energy": _Energies(compiled["energy"], vector, self.energy_parts),
-            "loop": self, "p": vector,
+            "loop": self, "p": vector, "deferred": pending,
         }  # fmt: skip
         all_values = {**problem.nominal, **values}
         return Evaluation(
@@ -385,3 +373,26 @@ class _Energies(dict):
         outputs = outputs if isinstance(outputs, list | tuple) else [outputs]
         self.update(zip(self._parts, outputs, strict=True))
         return dict.__getitem__(self, part)
+
+
+def resolve_states(expressions: list[Any], evaluations: list[Evaluation]) -> list[Any]:
+    """``expressions`` with the deferred states of ``evaluations`` (see
+    :meth:`ParametricLoop.symbolic`) replaced by the samples they use, stepped by
+    :meth:`ParametricLoop.states` (the rest are structural zeros, never read)."""
+    import casadi
+
+    pending = [ev.extra["deferred"] for ev in evaluations if ev.extra.get("deferred")]
+    if not pending:
+        return expressions
+    every = casadi.vertcat(*[casadi.vec(e) for e in expressions])
+    symbols, definitions = [], []
+    for loop, Xs, Phi, Gamma, x0, V in pending:
+        n = Xs.shape[0]
+        pattern = casadi.jacobian_sparsity(every, casadi.vec(Xs))
+        used = np.unique(np.asarray(pattern.get_col(), dtype=int) // n)
+        full = casadi.MX(n, Xs.shape[1])
+        if used.size:
+            full[:, used.tolist()] = loop.states(V, used)(Phi, Gamma, x0)
+        symbols.append(Xs)
+        definitions.append(full)
+    return casadi.substitute(expressions, symbols, definitions)

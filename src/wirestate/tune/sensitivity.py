@@ -166,7 +166,7 @@ def limit_sensitivities(
     loop = problem.parametric(parts, {n: (point[n], point[n]) for n in parts})
     ev = loop.evaluate(loop.rows([point]))
     symbols = {n: casadi.MX.sym(n) for n in parts}
-    sev = loop.symbolic(symbols, unrolled=False)
+    sev = loop.symbolic(symbols)
     found: list[_Found] = []
     for limit in problem.spec.limits:
         if limit.kind in measures.POLE_KINDS:

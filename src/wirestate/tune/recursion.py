@@ -1,0 +1,310 @@
+"""The condensed trajectory as one CasADi function with hand-written derivatives.
+
+``X = states(Phi, W, x0)`` is the trajectory ``[x0, x1, ..., x_H]`` of
+``x[k+1] = Phi x[k] + W[:, k]``. CasADi differentiates it through
+:class:`StateRecursion`'s own forward and reverse functions, which run in numpy:
+
+* forward (tangent) sensitivities, every direction at once (Dickinson and Gelinas,
+  "Sensitivity analysis of ordinary differential equation systems -- a direct method",
+  J. Comput. Phys. 21, 1976, in its discrete-time form): with seeds ``dPhi``, ``dW``,
+  ``dx0`` for ``m`` directions, ``S[k+1] = Phi S[k] + dPhi X[k] + dW[k]``, where ``S[k]``
+  is states x directions: one small dense product per sample for all directions together
+  (the terms ``dPhi X`` of every direction and sample in one product beforehand);
+* reverse (adjoint) sensitivities (Cao, Li, Petzold and Serban, "Adjoint sensitivity
+  analysis for differential-algebraic equations", SIAM J. Sci. Comput. 24(3), 2003, in
+  discrete time): ``lam[k] = Xbar[k] + Phi^T lam[k+1]``, ``Phibar = sum lam[k+1] X[k]^T``,
+  ``Wbar[k] = lam[k+1]``, ``x0bar = lam[0]``.
+
+CasADi's own forward mode through a stepping loop costs one sweep of its virtual machine
+through every sample per direction; here the cost per sample is one product whatever
+the number of directions, which is what keeps the constraint Jacobians of the tuning NLP
+cheap as the number of design variables grows.
+"""
+
+from __future__ import annotations
+
+import ctypes
+import warnings
+from functools import lru_cache
+from typing import Any
+
+import numpy as np
+
+from wirestate.errors import WirestateWarning
+from wirestate.native import NoCompilerError, is_native_disabled, load_kernel
+
+_native: dict[str, Any] = {}
+
+
+def _kernel() -> Any:
+    """``ws_linear_recursion`` of ``recursion_kernel.c`` (built once per user by
+    :func:`wirestate.native.load_kernel`), or None: no compiler, a failed build or
+    ``WIRESTATE_NO_NATIVE`` (then numpy runs the same recursion, and a warning says so)."""
+    if is_native_disabled():
+        return None
+    if "function" not in _native:
+        _native["function"] = None
+        try:
+            library = load_kernel("wirestate.tune", "recursion_kernel.c")
+        except (NoCompilerError, OSError) as exc:
+            warnings.warn(
+                WirestateWarning(
+                    f"tuning: {exc}; the trajectory recursion runs in numpy (the same "
+                    "results to round-off, slower)"
+                ),
+                stacklevel=2,
+            )
+        else:
+            function = library.ws_linear_recursion
+            function.restype = None
+            function.argtypes = [ctypes.c_int, ctypes.c_int, ctypes.c_long, *[ctypes.c_void_p] * 3]
+            _native["function"] = function
+    return _native["function"]
+
+
+def recur(P: np.ndarray, R: np.ndarray, S0: np.ndarray) -> np.ndarray:
+    """``S[k+1] = P S[k] + R[k]`` with ``S[0] = S0``: ``R`` steps x n x m, ``S0`` n x m;
+    returns (steps + 1) x n x m. In C when the kernel is available, else in numpy."""
+    steps, n, m = R.shape
+    S = np.empty((steps + 1, n, m))
+    S[0] = S0
+    kernel = _kernel()
+    if kernel is not None and steps:
+        P = np.ascontiguousarray(P, dtype=np.float64)
+        R = np.ascontiguousarray(R, dtype=np.float64)
+        kernel(n, m, steps, P.ctypes.data, R.ctypes.data, S.ctypes.data)
+        return S
+    s = S[0]
+    with np.errstate(over="ignore", invalid="ignore"):
+        for k in range(steps):
+            s = P @ s + R[k]
+            S[k + 1] = s
+    return S
+
+
+def step(Phi: np.ndarray, W: np.ndarray, x0: np.ndarray) -> np.ndarray:
+    """``[x0, ..., x_H]`` as samples x states (``W`` is steps x states, one row per
+    sample)."""
+    return recur(Phi, W[:, :, None], x0[:, None])[:, :, 0]
+
+
+def forward(
+    Phi: np.ndarray, X: np.ndarray, dPhi: np.ndarray, dW: np.ndarray, dx0: np.ndarray
+) -> np.ndarray:
+    """Tangents of ``X`` (samples x states) for ``m`` directions: ``dPhi`` m x n x n, ``dW``
+    m x steps x n, ``dx0`` m x n; returns samples x n x m."""
+    steps = dW.shape[1]
+    # every direction's dPhi X[k] + dW[k] at once, as steps x n x m
+    R = (X[:steps] @ dPhi.transpose(0, 2, 1) + dW).transpose(1, 2, 0)
+    return recur(Phi, R, dx0.T)
+
+
+def reverse(
+    Phi: np.ndarray, X: np.ndarray, Xbar: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Adjoints for ``m`` output seeds ``Xbar`` (samples x n x m), ``X`` samples x n:
+    ``(Phibar m x n x n, Wbar steps x n x m, x0bar n x m)``."""
+    # lam[k] = Xbar[k] + Phi^T lam[k+1], run backwards in time
+    lam = recur(Phi.T, Xbar[-2::-1], Xbar[-1])[::-1]
+    after = lam[1:]  # lam[k + 1], steps x n x m
+    Phibar = np.einsum("kim,kj->mij", after, X[: after.shape[0]])
+    return Phibar, after, lam[0]
+
+
+def _dense(rows: int, cols: int) -> Any:
+    import casadi
+
+    return casadi.Sparsity.dense(rows, cols)
+
+
+def _view(buffer: Any, rows: int, cols: int, m: int = 1) -> np.ndarray:
+    """A CasADi buffer of a dense rows x (cols * m) matrix (column-major, directions side
+    by side) as an m x cols x rows array (the transpose of each direction's block). CasADi
+    passes no buffer (None) for an input that is all zeros: zeros then."""
+    if buffer is None:
+        return np.zeros((m, cols, rows))
+    return np.frombuffer(buffer, dtype=np.float64).reshape(m, cols, rows)
+
+
+def _write(buffer: Any, rows: int, cols: int, m: int, value: np.ndarray) -> None:
+    """Write ``value`` (m x cols x rows) into an output buffer (None: not asked for)."""
+    if buffer is not None:
+        _view(buffer, rows, cols, m)[:] = value
+
+
+class _Cache:
+    """The last trajectory computed, by its inputs (the forward and reverse functions are
+    called at the point just evaluated)."""
+
+    def __init__(self) -> None:
+        self.key: bytes | None = None
+        self.X: np.ndarray | None = None
+
+    def states(self, Phi: np.ndarray, W: np.ndarray, x0: np.ndarray) -> np.ndarray:
+        key = Phi.tobytes() + W.tobytes() + x0.tobytes()
+        if key != self.key:
+            self.X = step(Phi, W, x0)
+            self.key = key
+        return self.X
+
+
+def _make_callback() -> type:
+    import casadi
+
+    class _Base(casadi.Callback):
+        """Keeps the derivative functions it hands out alive (CasADi holds no reference to
+        a Python callback)."""
+
+        def __init__(self, V: np.ndarray, columns: np.ndarray, cache: _Cache) -> None:
+            casadi.Callback.__init__(self)
+            self.V, self.columns, self.cache = V, columns, cache
+            self.steps = V.shape[1]
+            self.VT = np.ascontiguousarray(V.T)
+            self.children: list[Any] = []
+
+        def loop_in(self, n: int) -> list[Any]:
+            return [_dense(n, n), _dense(n, self.V.shape[0]), _dense(n, 1)]
+
+        def loop(self, arg: Any, n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            """``(Phi, X, Gamma^T)`` of the inputs (X computed or taken from the cache)."""
+            Phi = _view(arg[0], n, n)[0].T
+            GammaT = _view(arg[1], n, self.V.shape[0])[0]
+            x0 = _view(arg[2], n, 1)[0, 0]
+            return Phi, self.cache.states(Phi, self.VT @ GammaT, x0), GammaT
+
+    class StateSamples(_Base):
+        def __init__(self, n: int, V: np.ndarray, columns: np.ndarray, name: str) -> None:
+            super().__init__(V, columns, _Cache())
+            self.n = n
+            self.construct(name, {})
+
+        def get_n_in(self) -> int:
+            return 3
+
+        def get_n_out(self) -> int:
+            return 1
+
+        def get_name_in(self, i: int) -> str:
+            return ("Phi", "Gamma", "x0")[i]
+
+        def get_name_out(self, i: int) -> str:
+            return "X"
+
+        def get_sparsity_in(self, i: int) -> Any:
+            return self.loop_in(self.n)[i]
+
+        def get_sparsity_out(self, i: int) -> Any:
+            return _dense(self.n, len(self.columns))
+
+        def has_eval_buffer(self) -> bool:
+            return True
+
+        def eval_buffer(self, arg: Any, res: Any) -> int:
+            n = self.n
+            _, X, _ = self.loop(arg, n)
+            _write(res[0], n, len(self.columns), 1, X[self.columns])
+            return 0
+
+        def has_forward(self, nfwd: int) -> bool:
+            return True
+
+        def get_forward(self, nfwd: int, name: str, inames: Any, onames: Any, opts: Any) -> Any:
+            child = _Forward(self, nfwd, name, list(inames), list(onames), opts)
+            self.children.append(child)
+            return child
+
+        def has_reverse(self, nadj: int) -> bool:
+            return True
+
+        def get_reverse(self, nadj: int, name: str, inames: Any, onames: Any, opts: Any) -> Any:
+            child = _Reverse(self, nadj, name, list(inames), list(onames), opts)
+            self.children.append(child)
+            return child
+
+    class _Derivative(_Base):
+        def __init__(self, parent, m, name, inames, onames, opts) -> None:
+            super().__init__(parent.V, parent.columns, parent.cache)
+            self.n, self.m, self.inames, self.onames = parent.n, m, inames, onames
+            self.construct(name, dict(opts))
+
+        def get_n_in(self) -> int:
+            return len(self.inames)
+
+        def get_n_out(self) -> int:
+            return len(self.onames)
+
+        def get_name_in(self, i: int) -> str:
+            return self.inames[i]
+
+        def get_name_out(self, i: int) -> str:
+            return self.onames[i]
+
+        def has_eval_buffer(self) -> bool:
+            return True
+
+    class _Forward(_Derivative):
+        # inputs: Phi, Gamma, x0, X (selected), fwd_Phi, fwd_Gamma, fwd_x0; out: fwd_X
+        def get_sparsity_in(self, i: int) -> Any:
+            n, m, k = self.n, self.m, self.V.shape[0]
+            sizes = [*self.loop_in(n), _dense(n, len(self.columns)), _dense(n, n * m),
+                     _dense(n, k * m), _dense(n, m)]  # fmt: skip
+            return sizes[i]
+
+        def get_sparsity_out(self, i: int) -> Any:
+            return _dense(self.n, len(self.columns) * self.m)
+
+        def eval_buffer(self, arg: Any, res: Any) -> int:
+            n, m, k = self.n, self.m, self.V.shape[0]
+            Phi, X, _ = self.loop(arg, n)
+            dPhi = _view(arg[4], n, n, m).transpose(0, 2, 1)
+            dW = self.VT @ _view(arg[5], n, k, m)  # m x steps x n
+            dx0 = _view(arg[6], n, 1, m)[:, 0, :]
+            S = forward(Phi, X, dPhi, dW, dx0)
+            _write(res[0], n, len(self.columns), m, S[self.columns].transpose(2, 0, 1))
+            return 0
+
+    class _Reverse(_Derivative):
+        # inputs: Phi, Gamma, x0, X (selected), adj_X; outputs: adj_Phi, adj_Gamma, adj_x0
+        def get_sparsity_in(self, i: int) -> Any:
+            n, m = self.n, self.m
+            columns = len(self.columns)
+            return [*self.loop_in(n), _dense(n, columns), _dense(n, columns * m)][i]
+
+        def get_sparsity_out(self, i: int) -> Any:
+            n, m = self.n, self.m
+            return [_dense(n, n * m), _dense(n, self.V.shape[0] * m), _dense(n, m)][i]
+
+        def eval_buffer(self, arg: Any, res: Any) -> int:
+            n, m, k = self.n, self.m, self.V.shape[0]
+            Phi, X, _ = self.loop(arg, n)
+            Xbar = np.zeros((self.steps + 1, n, m))
+            seeds = _view(arg[4], n, len(self.columns), m).transpose(1, 2, 0)
+            np.add.at(Xbar, self.columns, seeds)
+            Phibar, Wbar, x0bar = reverse(Phi, X, Xbar)
+            _write(res[0], n, n, m, Phibar.transpose(0, 2, 1))
+            # Gammabar^T = V Wbar, per direction: m x k x n
+            _write(res[1], n, k, m, np.einsum("ks,sim->mki", self.V, Wbar))
+            _write(res[2], n, 1, m, x0bar.T[:, None, :])
+            return 0
+
+    return StateSamples
+
+
+@lru_cache(maxsize=1)
+def _callback_class() -> type:
+    return _make_callback()
+
+
+def state_samples(n: int, V: np.ndarray, columns: Any = None) -> Any:
+    """The CasADi function ``(Phi n x n, Gamma n x inputs, x0 n) -> X[:, columns]``, the
+    states of ``x[k+1] = Phi x[k] + Gamma V[:, k]`` at the sample ``columns`` (default:
+    every sample ``0 .. V.shape[1] - 1``), with the derivatives of the module docstring.
+    The steps run to the last column asked for only. CasADi holds no reference to a
+    Python callback: keep the returned function for as long as expressions use it."""
+    V = np.asarray(V, dtype=float)
+    if columns is None:
+        columns = np.arange(V.shape[1])
+    columns = np.asarray(columns, dtype=int)
+    last = int(columns.max(initial=0))
+    return _callback_class()(n, np.ascontiguousarray(V[:, :last]), columns,
+                             f"state_samples_{n}_{last}_{len(columns)}")  # fmt: skip
