@@ -121,7 +121,7 @@ def test_kernel_and_numpy_loop_agree():
     if recursion._kernel() is None:
         pytest.skip("no C compiler here (or WIRESTATE_NO_NATIVE set): the kernel is not built")
     rng = np.random.default_rng(5)
-    n, m, steps = 24, 7, 300
+    n, m, steps = 24, recursion.NATIVE_COLUMNS, 300
     P = rng.standard_normal((n, n))
     P *= 0.95 / max(abs(np.linalg.eigvals(P)))
     R = rng.standard_normal((steps, n, m))

@@ -34,6 +34,10 @@ from wirestate.errors import WirestateWarning
 from wirestate.native import NoCompilerError, is_native_disabled, load_kernel
 
 _native: dict[str, Any] = {}
+#: the C kernel runs recursions of up to this many columns; wider ones are faster as one
+#: BLAS product per sample (measured on a 24-state loop: C 0.50 ms against numpy 1.43 ms
+#: at 4 columns, 3.3 ms against 2.3 ms at 32)
+NATIVE_COLUMNS = 16
 
 
 def _kernel() -> Any:
@@ -68,7 +72,7 @@ def recur(P: np.ndarray, R: np.ndarray, S0: np.ndarray) -> np.ndarray:
     steps, n, m = R.shape
     S = np.empty((steps + 1, n, m))
     S[0] = S0
-    kernel = _kernel()
+    kernel = _kernel() if m <= NATIVE_COLUMNS else None
     if kernel is not None and steps:
         P = np.ascontiguousarray(P, dtype=np.float64)
         R = np.ascontiguousarray(R, dtype=np.float64)
@@ -92,10 +96,14 @@ def forward(
     Phi: np.ndarray, X: np.ndarray, dPhi: np.ndarray, dW: np.ndarray, dx0: np.ndarray
 ) -> np.ndarray:
     """Tangents of ``X`` (samples x states) for ``m`` directions: ``dPhi`` m x n x n, ``dW``
-    m x steps x n, ``dx0`` m x n; returns samples x n x m."""
-    steps = dW.shape[1]
-    # every direction's dPhi X[k] + dW[k] at once, as steps x n x m
-    R = (X[:steps] @ dPhi.transpose(0, 2, 1) + dW).transpose(1, 2, 0)
+    steps x n x m, ``dx0`` m x n; returns samples x n x m."""
+    m, n = dx0.shape
+    steps = dW.shape[0]
+    # every direction's dPhi X[k] at once, in one product laid out as steps x n x m:
+    # Q[j, i m + d] = dPhi[d, i, j]
+    Q = dPhi.transpose(2, 1, 0).reshape(n, n * m)
+    R = (X[:steps] @ Q).reshape(steps, n, m)
+    R += dW
     return recur(Phi, R, dx0.T)
 
 
@@ -257,7 +265,9 @@ def _make_callback() -> type:
             n, m, k = self.n, self.m, self.V.shape[0]
             Phi, X, _ = self.loop(arg, n)
             dPhi = _view(arg[4], n, n, m).transpose(0, 2, 1)
-            dW = self.VT @ _view(arg[5], n, k, m)  # m x steps x n
+            # dW[k, i, d] = sum_c V[c, k] dGamma[d, i, c], as steps x n x m
+            dGamma = _view(arg[5], n, k, m).transpose(1, 2, 0).reshape(k, n * m)
+            dW = (self.VT @ dGamma).reshape(self.steps, n, m)
             dx0 = _view(arg[6], n, 1, m)[:, 0, :]
             S = forward(Phi, X, dPhi, dW, dx0)
             _write(res[0], n, len(self.columns), m, S[self.columns].transpose(2, 0, 1))
