@@ -171,7 +171,9 @@ def solve_nlp(
     begin = {**nominal_start, **(start or {})}
     start_ev = start_evaluation or problem.evaluate([nominal_start])
     exchange = Exchange(problem, points_of(problem, robust, corner_factors), start_ev)
-    at_start = exchange.evaluate(begin)
+    # the nominal point at the nominal start is the start evaluation itself
+    same = len(exchange.points) == 1 and begin == nominal_start
+    at_start = start_ev if same else exchange.evaluate(begin)
     if formulation == "auto":
         stable = all(is_stable_discrete(at_start.Phi[i]) for i in range(len(exchange.points)))
         formulation = "condensed" if stable else "multiple_shooting"
