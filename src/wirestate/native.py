@@ -119,3 +119,20 @@ def build_kernel(package: str, source_name: str) -> Path:
 def load_kernel(package: str, source_name: str) -> ctypes.CDLL:
     """:func:`build_kernel`, then load it with ctypes (errors as there)."""
     return ctypes.CDLL(str(build_kernel(package, source_name)))
+
+
+def optional_kernel(package: str, source_name: str, fallback: str) -> ctypes.CDLL | None:
+    """:func:`load_kernel`, or None when ``WIRESTATE_NO_NATIVE`` is set (silently) or
+    there is no compiler or the build fails: then a
+    :class:`~wirestate.errors.WirestateWarning` says ``fallback`` (what runs instead)."""
+    import warnings
+
+    from wirestate.errors import WirestateWarning
+
+    if is_native_disabled():
+        return None
+    try:
+        return load_kernel(package, source_name)
+    except (NoCompilerError, OSError) as exc:
+        warnings.warn(WirestateWarning(f"{exc}; {fallback}"), stacklevel=3)
+        return None

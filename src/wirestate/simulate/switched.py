@@ -35,7 +35,6 @@ from __future__ import annotations
 import bisect
 import ctypes
 import math
-import warnings
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -44,8 +43,8 @@ from typing import Any, NamedTuple
 import numpy as np
 from scipy.linalg import expm
 
-from wirestate.errors import SimulationError, WirestateWarning
-from wirestate.native import NoCompilerError, is_native_disabled, load_kernel
+from wirestate.errors import SimulationError
+from wirestate.native import is_native_disabled, optional_kernel
 from wirestate.simulate.discretize import Discretization
 from wirestate.simulate.inputs import InputSet, Waveform, build_inputs
 from wirestate.simulate.linear import time_grid
@@ -154,17 +153,11 @@ def event_kernel() -> Any:
         return None
     if "kernel" not in _kernel_state:
         _kernel_state["kernel"] = None
-        try:
-            library = load_kernel("wirestate.simulate", "event_kernel.c")
-        except (NoCompilerError, OSError) as exc:
-            warnings.warn(
-                WirestateWarning(
-                    f"switched engine: {exc}; the diode event search runs in Python "
-                    "(the same results, slower)"
-                ),
-                stacklevel=2,
-            )
-        else:
+        library = optional_kernel(
+            "wirestate.simulate", "event_kernel.c",
+            "switched engine: the diode event search runs in Python (the same results, slower)",
+        )  # fmt: skip
+        if library is not None:
             function = library.ws_first_crossing
             function.restype = ctypes.c_int
             function.argtypes = [

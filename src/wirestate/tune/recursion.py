@@ -24,14 +24,12 @@ cheap as the number of design variables grows.
 from __future__ import annotations
 
 import ctypes
-import warnings
 from functools import lru_cache
 from typing import Any
 
 import numpy as np
 
-from wirestate.errors import WirestateWarning
-from wirestate.native import NoCompilerError, is_native_disabled, load_kernel
+from wirestate.native import is_native_disabled, optional_kernel
 
 _native: dict[str, Any] = {}
 #: the C kernel runs recursions of up to this many columns; wider ones are faster as one
@@ -47,18 +45,13 @@ def _kernel() -> Any:
     if is_native_disabled():
         return None
     if "function" not in _native:
+        library = optional_kernel(
+            "wirestate.tune", "recursion_kernel.c",
+            "tuning: the trajectory recursion runs in numpy (the same results to round-off, "
+            "slower)",
+        )  # fmt: skip
         _native["function"] = None
-        try:
-            library = load_kernel("wirestate.tune", "recursion_kernel.c")
-        except (NoCompilerError, OSError) as exc:
-            warnings.warn(
-                WirestateWarning(
-                    f"tuning: {exc}; the trajectory recursion runs in numpy (the same "
-                    "results to round-off, slower)"
-                ),
-                stacklevel=2,
-            )
-        else:
+        if library is not None:
             function = library.ws_linear_recursion
             function.restype = None
             function.argtypes = [ctypes.c_int, ctypes.c_int, ctypes.c_long, *[ctypes.c_void_p] * 3]
