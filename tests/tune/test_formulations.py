@@ -83,10 +83,14 @@ def test_an_unstable_start_falls_back_to_multiple_shooting_and_agrees():
     assert shooting.stats["formulation"] == "multiple_shooting"
     condensed = solve_nlp(_drive_bus("0.5ohm", "1mF"))
     assert condensed.stats["formulation"] == "condensed"
-    # the same NLP from two starts and in two formulations: 1e-6 relative, IPOPT's
-    # tolerance 1e-8 on a problem whose scaled variables are of order one
-    for name in ("Rd", "Cd"):
-        assert condensed.values[name] == pytest.approx(shooting.values[name], rel=1e-6)
+    # the same NLP from two starts and in two formulations: Cd (the objective) 1e-6
+    # relative, IPOPT's tolerance 1e-8 on a problem whose scaled variables are of order
+    # one. Rd sits where two ringing peaks of the bus deviation are equal (a minimax kink):
+    # on the flatter side the excess grows by only 0.9e-2 per unit relative change of Rd
+    # (measured here by evaluating it at Rd (1 +- 1e-4)), so a feasibility tolerance of
+    # 1e-8 fixes Rd to about 1e-6 relative only; 1e-5 leaves a factor of ten
+    assert condensed.values["Cd"] == pytest.approx(shooting.values["Cd"], rel=1e-6)
+    assert condensed.values["Rd"] == pytest.approx(shooting.values["Rd"], rel=1e-5)
     # the pole limit holds at the optimum: eigenvalues by numpy, 1e-6 relative of 150 1/s
     poles = np.linalg.eigvals(unstable.numeric(condensed.values).A)
     assert float(np.max(poles.real)) <= -150.0 * (1 - 1e-6)
@@ -95,12 +99,15 @@ def test_an_unstable_start_falls_back_to_multiple_shooting_and_agrees():
 def test_imposing_only_the_peaks_reaches_the_optimum_of_every_row():
     # the exchange over samples (each limit imposed where its signal peaks, every sample
     # checked after each solve, the violated ones added) against the NLP that imposes
-    # every sample of every limit: the same optimum, 1e-6 relative (IPOPT's tolerance on a
-    # problem whose scaled variables are of order one), with far fewer rows
+    # every sample of every limit: the same optimum, with far fewer rows. The objective
+    # and Cd to 1e-6 relative (IPOPT's tolerance on a problem whose scaled variables are
+    # of order one); Rd, which sits on the kink between two equal ringing peaks (see the
+    # test above), to 1e-5
     model = _drive_bus("0.5ohm", "1mF")
     peaks = solve_nlp(model)
     every = solve_nlp(model, rows="all")
     assert every.stats["rows_imposed"] == every.stats["rows_total"]
     assert peaks.stats["rows_imposed"] < every.stats["rows_total"] / 4
-    for name in ("Rd", "Cd"):
-        assert peaks.values[name] == pytest.approx(every.values[name], rel=1e-6)
+    assert peaks.objective == pytest.approx(every.objective, rel=1e-6)
+    assert peaks.values["Cd"] == pytest.approx(every.values["Cd"], rel=1e-6)
+    assert peaks.values["Rd"] == pytest.approx(every.values["Rd"], rel=1e-5)

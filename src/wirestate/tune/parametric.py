@@ -395,4 +395,6 @@ def resolve_states(expressions: list[Any], evaluations: list[Evaluation]) -> lis
             full[:, used.tolist()] = loop.states(V, used)(Phi, Gamma, x0)
         symbols.append(Xs)
         definitions.append(full)
-    return casadi.substitute(expressions, symbols, definitions)
+    # graph_substitute keeps the nodes of the expressions (substitute copies them, and the
+    # loop function, called once for the rows and once for the states, ran twice)
+    return casadi.graph_substitute(expressions, symbols, definitions)
