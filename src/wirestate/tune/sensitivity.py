@@ -45,7 +45,7 @@ from wirestate.spec.tuning import Limit
 from wirestate.tune import limits as measures
 from wirestate.tune.evaluation import Evaluation
 from wirestate.tune.margins import limit_bound, limit_unit, value_from_excess
-from wirestate.tune.parametric import part_nominal_value
+from wirestate.tune.parametric import part_nominal_value, resolve_states
 
 if TYPE_CHECKING:
     from wirestate.tune.problem import Problem
@@ -166,7 +166,8 @@ def limit_sensitivities(
     loop = problem.parametric(parts, {n: (point[n], point[n]) for n in parts})
     ev = loop.evaluate(loop.rows([point]))
     symbols = {n: casadi.MX.sym(n) for n in parts}
-    sev = loop.symbolic(symbols)
+    # the states as a placeholder, replaced by the samples the limits read only
+    sev = loop.symbolic(symbols, deferred=True)
     found: list[_Found] = []
     for limit in problem.spec.limits:
         if limit.kind in measures.POLE_KINDS:
@@ -186,8 +187,9 @@ def limit_sensitivities(
                 outputs[f"{item.limit.label}#tied{i}"] = expression
     table: dict[str, dict[str, float | None]] = {}
     if outputs:
+        expressions = resolve_states(list(outputs.values()), [sev])
         function = casadi.Function(
-            "limit_values", list(symbols.values()), list(outputs.values()), parts, list(outputs)
+            "limit_values", list(symbols.values()), expressions, parts, list(outputs)
         )
         table = elasticities(function, point, by_rows=True)
     quantities = [_quantity(item, problem, table) for item in found]
