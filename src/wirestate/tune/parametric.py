@@ -338,12 +338,11 @@ class ParametricLoop:
         problem = self.problem
         V = problem.schedule.inputs
         pending = None
+        steps = V.shape[1] - 1 if horizon is None else int(horizon)
         if X is None and deferred:
-            steps = V.shape[1] - 1 if horizon is None else int(horizon)
             X = casadi.MX.sym("X_deferred", out["Phi"].shape[0], steps + 1)
             pending = (self, X, out["Phi"], out["Gamma"], out["x0"], V[:, : steps + 1])
         elif X is None:
-            steps = V.shape[1] - 1 if horizon is None else int(horizon)
             X = self.states(V[:, : steps + 1])(out["Phi"], out["Gamma"], out["x0"])
         columns = problem.schedule.steady_columns
         maps = [(out[f"C_{j}"], out[f"D_{j}"]) for j in range(problem.substeps)]

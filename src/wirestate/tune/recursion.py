@@ -1,8 +1,9 @@
 """The condensed trajectory as one CasADi function with hand-written derivatives.
 
-``X = states(Phi, W, x0)`` is the trajectory ``[x0, x1, ..., x_H]`` of
-``x[k+1] = Phi x[k] + W[:, k]``. CasADi differentiates it through
-:class:`StateRecursion`'s own forward and reverse functions, which run in numpy:
+``state_samples(n, V, columns)`` is the CasADi function ``(Phi, Gamma, x0) ->
+X[:, columns]``, the states of ``x[k+1] = Phi x[k] + Gamma V[:, k]`` at the sample
+``columns``. CasADi differentiates it through its own forward and reverse functions
+(the recursion in ``recursion_kernel.c``, or in numpy):
 
 * forward (tangent) sensitivities, every direction at once (Dickinson and Gelinas,
   "Sensitivity analysis of ordinary differential equation systems -- a direct method",
@@ -41,7 +42,8 @@ NATIVE_COLUMNS = 16
 def _kernel() -> Any:
     """``ws_linear_recursion`` of ``recursion_kernel.c`` (built once per user by
     :func:`wirestate.native.load_kernel`), or None: no compiler, a failed build or
-    ``WIRESTATE_NO_NATIVE`` (then numpy runs the same recursion, and a warning says so)."""
+    ``WIRESTATE_NO_NATIVE`` (numpy then runs the same recursion; a missing compiler or a
+    failed build is said in a warning)."""
     if is_native_disabled():
         return None
     if "function" not in _native:
@@ -141,10 +143,11 @@ class _Cache:
         self.key: bytes | None = None
         self.X: np.ndarray | None = None
 
-    def states(self, Phi: np.ndarray, W: np.ndarray, x0: np.ndarray) -> np.ndarray:
-        key = Phi.tobytes() + W.tobytes() + x0.tobytes()
+    def states(self, Phi: np.ndarray, GammaT: np.ndarray, x0: np.ndarray, VT: np.ndarray):
+        """``X`` (samples x states) of ``Phi``, ``Gamma^T`` and ``x0``, inputs ``V^T``."""
+        key = Phi.tobytes() + GammaT.tobytes() + x0.tobytes()
         if key != self.key:
-            self.X = step(Phi, W, x0)
+            self.X = step(Phi, VT @ GammaT, x0)
             self.key = key
         return self.X
 
@@ -166,12 +169,12 @@ def _make_callback() -> type:
         def loop_in(self, n: int) -> list[Any]:
             return [_dense(n, n), _dense(n, self.V.shape[0]), _dense(n, 1)]
 
-        def loop(self, arg: Any, n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-            """``(Phi, X, Gamma^T)`` of the inputs (X computed or taken from the cache)."""
+        def loop(self, arg: Any, n: int) -> tuple[np.ndarray, np.ndarray]:
+            """``(Phi, X)`` of the inputs (X computed or taken from the cache)."""
             Phi = _view(arg[0], n, n)[0].T
             GammaT = _view(arg[1], n, self.V.shape[0])[0]
             x0 = _view(arg[2], n, 1)[0, 0]
-            return Phi, self.cache.states(Phi, self.VT @ GammaT, x0), GammaT
+            return Phi, self.cache.states(Phi, GammaT, x0, self.VT)
 
     class StateSamples(_Base):
         def __init__(self, n: int, V: np.ndarray, columns: np.ndarray, name: str) -> None:
@@ -202,7 +205,7 @@ def _make_callback() -> type:
 
         def eval_buffer(self, arg: Any, res: Any) -> int:
             n = self.n
-            _, X, _ = self.loop(arg, n)
+            _, X = self.loop(arg, n)
             _write(res[0], n, len(self.columns), 1, X[self.columns])
             return 0
 
@@ -256,7 +259,7 @@ def _make_callback() -> type:
 
         def eval_buffer(self, arg: Any, res: Any) -> int:
             n, m, k = self.n, self.m, self.V.shape[0]
-            Phi, X, _ = self.loop(arg, n)
+            Phi, X = self.loop(arg, n)
             dPhi = _view(arg[4], n, n, m).transpose(0, 2, 1)
             # dW[k, i, d] = sum_c V[c, k] dGamma[d, i, c], as steps x n x m
             dGamma = _view(arg[5], n, k, m).transpose(1, 2, 0).reshape(k, n * m)
@@ -279,7 +282,7 @@ def _make_callback() -> type:
 
         def eval_buffer(self, arg: Any, res: Any) -> int:
             n, m, k = self.n, self.m, self.V.shape[0]
-            Phi, X, _ = self.loop(arg, n)
+            Phi, X = self.loop(arg, n)
             Xbar = np.zeros((self.steps + 1, n, m))
             seeds = _view(arg[4], n, len(self.columns), m).transpose(1, 2, 0)
             np.add.at(Xbar, self.columns, seeds)
