@@ -127,10 +127,14 @@ def _taylor(Y: Any, order: int, *, with_identity: bool) -> Any:
     return T
 
 
-def zoh(A: Any, B: Any, dt: float, squarings: int, order: int = ORDER) -> tuple[Any, Any]:
+def zoh(
+    A: Any, B: Any, dt: float, squarings: int, order: int = ORDER, exponential: Any = None
+) -> tuple[Any, Any]:
     """Zero-order-hold ``(Ad, Bd)`` of CasADi matrices ``A`` (n x n) and ``B`` (n x m).
 
     ``squarings`` must satisfy ``||[[A, B], [0, 0]] dt||_1 / 2**s <= 0.5`` (module doc).
+    ``exponential(X)``, when given, replaces :func:`expm` (the same polynomial as one
+    function: :func:`wirestate.tune.exponential.held_exponential`).
     """
     import casadi
 
@@ -138,5 +142,6 @@ def zoh(A: Any, B: Any, dt: float, squarings: int, order: int = ORDER) -> tuple[
     m = B.shape[1]
     top = casadi.horzcat(A, B)
     bottom = casadi.DM.zeros(m, n + m)
-    E = expm(casadi.vertcat(top, bottom) * dt, squarings, order)
+    X = casadi.vertcat(top, bottom) * dt
+    E = expm(X, squarings, order) if exponential is None else exponential(X)
     return E[:n, :n], E[:n, n:]

@@ -38,6 +38,7 @@ from wirestate.tune.evaluation import (
     outputs_between,
     step_batch,
 )
+from wirestate.tune.exponential import held_exponential
 
 if TYPE_CHECKING:
     from wirestate.tune.problem import Problem
@@ -190,8 +191,24 @@ class ParametricLoop:
             2.0 * max(one, infinity) + 2.0 * h * A.shape[0]
         )
 
+        # large loops take the exponential as one function with its derivatives in numpy,
+        # every direction at once (kept here: CasADi holds no reference to a callback)
+        callbacks: dict[tuple[int, int], Any] = {}
+
+        def exponential(s: int) -> Any:
+            if kind is not casadi.MX:
+                return lambda X: cexpm.expm(X, s)
+
+            def held(X: Any) -> Any:
+                key = (X.shape[0], s)
+                if key not in callbacks:
+                    callbacks[key] = held_exponential(*key)
+                return callbacks[key](X)
+
+            return held
+
         def zoh(A: Any, B: Any) -> tuple[Any, Any]:
-            return cexpm.zoh(A, B, h, squarings)
+            return cexpm.zoh(A, B, h, squarings, exponential=exponential(squarings))
 
         m = loop_matrices(problem, A1, B1, C1, D1, zoh)
         x0, steady = initial_and_steady(problem, m["Phi"], m["Gamma"], m["maps"])
@@ -201,17 +218,17 @@ class ParametricLoop:
         named.update(A=m["A"], B=m["B"], Cc=m["Cc"], Dc=m["Dc"], x0=x0, steady=steady)
         keys = list(named)
         function = casadi.Function("tuning_loop", [p], [kind(named[k]) for k in keys], ["p"], keys)
-        energies = self._energies(m, p, h, gramian_squarings)
+        energies = self._energies(m, p, h, exponential(gramian_squarings))
         energy = None
         if energies:
             energy = casadi.Function("tuning_energy", [p], list(energies.values()), ["p"],
                                      list(energies))  # fmt: skip
         return {
             "loop": function, "keys": keys, "squarings": squarings, "circuit": circuit,
-            "energy": energy,
+            "energy": energy, "callbacks": callbacks,
         }  # fmt: skip
 
-    def _energies(self, m: dict, p: Any, h: float, squarings: int) -> dict[str, Any]:
+    def _energies(self, m: dict, p: Any, h: float, exponential: Any) -> dict[str, Any]:
         """``energy_<part>``: the quadratic form of :func:`held_quadratic` per resistor."""
         import casadi
 
@@ -231,7 +248,7 @@ class ParametricLoop:
             # q is scaled to unit size at the nominal values, so that the Gramian block
             # of the exponential is no larger than the hold's (its squarings suffice)
             scale = float(np.linalg.norm(rows[row])) or 1.0
-            W = energy_gramian(Ap, Bp, q / scale, h, lambda X: cexpm.expm(X, squarings))
+            W = energy_gramian(Ap, Bp, q / scale, h, exponential)
             out[f"energy_{part}"] = held_quadratic(W, held) * scale**2
         return out
 
