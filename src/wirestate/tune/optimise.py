@@ -437,6 +437,9 @@ class _Runner:
             # dense columns of design variables against many rows) it factors fastest
             "ipopt.mumps_pivot_order": 0,
             "ipopt.hessian_approximation": "limited-memory",
+            # the rows are divided by their bounds and the variables scaled to [0, 1]
+            # already: IPOPT's gradient-based scaling would only cost a Jacobian per solve
+            "ipopt.nlp_scaling_method": "none",
         }
         self.iterations = 0
         self.previous: tuple[Formulation, np.ndarray, np.ndarray] | None = None
