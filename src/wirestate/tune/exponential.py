@@ -32,6 +32,7 @@ from typing import Any
 
 import numpy as np
 
+from wirestate.tune.callback import bases, dense
 from wirestate.tune.expm import ORDER
 
 
@@ -114,12 +115,6 @@ def taylor_exponential(
     return T, dT
 
 
-def _dense(n: int, cols: int) -> Any:
-    import casadi
-
-    return casadi.Sparsity.dense(n, cols)
-
-
 def _transposed(buffer: Any, n: int, m: int) -> np.ndarray:
     """A CasADi buffer of ``m`` dense n x n matrices side by side (column-major) as an
     m x n x n array of their transposes; zeros for an input CasADi leaves out (None)."""
@@ -129,23 +124,12 @@ def _transposed(buffer: Any, n: int, m: int) -> np.ndarray:
 
 
 def _make_callback() -> type:
-    import casadi
+    Differentiated, Derivative = bases()
 
-    class _Base(casadi.Callback):
-        """Keeps the derivative functions it hands out alive (CasADi holds no reference to
-        a Python callback)."""
-
-        def __init__(self, n: int, squarings: int) -> None:
-            casadi.Callback.__init__(self)
-            self.n, self.squarings = n, squarings
-            self.children: list[Any] = []
-
-        def has_eval_buffer(self) -> bool:
-            return True
-
-    class HeldExponential(_Base):
+    class HeldExponential(Differentiated):
         def __init__(self, n: int, squarings: int, name: str) -> None:
-            super().__init__(n, squarings)
+            super().__init__()
+            self.n, self.squarings = n, squarings
             self.construct(name, {})
 
         def get_n_in(self) -> int:
@@ -155,10 +139,10 @@ def _make_callback() -> type:
             return 1
 
         def get_sparsity_in(self, i: int) -> Any:
-            return _dense(self.n, self.n)
+            return dense(self.n, self.n)
 
         def get_sparsity_out(self, i: int) -> Any:
-            return _dense(self.n, self.n)
+            return dense(self.n, self.n)
 
         def eval_buffer(self, arg: Any, res: Any) -> int:
             # the buffers hold transposes: exp(X^T) = exp(X)^T
@@ -166,65 +150,33 @@ def _make_callback() -> type:
             _transposed(res[0], self.n, 1)[0][:] = taylor_exponential(XT, None, self.squarings)[0]
             return 0
 
-        def has_forward(self, nfwd: int) -> bool:
-            return True
-
-        def get_forward(self, nfwd: int, name: str, inames: Any, onames: Any, opts: Any) -> Any:
-            child = _Forward(self, nfwd, name, list(inames), list(onames), opts)
-            self.children.append(child)
-            return child
-
-        def has_reverse(self, nadj: int) -> bool:
-            return True
-
-        def get_reverse(self, nadj: int, name: str, inames: Any, onames: Any, opts: Any) -> Any:
-            child = _Reverse(self, nadj, name, list(inames), list(onames), opts)
-            self.children.append(child)
-            return child
-
-    class _Derivative(_Base):
+    class _Seeded(Derivative):
         # inputs: X, E, seeds (n x n m); output: the derivatives (n x n m)
-        def __init__(self, parent, m, name, inames, onames, opts) -> None:
-            super().__init__(parent.n, parent.squarings)
-            self.m, self.inames, self.onames = m, inames, onames
-            self.construct(name, dict(opts))
-
-        def get_n_in(self) -> int:
-            return 3
-
-        def get_n_out(self) -> int:
-            return 1
-
-        def get_name_in(self, i: int) -> str:
-            return self.inames[i]
-
-        def get_name_out(self, i: int) -> str:
-            return self.onames[i]
-
         def get_sparsity_in(self, i: int) -> Any:
-            return _dense(self.n, self.n * (self.m if i == 2 else 1))
+            return dense(self.parent.n, self.parent.n * (self.m if i == 2 else 1))
 
         def get_sparsity_out(self, i: int) -> Any:
-            return _dense(self.n, self.n * self.m)
+            return dense(self.parent.n, self.parent.n * self.m)
 
-    class _Forward(_Derivative):
+    class _Forward(_Seeded):
         def eval_buffer(self, arg: Any, res: Any) -> int:
             # L(X, dX)^T = L(X^T, dX^T): the transposed buffers need no transposing
-            n, m = self.n, self.m
+            n, m = self.parent.n, self.m
             XT = _transposed(arg[0], n, 1)[0]
-            _, dE = taylor_exponential(XT, _transposed(arg[2], n, m), self.squarings)
+            _, dE = taylor_exponential(XT, _transposed(arg[2], n, m), self.parent.squarings)
             _transposed(res[0], n, m)[:] = dE
             return 0
 
-    class _Reverse(_Derivative):
+    class _Reverse(_Seeded):
         def eval_buffer(self, arg: Any, res: Any) -> int:
             # Xbar = L(X^T, Ebar), so Xbar^T = L(X, Ebar^T)
-            n, m = self.n, self.m
+            n, m = self.parent.n, self.m
             X = _transposed(arg[0], n, 1)[0].T
-            _, XbarT = taylor_exponential(X, _transposed(arg[2], n, m), self.squarings)
+            _, XbarT = taylor_exponential(X, _transposed(arg[2], n, m), self.parent.squarings)
             _transposed(res[0], n, m)[:] = XbarT
             return 0
 
+    HeldExponential.forward_class, HeldExponential.reverse_class = _Forward, _Reverse
     return HeldExponential
 
 

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 
 from wirestate.native import is_native_disabled, optional_kernel
+from wirestate.tune.callback import bases, dense
 
 _native: dict[str, Any] = {}
 #: the C kernel runs recursions of up to this many columns; wider ones are faster as one
@@ -114,12 +115,6 @@ def reverse(
     return Phibar, after, lam[0]
 
 
-def _dense(rows: int, cols: int) -> Any:
-    import casadi
-
-    return casadi.Sparsity.dense(rows, cols)
-
-
 def _view(buffer: Any, rows: int, cols: int, m: int = 1) -> np.ndarray:
     """A CasADi buffer of a dense rows x (cols * m) matrix (column-major, directions side
     by side) as an m x cols x rows array (the transpose of each direction's block). CasADi
@@ -153,34 +148,27 @@ class _Cache:
 
 
 def _make_callback() -> type:
-    import casadi
+    Differentiated, Derivative = bases()
 
-    class _Base(casadi.Callback):
-        """Keeps the derivative functions it hands out alive (CasADi holds no reference to
-        a Python callback)."""
-
-        def __init__(self, V: np.ndarray, columns: np.ndarray, cache: _Cache) -> None:
-            casadi.Callback.__init__(self)
-            self.V, self.columns, self.cache = V, columns, cache
+    class StateSamples(Differentiated):
+        def __init__(self, n: int, V: np.ndarray, columns: np.ndarray, name: str) -> None:
+            super().__init__()
+            self.n, self.V, self.columns, self.cache = n, V, columns, _Cache()
             self.steps = V.shape[1]
             self.VT = np.ascontiguousarray(V.T)
-            self.children: list[Any] = []
+            self.construct(name, {})
 
-        def loop_in(self, n: int) -> list[Any]:
-            return [_dense(n, n), _dense(n, self.V.shape[0]), _dense(n, 1)]
+        def loop_in(self) -> list[Any]:
+            n = self.n
+            return [dense(n, n), dense(n, self.V.shape[0]), dense(n, 1)]
 
-        def loop(self, arg: Any, n: int) -> tuple[np.ndarray, np.ndarray]:
+        def loop(self, arg: Any) -> tuple[np.ndarray, np.ndarray]:
             """``(Phi, X)`` of the inputs (X computed or taken from the cache)."""
+            n = self.n
             Phi = _view(arg[0], n, n)[0].T
             GammaT = _view(arg[1], n, self.V.shape[0])[0]
             x0 = _view(arg[2], n, 1)[0, 0]
             return Phi, self.cache.states(Phi, GammaT, x0, self.VT)
-
-    class StateSamples(_Base):
-        def __init__(self, n: int, V: np.ndarray, columns: np.ndarray, name: str) -> None:
-            super().__init__(V, columns, _Cache())
-            self.n = n
-            self.construct(name, {})
 
         def get_n_in(self) -> int:
             return 3
@@ -195,104 +183,67 @@ def _make_callback() -> type:
             return "X"
 
         def get_sparsity_in(self, i: int) -> Any:
-            return self.loop_in(self.n)[i]
+            return self.loop_in()[i]
 
         def get_sparsity_out(self, i: int) -> Any:
-            return _dense(self.n, len(self.columns))
-
-        def has_eval_buffer(self) -> bool:
-            return True
+            return dense(self.n, len(self.columns))
 
         def eval_buffer(self, arg: Any, res: Any) -> int:
-            n = self.n
-            _, X = self.loop(arg, n)
-            _write(res[0], n, len(self.columns), 1, X[self.columns])
+            _, X = self.loop(arg)
+            _write(res[0], self.n, len(self.columns), 1, X[self.columns])
             return 0
 
-        def has_forward(self, nfwd: int) -> bool:
-            return True
-
-        def get_forward(self, nfwd: int, name: str, inames: Any, onames: Any, opts: Any) -> Any:
-            child = _Forward(self, nfwd, name, list(inames), list(onames), opts)
-            self.children.append(child)
-            return child
-
-        def has_reverse(self, nadj: int) -> bool:
-            return True
-
-        def get_reverse(self, nadj: int, name: str, inames: Any, onames: Any, opts: Any) -> Any:
-            child = _Reverse(self, nadj, name, list(inames), list(onames), opts)
-            self.children.append(child)
-            return child
-
-    class _Derivative(_Base):
-        def __init__(self, parent, m, name, inames, onames, opts) -> None:
-            super().__init__(parent.V, parent.columns, parent.cache)
-            self.n, self.m, self.inames, self.onames = parent.n, m, inames, onames
-            self.construct(name, dict(opts))
-
-        def get_n_in(self) -> int:
-            return len(self.inames)
-
-        def get_n_out(self) -> int:
-            return len(self.onames)
-
-        def get_name_in(self, i: int) -> str:
-            return self.inames[i]
-
-        def get_name_out(self, i: int) -> str:
-            return self.onames[i]
-
-        def has_eval_buffer(self) -> bool:
-            return True
-
-    class _Forward(_Derivative):
+    class _Forward(Derivative):
         # inputs: Phi, Gamma, x0, X (selected), fwd_Phi, fwd_Gamma, fwd_x0; out: fwd_X
         def get_sparsity_in(self, i: int) -> Any:
-            n, m, k = self.n, self.m, self.V.shape[0]
-            sizes = [*self.loop_in(n), _dense(n, len(self.columns)), _dense(n, n * m),
-                     _dense(n, k * m), _dense(n, m)]  # fmt: skip
+            up = self.parent
+            n, m, k = up.n, self.m, up.V.shape[0]
+            sizes = [*up.loop_in(), dense(n, len(up.columns)), dense(n, n * m),
+                     dense(n, k * m), dense(n, m)]  # fmt: skip
             return sizes[i]
 
         def get_sparsity_out(self, i: int) -> Any:
-            return _dense(self.n, len(self.columns) * self.m)
+            return dense(self.parent.n, len(self.parent.columns) * self.m)
 
         def eval_buffer(self, arg: Any, res: Any) -> int:
-            n, m, k = self.n, self.m, self.V.shape[0]
-            Phi, X = self.loop(arg, n)
+            up = self.parent
+            n, m, k = up.n, self.m, up.V.shape[0]
+            Phi, X = up.loop(arg)
             dPhi = _view(arg[4], n, n, m).transpose(0, 2, 1)
             # dW[k, i, d] = sum_c V[c, k] dGamma[d, i, c], as steps x n x m
             dGamma = _view(arg[5], n, k, m).transpose(1, 2, 0).reshape(k, n * m)
-            dW = (self.VT @ dGamma).reshape(self.steps, n, m)
+            dW = (up.VT @ dGamma).reshape(up.steps, n, m)
             dx0 = _view(arg[6], n, 1, m)[:, 0, :]
             S = forward(Phi, X, dPhi, dW, dx0)
-            _write(res[0], n, len(self.columns), m, S[self.columns].transpose(2, 0, 1))
+            _write(res[0], n, len(up.columns), m, S[up.columns].transpose(2, 0, 1))
             return 0
 
-    class _Reverse(_Derivative):
+    class _Reverse(Derivative):
         # inputs: Phi, Gamma, x0, X (selected), adj_X; outputs: adj_Phi, adj_Gamma, adj_x0
         def get_sparsity_in(self, i: int) -> Any:
-            n, m = self.n, self.m
-            columns = len(self.columns)
-            return [*self.loop_in(n), _dense(n, columns), _dense(n, columns * m)][i]
+            up = self.parent
+            columns = len(up.columns)
+            return [*up.loop_in(), dense(up.n, columns), dense(up.n, columns * self.m)][i]
 
         def get_sparsity_out(self, i: int) -> Any:
-            n, m = self.n, self.m
-            return [_dense(n, n * m), _dense(n, self.V.shape[0] * m), _dense(n, m)][i]
+            n, m = self.parent.n, self.m
+            return [dense(n, n * m), dense(n, self.parent.V.shape[0] * m), dense(n, m)][i]
 
         def eval_buffer(self, arg: Any, res: Any) -> int:
-            n, m, k = self.n, self.m, self.V.shape[0]
-            Phi, X = self.loop(arg, n)
-            Xbar = np.zeros((self.steps + 1, n, m))
-            seeds = _view(arg[4], n, len(self.columns), m).transpose(1, 2, 0)
-            np.add.at(Xbar, self.columns, seeds)
+            up = self.parent
+            n, m, k = up.n, self.m, up.V.shape[0]
+            Phi, X = up.loop(arg)
+            Xbar = np.zeros((up.steps + 1, n, m))
+            seeds = _view(arg[4], n, len(up.columns), m).transpose(1, 2, 0)
+            np.add.at(Xbar, up.columns, seeds)
             Phibar, Wbar, x0bar = reverse(Phi, X, Xbar)
             _write(res[0], n, n, m, Phibar.transpose(0, 2, 1))
             # Gammabar^T = V Wbar, per direction: m x k x n
-            _write(res[1], n, k, m, np.einsum("ks,sim->mki", self.V, Wbar))
+            _write(res[1], n, k, m, np.einsum("ks,sim->mki", up.V, Wbar))
             _write(res[2], n, 1, m, x0bar.T[:, None, :])
             return 0
 
+    StateSamples.forward_class, StateSamples.reverse_class = _Forward, _Reverse
     return StateSamples
 
 
