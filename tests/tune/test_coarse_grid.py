@@ -1,12 +1,19 @@
-"""The coarse grid the exchange imposes at first (wirestate.tune.optimise.coarse_grid):
-evenly spaced rows, both ends included, never closer than COARSE_SPACING samples."""
+"""The rows the exchange picks (wirestate.tune.optimise): the coarse grid it imposes at
+first (evenly spaced rows, both ends included, never closer than COARSE_SPACING samples)
+and the band of samples near a violated limit's bound it adds."""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from wirestate.tune.optimise import COARSE_ROWS, COARSE_SPACING, coarse_grid
+from wirestate.tune.optimise import (
+    ADDED_BAND,
+    COARSE_ROWS,
+    COARSE_SPACING,
+    coarse_grid,
+    near_bound,
+)
 
 
 @pytest.mark.parametrize("size", [1, 5, 9, 100, 333, 1000, 44302])
@@ -26,3 +33,18 @@ def test_grid_is_even_bounded_and_spaced(size, rows):
         assert gaps.min() >= COARSE_SPACING - 1
     if size >= wanted * COARSE_SPACING:
         assert len(grid) == wanted
+
+
+def test_rows_near_the_bound_are_the_band_and_at_most_the_nearest():
+    # a ringing excess (relative to the bound): the band takes every sample above -0.01,
+    # and with a cap only the ones nearest the bound
+    k = np.arange(400)
+    r = 0.02 * np.exp(-k / 150.0) * np.cos(2 * np.pi * k / 34.0) - 0.015
+    band = near_bound(r)
+    assert np.array_equal(band, np.flatnonzero(r > -ADDED_BAND))
+    assert band.size > 10
+    capped = near_bound(r, most=5)
+    assert capped.size == 5
+    assert np.all(np.diff(capped) > 0)
+    assert r[capped].min() >= np.sort(r)[-5]
+    assert near_bound(np.full(7, -0.5)).size == 0

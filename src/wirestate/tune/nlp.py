@@ -6,7 +6,7 @@ from __future__ import annotations
 
 from wirestate.tune.formulation import FORMULATIONS
 from wirestate.tune.objective import objective_terms, peak_impedance
-from wirestate.tune.optimise import HESSIANS, NlpSolution, is_stable_discrete, solve_nlp
+from wirestate.tune.optimise import NlpSolution, is_stable_discrete, solve_nlp
 from wirestate.tune.problem import Problem
 
 
@@ -17,7 +17,6 @@ def start_values(problem: Problem) -> dict[str, float]:
 
 __all__ = [
     "FORMULATIONS",
-    "HESSIANS",
     "NlpSolution",
     "is_stable_discrete",
     "objective_terms",
