@@ -54,6 +54,20 @@ class _Workspace(threading.local):
 _workspace = _Workspace()
 
 
+@lru_cache(maxsize=4)
+def _blocks(order: int) -> tuple[int, np.ndarray]:
+    """Paterson-Stockmeyer's chunk ``c`` and the coefficients of the polynomial in
+    ``Y**c``: row j holds the Taylor coefficients ``1 / (j c + i)!``, ``i < c``."""
+    chunk = max(1, math.ceil(math.sqrt(order)))
+    last = order // chunk
+    table = np.zeros((last + 1, chunk + 1))
+    for j in range(last + 1):
+        for i in range(chunk):
+            if j * chunk + i <= order:
+                table[j, i] = 1.0 / math.factorial(j * chunk + i)
+    return chunk, table
+
+
 def taylor_exponential(
     X: np.ndarray, dX: np.ndarray | None, squarings: int, order: int = ORDER
 ) -> tuple[np.ndarray, np.ndarray | None]:
@@ -63,15 +77,8 @@ def taylor_exponential(
     n = X.shape[0]
     scale = 2.0**squarings
     Y = X / scale
-    coefficients = [1.0 / math.factorial(k) for k in range(order + 1)]
-    chunk = max(1, math.ceil(math.sqrt(order)))
-    last = order // chunk
-    # the coefficients of the polynomial in Y**chunk: row j holds c[j chunk + i], i < chunk
-    table = np.zeros((last + 1, chunk + 1))
-    for j in range(last + 1):
-        for i in range(chunk):
-            if j * chunk + i <= order:
-                table[j, i] = coefficients[j * chunk + i]
+    chunk, table = _blocks(order)
+    last = table.shape[0] - 1
     powers = np.empty((chunk + 1, n, n))
     powers[0], powers[1] = np.eye(n), Y
     for i in range(2, chunk + 1):
