@@ -4,6 +4,8 @@ and the band of samples near a violated limit's bound it adds."""
 
 from __future__ import annotations
 
+from types import SimpleNamespace
+
 import numpy as np
 import pytest
 
@@ -48,3 +50,27 @@ def test_rows_near_the_bound_are_the_band_and_at_most_the_nearest():
     assert np.all(np.diff(capped) > 0)
     assert r[capped].min() >= np.sort(r)[-5]
     assert near_bound(np.full(7, -0.5)).size == 0
+
+
+def test_a_round_restarts_at_the_first_step_back_where_the_rows_hold():
+    # one row x <= 0.5 (a limit's excess over its bound): from the last optimum 0.6 back
+    # towards the start 0: 0.57 and 0.54 violate it, 0.48 holds with the slack
+    import casadi
+
+    from wirestate.tune.formulation import Formulation
+    from wirestate.tune.optimise import RESTART_SLACK, RESTART_STEPS, restart_on_rows
+
+    x = casadi.MX.sym("x")
+    nlp = Formulation(
+        nlp={"x": x, "f": x, "g": x}, x0=np.array([0.0]), lbx=np.array([0.0]),
+        ubx=np.array([1.0]), lbg=np.array([-np.inf]), ubg=np.array([0.5]), kind="condensed",
+        variables=["R1"], bounds={"R1": (1.0, 10.0)}, keys=[((), 0, 0)],
+    )  # fmt: skip
+    limits = [SimpleNamespace(kind="maximum")]
+    got = restart_on_rows(nlp, np.array([0.6]), limits)
+    first = next(t for t in RESTART_STEPS if 0.6 * (1 - t) <= 0.5 - RESTART_SLACK)
+    assert got == pytest.approx([0.6 * (1 - first)])
+    assert first == 0.2
+    # nothing holds on the way back: the start itself
+    nlp.ubg = np.array([-1.0])
+    assert restart_on_rows(nlp, np.array([0.6]), limits) == pytest.approx([0.0])

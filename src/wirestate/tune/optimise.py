@@ -215,7 +215,7 @@ def solve_nlp(
     exchange.coarse = formulation == "condensed"
     active = exchange.everything() if rows == "all" else exchange.first(at_start)
     run = _Runner(problem, progress, max_iterations, tolerance)
-    rounds, settled, last = 0, False, None
+    rounds, settled, last, last_x = 0, False, None, None
     # the first round's optimum only tells which rows bind: solved to a loose tolerance
     loose = max(tolerance, FIRST_ROUND_TOLERANCE) if rows != "all" else tolerance
     refine = False
@@ -223,18 +223,23 @@ def solve_nlp(
         rounds += 1
         if robust or rows != "all":
             run.say_round(rounds, active, exchange)
-        # after a loose round that left nothing violated, its optimum is a fine start
-        if last is None:
-            here = begin
+        if last is not None and not refine and formulation == "condensed":
+            # the next start from the new NLP's own rows (no simulation of the candidates)
+            used = exchange.subset(active, at_start)
+            nlp = formulate(problem, used[0], start_ev, begin, used[1], kind=formulation)
+            nlp.x0 = restart_on_rows(nlp, last_x, problem.spec.limits)
         else:
-            here = last if refine else exchange.restart(begin, last, active)
-        # the states along the start trajectory seed multiple shooting only
-        shooting = formulation == "multiple_shooting" and here is not begin
-        used = exchange.subset(active, exchange.evaluate(here) if shooting else at_start)
-        nlp = formulate(problem, used[0], start_ev, here, used[1], kind=formulation)
+            # after a loose round that left nothing violated, its optimum is a fine start
+            here = begin if last is None else last
+            if last is not None and not refine:
+                here = exchange.restart(begin, last, active)
+            # the states along the start trajectory seed multiple shooting only
+            shooting = formulation == "multiple_shooting" and here is not begin
+            used = exchange.subset(active, exchange.evaluate(here) if shooting else at_start)
+            nlp = formulate(problem, used[0], start_ev, here, used[1], kind=formulation)
         was_loose = rounds == 1 and loose > tolerance
         outcome = run.solve(nlp, loose if was_loose else tolerance)
-        last, at_optimum = outcome["values"], None
+        last, last_x, at_optimum = outcome["values"], outcome["x"], None
         if not outcome["converged"] or rows == "all" or rounds >= EXCHANGE_ROUNDS:
             break
         at_optimum = exchange.evaluate(outcome["values"])
@@ -404,6 +409,33 @@ class Exchange:
                 if k == j:
                     imposed += count if pos is None else len(pos)
         return imposed, total
+
+
+def restart_on_rows(nlp: Formulation, last: np.ndarray, limits: list) -> np.ndarray:
+    """The start of a condensed round (what :meth:`Exchange.restart` finds by simulation):
+    the first of :data:`RESTART_STEPS` on the way from the last optimum ``last`` back to
+    the NLP's start ``nlp.x0`` at which each limit row holds with a relative slack of
+    :data:`RESTART_SLACK` and each other row holds, by the NLP's own row function (the
+    rows are the limits' excesses over their bounds, divided by the bounds); the start
+    itself if none does."""
+    import casadi
+
+    rows = casadi.Function("restart_rows", [nlp.nlp["x"]], [nlp.nlp["g"]])
+    slack = np.array([
+        RESTART_SLACK if key is not None and limits[key[1]].kind not in measures.POLE_KINDS
+        else 0.0 for key in nlp.keys
+    ])  # fmt: skip
+    x1, x0 = np.asarray(last, dtype=float), np.asarray(nlp.x0, dtype=float)
+    if x1.shape != x0.shape:
+        return x0
+    for t in RESTART_STEPS:
+        x = np.clip(x1 + t * (x0 - x1), nlp.lbx, nlp.ubx)
+        g = np.array(rows(x)).ravel()
+        with np.errstate(invalid="ignore"):
+            holds = (g <= nlp.ubg - slack) & (g >= nlp.lbg + slack)
+        if np.all(holds):
+            return x
+    return x0
 
 
 def coarse_grid(size: int, rows: int = 0) -> np.ndarray:
