@@ -541,7 +541,7 @@ class _Runner:
         if nlp.kind == "condensed":
             # the design variables only: a dense L-BFGS matrix of our own, kept across
             # rounds (multiple shooting's states make the matrix too large)
-            if self.hessian is None:
+            if self.hessian is None or self.hessian.n != nlp.unknowns:
                 self.hessian = LimitedMemoryHessian(nlp.unknowns)
             self.hessian.start_round()
             hooks, keep = hooked_options(nlp.nlp, self.hessian)
