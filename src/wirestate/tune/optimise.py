@@ -202,8 +202,7 @@ def solve_nlp(
     nominal_start = problem.start_values()
     begin = {**nominal_start, **(start or {})}
     start_ev = start_evaluation or problem.evaluate([nominal_start])
-    exchange = Exchange(problem, points_of(problem, robust, corner_factors), start_ev)
-    exchange.tolerance = EXCHANGE_FACTOR * tolerance
+    exchange = Exchange(problem, points_of(problem, robust, corner_factors), start_ev, tolerance)
     # the nominal point at the nominal start is the start evaluation itself
     same = len(exchange.points) == 1 and begin == nominal_start
     at_start = start_ev if same else exchange.evaluate(begin)
@@ -229,9 +228,12 @@ def solve_nlp(
             nlp = formulate(problem, used[0], start_ev, begin, used[1], kind=formulation)
             nlp.x0 = restart_on_rows(nlp, last_x, problem.spec.limits)
         else:
-            # after a loose round that left nothing violated, its optimum is a fine start
-            here = begin if last is None else last
-            if last is not None and not refine:
+            if last is None:
+                here = begin
+            elif refine:
+                # after a loose round that left nothing violated, its optimum is a fine start
+                here = last
+            else:
                 here = exchange.restart(begin, last, active)
             # the states along the start trajectory seed multiple shooting only
             shooting = formulation == "multiple_shooting" and here is not begin
@@ -258,7 +260,9 @@ def solve_nlp(
 class Exchange:
     """The points, the rows of every limit, and the choice of the rows the NLP imposes."""
 
-    def __init__(self, problem: Problem, points: list[dict], start: Evaluation) -> None:
+    def __init__(
+        self, problem: Problem, points: list[dict], start: Evaluation, solver_tolerance: float
+    ) -> None:
         self.problem = problem
         self.points = points
         self.start = start
@@ -267,7 +271,7 @@ class Exchange:
         self.coarse = True
         self.coarse_rows = COARSE_ROWS
         #: a row exceeding its bound by more than this fraction of it is violated
-        self.tolerance = EXCHANGE_FACTOR * 1e-8
+        self.tolerance = EXCHANGE_FACTOR * solver_tolerance
 
     def evaluate(self, values: dict[str, float]) -> Evaluation:
         """Every point at these design-variable values, numerically, in one batch."""
@@ -528,10 +532,6 @@ class _Runner:
         options = dict(self.options)
         if tolerance > options["ipopt.tol"]:  # a loose first round
             options["ipopt.tol"] = options["ipopt.acceptable_tol"] = tolerance
-        if nlp.kind == "condensed":
-            # rows divided by their bounds, met to IPOPT's tolerance: a design variable
-            # that only a flat row fixes is then as accurate as the rows
-            options["ipopt.constr_viol_tol"] = options["ipopt.tol"]
         arguments = {"x0": nlp.x0, "lbx": nlp.lbx, "ubx": nlp.ubx, "lbg": nlp.lbg, "ubg": nlp.ubg}
         if self.previous is not None:
             options.update(WARM_START)
@@ -539,6 +539,9 @@ class _Runner:
         if self.progress is not None:
             options["iteration_callback"] = _iteration_report(nlp, self.progress, self.iterations)
         if nlp.kind == "condensed":
+            # rows divided by their bounds, met to IPOPT's tolerance: a design variable
+            # that only a flat row fixes is then as accurate as the rows
+            options["ipopt.constr_viol_tol"] = options["ipopt.tol"]
             # the design variables only: a dense L-BFGS matrix of our own, kept across
             # rounds (multiple shooting's states make the matrix too large)
             if self.hessian is None or self.hessian.n != nlp.unknowns:

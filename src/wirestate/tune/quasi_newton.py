@@ -22,6 +22,7 @@ would start empty.
 from __future__ import annotations
 
 from collections import deque
+from functools import lru_cache
 from typing import Any
 
 import numpy as np
@@ -104,12 +105,8 @@ def hooked_options(nlp: dict[str, Any], model: LimitedMemoryHessian) -> tuple[di
     return options, keep
 
 
-_cache: dict[str, tuple[type, type]] = {}
-
-
+@lru_cache(maxsize=1)
 def _classes() -> tuple[type, type]:
-    if "classes" in _cache:
-        return _cache["classes"]
     import casadi
 
     class Recorder(casadi.Callback):
@@ -208,5 +205,4 @@ def _classes() -> tuple[type, type]:
                 np.frombuffer(res[0], dtype=np.float64)[:] = B.T[self.lower]
             return 0
 
-    _cache["classes"] = (Recorder, Hessian)
-    return _cache["classes"]
+    return Recorder, Hessian
