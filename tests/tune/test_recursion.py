@@ -115,15 +115,17 @@ def test_gradient_matches_central_differences(path):
     assert np.allclose(grad, numeric, rtol=1e-7, atol=1e-9)
 
 
+@pytest.mark.parametrize("n", [24, 7])
 @pytest.mark.parametrize("m", [1, 3, 4, 7, 16, recursion.NATIVE_COLUMNS])
-def test_kernel_and_numpy_loop_agree(m):
+def test_kernel_and_numpy_loop_agree(m, n):
     # the C kernel against the numpy loop: the same recursion, summed in another order,
     # so agreement to round-off (1e-13 relative), not bit for bit
     if recursion._kernel() is None:
         pytest.skip("no C compiler here (or WIRESTATE_NO_NATIVE set): the kernel is not built")
     rng = np.random.default_rng(5)
-    # both of the kernel's loops: dot products below 4 columns, blocks of 4 (and the rest)
-    n, steps = 24, 300
+    # both of the kernel's loops: dot products below 4 columns, blocks of 4 (and the rest);
+    # rows two or four at a time, and (n = 7) the rows left over one at a time
+    steps = 300
     P = rng.standard_normal((n, n))
     P *= 0.95 / max(abs(np.linalg.eigvals(P)))
     R = rng.standard_normal((steps, n, m))

@@ -39,6 +39,8 @@ class LimitedMemoryHessian:
         self.pairs: deque[tuple[np.ndarray, np.ndarray]] = deque(maxlen=history)
         self.previous: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
         self.seen: dict[bytes, dict[str, np.ndarray]] = {}
+        #: the matrix of the pairs kept (formed again only when a pair is added)
+        self.formed: np.ndarray | None = None
 
     def start_round(self) -> None:
         """Forget the last iterate (the next round's rows differ); keep the pairs."""
@@ -63,13 +65,16 @@ class LimitedMemoryHessian:
                 y = sigma * (grad_f - grad0) + (J - J0).T @ lam
                 self.add(x - x0, y)
             self.previous = (x, grad_f, J)
-        return self.dense()
+        if self.formed is None:
+            self.formed = self.dense()
+        return self.formed
 
     def add(self, s: np.ndarray, y: np.ndarray) -> None:
         """Keep the pair ``(s, y)`` unless its curvature ``s^T y`` is not positive."""
         sy = float(s @ y)
         if np.all(np.isfinite(y)) and sy > 1e-12 * float(np.linalg.norm(s) * np.linalg.norm(y)):
             self.pairs.append((s, y))
+            self.formed = None
 
     def dense(self) -> np.ndarray:
         """``B``: the BFGS updates by the kept pairs of ``(s^T y / s^T s) I``."""
