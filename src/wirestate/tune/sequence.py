@@ -257,24 +257,72 @@ def build_sequence_model(
     stress_parts
         Parts whose peak current and voltage are sampled for the stress report.
     """
-    import casadi as ca
-
     b = _Builder(circuit, sequence, parts, inputs, nominal, measure, gain, reference)
-    T = sequence.period
     times = b.boundary_times()
     taus = [times[k + 1] - times[k] for k in range(len(sequence.modes))]
+    nominal_times = _nominal_times(sequence)
+    longest = [
+        min(sequence.period,
+            (LOCATED_ROOM if k < len(sequence.boundaries) and sequence.boundaries[k].located
+             else DURATION_ROOM) * (nominal_times[k + 1] - nominal_times[k]))
+        for k in range(len(taus))
+    ]  # fmt: skip
+    boundary_states, Gs = _steady_period(b, taus, longest)
+    equations = _period_equations(b, circuit, sequence, boundary_states)
+
+    def energy(part: str) -> Any:
+        """The energy a part absorbs per period, ``int v i dt``, over every mode."""
+        total = 0
+        for k, G in enumerate(Gs):
+            total = total + _ca().mtimes([b.row(k, f"v_{part}"), G, b.row(k, f"i_{part}").T])
+        return total
+
+    quantity_names = [f"energy_{part}" for part in energy_parts]
+    quantities = [energy(part) for part in energy_parts]
+    rows, stress_samples = _limit_table(b, limits, times, boundary_states, energy)
+    for k, tau in enumerate(taus):
+        for z_k in b.samples(k, boundary_states[k], tau, STRESS_SAMPLES, longest[k])[1:-1]:
+            stress_samples.append((k, z_k))
+    stress_names = [f"{what}_{part}" for part in stress_parts for what in ("i", "v")]
+    stress = [
+        _ca().vertcat(*[_ca().mtimes(b.row(k, name), z_k) for k, z_k in stress_samples])
+        for name in stress_names
+    ]
+    function, stress_function = _period_functions(
+        b, equations, rows, quantities, boundary_states, times, stress
+    )
+    return SequenceModel(
+        function=function,
+        stress_function=stress_function,
+        parts=list(parts),
+        sequence=sequence,
+        located=b.located,
+        row_slices=rows["slices"],
+        row_bounds=rows["bounds"],
+        quantity_names=quantity_names,
+        stress_names=stress_names,
+        squarings=b.squarings,
+        n_states=b.n,
+        outputs=b.rows_of,
+    )
+
+
+def _ca() -> Any:
+    import casadi
+
+    return casadi
+
+
+def _steady_period(b: _Builder, taus: list[Any], longest: list[float]) -> tuple[list, list]:
+    """The state at every mode boundary in periodic steady state (the fixed point of the
+    period map) and each mode's energy Gramian there."""
+    ca = _ca()
     n = b.n
     # the period map on symbols first, for the steady state
     z_sym = ca.MX.sym("z0", n + 1)
     z = z_sym
     Gs = []
     starts = [z_sym]
-    nominal_times = _nominal_times(sequence)
-    longest = [
-        min(T, (LOCATED_ROOM if k < len(sequence.boundaries) and sequence.boundaries[k].located
-                else DURATION_ROOM) * (nominal_times[k + 1] - nominal_times[k]))
-        for k in range(len(taus))
-    ]  # fmt: skip
     for k, tau in enumerate(taus):
         z, G = b.flow(k, tau, z, longest[k])
         starts.append(z)
@@ -285,10 +333,13 @@ def build_sequence_model(
     Phi, gamma = M[:n, :n], M[:n, n]
     x0 = ca.solve(ca.MX.eye(n) - Phi, gamma)
     z0 = ca.vertcat(x0, 1.0)
-    substitute = lambda e: ca.substitute(e, z_sym, z0)  # noqa: E731
-    boundary_states = [substitute(s) for s in starts]
-    Gs = [substitute(G) for G in Gs]
-    # equations: located diode margins, loop condition
+    return [ca.substitute(s, z_sym, z0) for s in starts], [ca.substitute(G, z_sym, z0) for G in Gs]
+
+
+def _period_equations(b: _Builder, circuit, sequence, boundary_states) -> Any:
+    """The located diode margins (zero at their events) and the loop condition."""
+    ca = _ca()
+    measure, gain, reference = b.measure
     equations = []
     for k in b.located:
         event = sequence.boundaries[k]
@@ -297,74 +348,55 @@ def build_sequence_model(
         equations.append((v - device.forward_voltage) / max(abs(reference), 1.0))
     y = ca.mtimes(b.row(0, measure), boundary_states[0])
     equations.append((gain * y - reference) / max(abs(reference), 1e-12))
+    return ca.vertcat(*equations)
 
-    # energies per period
-    def energy(part: str) -> Any:
-        total = 0
-        for k, G in enumerate(Gs):
-            vi = ca.mtimes([b.row(k, f"v_{part}"), G, b.row(k, f"i_{part}").T])
-            total = total + vi
-        return total
 
-    quantity_names, quantities = [], []
-    for part in energy_parts:
-        quantity_names.append(f"energy_{part}")
-        quantities.append(energy(part))
-    rows_out, row_slices, row_bounds, row_times = [], {}, {}, []
-    stress_samples: list[tuple[int, Any]] = [
-        (k, boundary_states[k]) for k in range(len(sequence.modes))
-    ] + [(k, boundary_states[k + 1]) for k in range(len(sequence.modes))]
+def _limit_table(b: _Builder, limits, times, boundary_states, energy) -> tuple[dict, list]:
+    """Every limit's rows (``"rows"``, ``"slices"`` and ``"bounds"`` by label, ``"times"``)
+    and the stress samples: every boundary state and every sample a limit reads."""
+    table: dict[str, Any] = {"rows": [], "slices": {}, "bounds": {}, "times": []}
+    modes = len(b.seq.modes)
+    stress_samples: list[tuple[int, Any]] = [(k, boundary_states[k]) for k in range(modes)]
+    stress_samples += [(k, boundary_states[k + 1]) for k in range(modes)]
     for limit in limits:
         expr, lower, upper, samples, when = _limit_rows(b, limit, times, boundary_states, energy)
-        row_times.append(when)
-        start = sum(int(r.shape[0]) for r in rows_out)
-        rows_out.append(expr)
-        row_slices[limit.label] = slice(start, start + int(expr.shape[0]))
-        row_bounds[limit.label] = (lower, upper)
+        table["times"].append(when)
+        start = sum(int(r.shape[0]) for r in table["rows"])
+        table["rows"].append(expr)
+        table["slices"][limit.label] = slice(start, start + int(expr.shape[0]))
+        table["bounds"][limit.label] = (lower, upper)
         stress_samples.extend(samples)
-    for k, tau in enumerate(taus):
-        for z_k in b.samples(k, boundary_states[k], tau, STRESS_SAMPLES, longest[k])[1:-1]:
-            stress_samples.append((k, z_k))
-    stress_names, stress = [], []
-    for part in stress_parts:
-        for what in ("i", "v"):
-            stress_names.append(f"{what}_{part}")
-            stress.append(ca.vertcat(*[ca.mtimes(b.row(k, f"{what}_{part}"), z_k)
-                                       for k, z_k in stress_samples]))  # fmt: skip
+    return table, stress_samples
+
+
+def _period_functions(b: _Builder, equations, rows, quantities, states, times, stress):
+    """The CasADi functions of one period: ``period`` (equations, rows, quantities, states,
+    times) and ``stress`` (stress samples, row times: never differentiated)."""
+    ca = _ca()
+
+    def stacked(items: list[Any]) -> Any:
+        return ca.vertcat(*items) if items else ca.MX.zeros(0, 1)
+
     inputs = [b.values, b.duty, b.theta]
     function = ca.Function(
         "period",
         inputs,
         [
-            ca.vertcat(*equations),
-            ca.vertcat(*rows_out) if rows_out else ca.MX.zeros(0, 1),
-            ca.vertcat(*quantities) if quantities else ca.MX.zeros(0, 1),
-            ca.horzcat(*boundary_states),
+            equations,
+            stacked(rows["rows"]),
+            stacked(quantities),
+            ca.horzcat(*states),
             ca.vertcat(*[t if isinstance(t, ca.MX) else ca.MX(t) for t in times]),
         ],
         ["values", "duty", "located"],
         ["equations", "rows", "quantities", "states", "times"],
     )
-    # the stress samples and row times apart: the optimiser never differentiates them
     stress_function = ca.Function(
         "stress", inputs, [ca.horzcat(*stress) if stress else ca.MX.zeros(0, 1),
-                           ca.vertcat(*row_times) if row_times else ca.MX.zeros(0, 1)],
+                           stacked(rows["times"])],
         ["values", "duty", "located"], ["stress", "row_times"],
     )  # fmt: skip
-    return SequenceModel(
-        function=function,
-        stress_function=stress_function,
-        parts=list(parts),
-        sequence=sequence,
-        located=b.located,
-        row_slices=row_slices,
-        row_bounds=row_bounds,
-        quantity_names=quantity_names,
-        stress_names=stress_names,
-        squarings=b.squarings,
-        n_states=n,
-        outputs=b.rows_of,
-    )
+    return function, stress_function
 
 
 def edge_boundary(sequence: PeriodSequence, limit: Limit) -> int:
