@@ -257,6 +257,8 @@ def build_sequence_model(
     stress_parts
         Parts whose peak current and voltage are sampled for the stress report.
     """
+    import casadi as ca
+
     b = _Builder(circuit, sequence, parts, inputs, nominal, measure, gain, reference)
     times = b.boundary_times()
     taus = [times[k + 1] - times[k] for k in range(len(sequence.modes))]
@@ -274,7 +276,7 @@ def build_sequence_model(
         """The energy a part absorbs per period, ``int v i dt``, over every mode."""
         total = 0
         for k, G in enumerate(Gs):
-            total = total + _ca().mtimes([b.row(k, f"v_{part}"), G, b.row(k, f"i_{part}").T])
+            total = total + ca.mtimes([b.row(k, f"v_{part}"), G, b.row(k, f"i_{part}").T])
         return total
 
     quantity_names = [f"energy_{part}" for part in energy_parts]
@@ -285,7 +287,7 @@ def build_sequence_model(
             stress_samples.append((k, z_k))
     stress_names = [f"{what}_{part}" for part in stress_parts for what in ("i", "v")]
     stress = [
-        _ca().vertcat(*[_ca().mtimes(b.row(k, name), z_k) for k, z_k in stress_samples])
+        ca.vertcat(*[ca.mtimes(b.row(k, name), z_k) for k, z_k in stress_samples])
         for name in stress_names
     ]
     function, stress_function = _period_functions(
@@ -307,16 +309,11 @@ def build_sequence_model(
     )
 
 
-def _ca() -> Any:
-    import casadi
-
-    return casadi
-
-
 def _steady_period(b: _Builder, taus: list[Any], longest: list[float]) -> tuple[list, list]:
     """The state at every mode boundary in periodic steady state (the fixed point of the
     period map) and each mode's energy Gramian there."""
-    ca = _ca()
+    import casadi as ca
+
     n = b.n
     # the period map on symbols first, for the steady state
     z_sym = ca.MX.sym("z0", n + 1)
@@ -338,7 +335,8 @@ def _steady_period(b: _Builder, taus: list[Any], longest: list[float]) -> tuple[
 
 def _period_equations(b: _Builder, circuit, sequence, boundary_states) -> Any:
     """The located diode margins (zero at their events) and the loop condition."""
-    ca = _ca()
+    import casadi as ca
+
     measure, gain, reference = b.measure
     equations = []
     for k in b.located:
@@ -372,7 +370,7 @@ def _limit_table(b: _Builder, limits, times, boundary_states, energy) -> tuple[d
 def _period_functions(b: _Builder, equations, rows, quantities, states, times, stress):
     """The CasADi functions of one period: ``period`` (equations, rows, quantities, states,
     times) and ``stress`` (stress samples, row times: never differentiated)."""
-    ca = _ca()
+    import casadi as ca
 
     def stacked(items: list[Any]) -> Any:
         return ca.vertcat(*items) if items else ca.MX.zeros(0, 1)
